@@ -1,0 +1,263 @@
+"""Curved surface finite elements: a scikit-fem mapping for triangles in 3-D.
+
+scikit-fem's own mappings assume a square Jacobian, so triangles embedded in
+3-D fail.  :class:`SurfaceMapping` supplies what :class:`skfem.CellBasis`
+needs (``F``, ``DF``, ``detDF``, ``invDF``) for an isoparametric map of
+degree k whose geometry nodes lie exactly on the true surface; the ordinary
+bilinear forms then assemble the Laplace-Beltrami problem unchanged.
+
+For a parametrisation x(X) with Jacobian J (3 x 2) the surface measure is
+sqrt(det(J^T J)) dX and the tangential gradient of u(X) is
+J (J^T J)^-1 grad_X u, i.e. ``invDF = (J^T J)^-1 J^T``
+(Dziuk and Elliott, Acta Numerica 22 (2013), section 2.4).
+
+Array layout: points enter and leave as (N, 3); scikit-fem's (3, N) is used
+only inside this module.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+import skfem
+from skfem.mapping import Mapping
+
+__all__ = ["SurfaceMapping", "CurvedSurface", "curved_surface", "lagrange_element", "lattice_cells"]
+
+_ELEMENTS = {
+    1: skfem.ElementTriP1,
+    2: skfem.ElementTriP2,
+    3: skfem.ElementTriP3,
+    4: skfem.ElementTriP4,
+}
+
+
+def lagrange_element(degree: int) -> skfem.Element:
+    """The scikit-fem Lagrange triangle of ``degree`` (1 to 4)."""
+    try:
+        return _ELEMENTS[degree]()
+    except KeyError:
+        raise ValueError(f"degree must be one of {sorted(_ELEMENTS)}, got {degree!r}") from None
+
+
+class SurfaceMapping(Mapping):
+    """Isoparametric map from the reference triangle to a curved triangle in 3-D.
+
+    Parameters
+    ----------
+    element_dofs
+        (Nbfun, Nelems) global node numbers of each element (scikit-fem order).
+    nodes
+        (3, Nnodes) geometry node positions.
+    element
+        The Lagrange element whose shape functions define the map.
+    """
+
+    def __init__(self, element_dofs: np.ndarray, nodes: np.ndarray, element: skfem.Element):
+        self.t = element_dofs
+        self.nodes = nodes
+        self.elem = element
+        self._cache: dict = {}
+
+    def _shape(self, X: np.ndarray):
+        key = ("shape", X.shape, X.tobytes())
+        if key not in self._cache:
+            phi, dphi = zip(*(self.elem.lbasis(X, i) for i in range(self.t.shape[0])))
+            self._cache[key] = (np.array(phi), np.array(dphi))  # (Nb, Nqp), (Nb, 2, Nqp)
+        return self._cache[key]
+
+    def _element_nodes(self, tind):
+        t = self.t if tind is None else self.t[:, tind]
+        return self.nodes[:, t]  # (3, Nb, Nel)
+
+    def F(self, X, tind=None):
+        phi, _ = self._shape(X)
+        return np.einsum("dbe,bq->deq", self._element_nodes(tind), phi)
+
+    def DF(self, X, tind=None):
+        key = ("DF", X.shape, X.tobytes(), None if tind is None else np.asarray(tind).tobytes())
+        if key not in self._cache:
+            _, dphi = self._shape(X)
+            self._cache[key] = np.einsum("dbe,bjq->djeq", self._element_nodes(tind), dphi)
+        return self._cache[key]
+
+    def _metric(self, X, tind):
+        J = self.DF(X, tind)
+        G = np.einsum("dieq,djeq->ijeq", J, J)
+        det = G[0, 0] * G[1, 1] - G[0, 1] * G[1, 0]
+        return J, G, det
+
+    def detDF(self, X, tind=None):
+        _, _, det = self._metric(X, tind)
+        if np.any(det <= 0):
+            raise ValueError("degenerate curved triangle (zero surface Jacobian)")
+        return np.sqrt(det)
+
+    def invDF(self, X, tind=None):
+        key = ("invDF", X.shape, X.tobytes(), None if tind is None else np.asarray(tind).tobytes())
+        if key not in self._cache:
+            J, G, det = self._metric(X, tind)
+            Ginv = np.array([[G[1, 1], -G[0, 1]], [-G[1, 0], G[0, 0]]]) / det
+            self._cache[key] = np.einsum("ijeq,djeq->ideq", Ginv, J)
+        return self._cache[key]
+
+    def normals_at(self, X, tind=None):
+        """Unit normals (3, Nel, Nqp) of the discrete surface, J_1 x J_2 normalised."""
+        J = self.DF(X, tind)
+        n = np.cross(J[:, 0], J[:, 1], axis=0)
+        return n / np.linalg.norm(n, axis=0)
+
+
+def lattice_cells(element: skfem.Element, degree: int) -> np.ndarray:
+    """Sub-triangles (k^2, 3) of the reference triangle on the element's nodes.
+
+    Lagrange nodes of degree k sit on the lattice (i/k, j/k); connecting them
+    gives k^2 flat sub-triangles, which is how degrees 1, 3 and 4 are exported.
+    """
+    locs = np.rint(element.doflocs * degree).astype(int)
+    index = {tuple(p): n for n, p in enumerate(locs)}
+    cells = []
+    for i in range(degree):
+        for j in range(degree - i):
+            cells.append((index[(i, j)], index[(i + 1, j)], index[(i, j + 1)]))
+            if i + j < degree - 1:
+                cells.append((index[(i + 1, j)], index[(i + 1, j + 1)], index[(i, j + 1)]))
+    return np.array(cells)
+
+
+@dataclass(frozen=True, eq=False)
+class CurvedSurface:
+    """A curved Lagrange surface mesh of one degree and its scikit-fem basis.
+
+    Attributes
+    ----------
+    mesh
+        The topological scikit-fem mesh (its 2-D coordinates are unused).
+    basis
+        The :class:`skfem.CellBasis` on the curved geometry.
+    nodes
+        (Ndofs, 3) geometry nodes, one per degree of freedom.
+    degree
+        Polynomial degree of both the geometry and the elements.
+    h
+        Largest flat edge length of the reference triangulation.
+    """
+
+    mesh: skfem.MeshTri
+    basis: skfem.CellBasis
+    nodes: np.ndarray
+    degree: int
+    h: float
+
+    @property
+    def ndofs(self) -> int:
+        return self.basis.N
+
+    @property
+    def boundary_dofs(self) -> np.ndarray:
+        """Degrees of freedom on the rim (empty for a closed surface)."""
+        facets = self.mesh.boundary_facets()
+        if len(facets) == 0:
+            return np.zeros(0, dtype=np.int64)
+        return self.basis.get_dofs(facets).flatten()
+
+    def __repr__(self) -> str:
+        return (f"CurvedSurface(degree={self.degree}, elements={self.mesh.nelements}, "
+                f"dofs={self.ndofs}, h={self.h:.3g})")
+
+
+def curved_surface(
+    points: np.ndarray,
+    triangles: np.ndarray,
+    degree: int,
+    project: Callable[[np.ndarray], np.ndarray] | None = None,
+    quadrature_order: int | None = None,
+    element_nodes: np.ndarray | None = None,
+) -> CurvedSurface:
+    """Build a curved surface of ``degree`` from a flat reference triangulation.
+
+    Parameters
+    ----------
+    points
+        (N, 3) reference vertices.
+    triangles
+        (M, 3) vertex indices.
+    degree
+        Geometry and element degree, 1 to 4.
+    project
+        Exact map (K, 3) -> (K, 3) from reference positions to the true
+        surface.  Every geometry node is the image of its position on the
+        flat reference triangle.  ``None`` keeps flat positions.
+    quadrature_order
+        Exactness of the quadrature rule; by default ``2 * degree + 2`` so
+        the curved Jacobian is integrated accurately.
+    element_nodes
+        Optional (M, 6) positions for quadratic input (meshio ``triangle6``
+        order: vertices then edge midpoints 01, 12, 20); used for degree 2
+        geometry instead of ``project``.
+
+    Returns
+    -------
+    CurvedSurface
+
+    Examples
+    --------
+    >>> from shellmodes.shapes.reference import icosphere
+    >>> p, t = icosphere(1)
+    >>> s = curved_surface(p, t, 2, project=lambda x: x / np.linalg.norm(x, axis=1)[:, None])
+    >>> s.ndofs
+    162
+    """
+    points = np.asarray(points, dtype=float)
+    triangles = np.asarray(triangles)
+    element = lagrange_element(degree)
+    # scikit-fem needs a planar coordinate array for its topology bookkeeping;
+    # the coordinates themselves are never used, the mapping carries geometry.
+    mesh = skfem.MeshTri(np.ascontiguousarray(points[:, :2].T), np.ascontiguousarray(triangles.T))
+    dofs = skfem.assembly.Dofs(mesh, element)
+    t = dofs.element_dofs
+    # scikit-fem sorts each triangle's vertices; use its ordering for the
+    # affine reference map so local node positions match the global dofs.
+    corners = points[mesh.t]  # (3 vertices, Nel, 3)
+    ref = element.doflocs  # (Nb, 2)
+    lam = np.column_stack([1.0 - ref[:, 0] - ref[:, 1], ref[:, 0], ref[:, 1]])  # (Nb, 3)
+    local = np.einsum("bv,ved->bed", lam, corners)  # (Nb, Nel, 3)
+    flat = np.zeros((dofs.N, 3))
+    flat[t.ravel()] = local.reshape(-1, 3)
+    if element_nodes is not None and degree == 2:
+        nodes = _quadratic_nodes(mesh, triangles, element_nodes, t, dofs.N)
+    elif project is not None:
+        nodes = np.asarray(project(flat), dtype=float)
+    else:
+        nodes = flat
+    mapping = SurfaceMapping(t, np.ascontiguousarray(nodes.T), element)
+    order = 2 * degree + 2 if quadrature_order is None else quadrature_order
+    basis = skfem.CellBasis(mesh, element, mapping=mapping, intorder=order, disable_doflocs=True)
+    edges = points[mesh.facets]
+    h = float(np.max(np.linalg.norm(edges[0] - edges[1], axis=1)))
+    return CurvedSurface(mesh=mesh, basis=basis, nodes=nodes, degree=degree, h=h)
+
+
+def _quadratic_nodes(mesh, triangles, element_nodes, t, n):
+    """Place degree-2 geometry nodes from meshio triangle6 data."""
+    nodes = np.zeros((n, 3))
+    vertex_of = {}
+    # map each original triangle's vertices/edges to its six given positions
+    for e in range(len(triangles)):
+        tri = triangles[e]
+        pos = element_nodes[e]
+        for a in range(3):
+            vertex_of[int(tri[a])] = pos[a]
+        for a, (i, j) in enumerate(((0, 1), (1, 2), (2, 0))):
+            vertex_of[(min(tri[i], tri[j]), max(tri[i], tri[j]))] = pos[3 + a]
+    for e in range(mesh.nelements):
+        v = mesh.t[:, e]
+        for a in range(3):
+            nodes[t[a, e]] = vertex_of[int(v[a])]
+        # scikit-fem P2 edge dofs follow the facets (0,1), (1,2), (0,2)
+        for a, (i, j) in enumerate(((0, 1), (1, 2), (0, 2))):
+            key = (min(v[i], v[j]), max(v[i], v[j]))
+            nodes[t[3 + a, e]] = vertex_of[key]
+    return nodes
