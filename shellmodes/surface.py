@@ -175,6 +175,7 @@ def curved_surface(
     project: Callable[[np.ndarray], np.ndarray] | None = None,
     quadrature_order: int | None = None,
     element_nodes: np.ndarray | None = None,
+    unwrap: Callable[[np.ndarray], np.ndarray] | None = None,
 ) -> CurvedSurface:
     """Build a curved surface of ``degree`` from a flat reference triangulation.
 
@@ -197,6 +198,9 @@ def curved_surface(
         Optional (M, 6) positions for quadratic input (meshio ``triangle6``
         order: vertices then edge midpoints 01, 12, 20); used for degree 2
         geometry instead of ``project``.
+    unwrap
+        Optional map of per-element corner coordinates (3, Nel, 3) that makes
+        them contiguous on periodic reference charts (the torus seam).
 
     Returns
     -------
@@ -221,11 +225,13 @@ def curved_surface(
     # scikit-fem sorts each triangle's vertices; use its ordering for the
     # affine reference map so local node positions match the global dofs.
     corners = points[mesh.t]  # (3 vertices, Nel, 3)
+    if unwrap is not None:
+        corners = unwrap(corners)
     ref = element.doflocs  # (Nb, 2)
     lam = np.column_stack([1.0 - ref[:, 0] - ref[:, 1], ref[:, 0], ref[:, 1]])  # (Nb, 3)
     local = np.einsum("bv,ved->bed", lam, corners)  # (Nb, Nel, 3)
     flat = np.zeros((dofs.N, 3))
-    flat[t.ravel()] = local.reshape(-1, 3)
+    flat[t.ravel()] = local.reshape(-1, 3)  # shared nodes get the same position from each element
     if element_nodes is not None and degree == 2:
         nodes = _quadratic_nodes(mesh, triangles, element_nodes, t, dofs.N)
     elif project is not None:
@@ -234,9 +240,9 @@ def curved_surface(
         nodes = flat
     mapping = SurfaceMapping(t, np.ascontiguousarray(nodes.T), element)
     order = 2 * degree + 2 if quadrature_order is None else quadrature_order
-    basis = skfem.CellBasis(mesh, element, mapping=mapping, intorder=order, disable_doflocs=True)
-    edges = points[mesh.facets]
-    h = float(np.max(np.linalg.norm(edges[0] - edges[1], axis=1)))
+    basis = skfem.CellBasis(mesh, element, mapping=mapping, intorder=order)
+    ends = nodes[t[:3]]  # vertex images, (3, Nel, 3)
+    h = float(np.max(np.linalg.norm(ends - np.roll(ends, 1, axis=0), axis=2)))
     return CurvedSurface(mesh=mesh, basis=basis, nodes=nodes, degree=degree, h=h)
 
 

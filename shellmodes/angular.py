@@ -1,0 +1,364 @@
+"""Angular content of modes: how much of each spherical-harmonic degree l a mode holds.
+
+A mode u on a star-shaped surface or in a shell is a function of the position
+x; its direction from a centre, omega = (x - c)/|x - c|, is what the real
+harmonics Y_lm of :mod:`shellmodes.harmonics` are evaluated at (the radial map
+onto the unit sphere).  The harmonics are interpolated at the finite-element
+nodes and compared with the modes in the mass-matrix (M) inner product, i.e.
+in the L2 inner product of the discrete surface or volume itself.
+
+Choice of projection (documented because the answer depends on it)
+------------------------------------------------------------------
+On a deformed surface the interpolated harmonics are not M-orthonormal: the
+Gram matrix G = B^T M B of the analysing functions B differs from the identity
+(the area element is not that of the unit sphere).  We therefore
+
+1. project u onto span(B) by least squares in the M norm (the M-orthogonal
+   projection P u = B G^-1 B^T M u, the best approximation in that norm);
+2. split ||P u||^2 among the degrees by writing P u in the Loewdin
+   (symmetric) orthonormalisation B G^-1/2 of the analysing functions, the
+   orthonormal set closest to B in the least-squares sense (Loewdin,
+   J. Chem. Phys. 18, 365 (1950); Mayer, Int. J. Quantum Chem. 90, 63 (2002)).
+   The weight of l is the sum over m of the squared coefficients.
+
+The weights are non-negative, sum to ||P u||^2/||u||^2 <= 1 (the remainder is
+content above ``l_max`` or not representable), reduce to the ordinary
+|<Y_lm, u>|^2 on the sphere, and are unchanged by any orthogonal change of
+basis inside one l block (G^-1/2 transforms covariantly), so they do not
+depend on the real/complex or rotated choice of harmonics of one degree.
+
+Shells (volume modes)
+---------------------
+For a volume mode u(r, omega) = sum_lm f_lm(r) Y_lm(omega) the weight of l
+is sum_m int f_lm(r)^2 r^2 dr / ||u||^2.  Projecting onto the harmonics alone
+(constant in r) would only see the radial average of f_lm and miss modes with
+radial nodes.  With ``radial_degree = d > 0`` the analysing functions are the
+products P_k(s(r)) Y_lm(omega), k = 0..d, with P_k Legendre polynomials in the
+radius mapped onto [-1, 1] over the nodes' radial range; the M inner product
+then integrates the radial dependence out.  For surfaces keep d = 0: there r
+is a function of omega and radial factors would alias other degrees.
+
+Array layout: ``nodes`` (N, 3), ``modes`` (N, n_modes), as everywhere.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+from numpy.polynomial import legendre
+
+from .errors import MeshQualityWarning
+from .harmonics import angles, harmonic_labels, real_sph_harm_basis
+
+__all__ = [
+    "AngularContent", "HarmonicProjector", "angular_content", "multiplet_content", "harmonic_projector",
+]
+
+# More analysing functions than this fraction of the nodes cannot be told apart
+# by interpolation on the mesh (common practice: a few nodes per wavelength).
+_MAX_FUNCTIONS_PER_NODE = 1.0 / 8.0
+# Above this Gram condition number the least-squares weights lose meaning.
+_MAX_GRAM_CONDITION = 1e6
+
+
+@dataclass(frozen=True)
+class AngularContent:
+    """Per-mode weights of each harmonic degree l.
+
+    Attributes
+    ----------
+    weights
+        (n_modes, l_max + 1) weight of each l; rows sum to <= 1, the remainder
+        being content the analysis does not resolve (l > l_max).
+    dominant_l
+        (n_modes,) the l of largest weight.
+    dominant_weight
+        (n_modes,) that weight.
+    mean_L2
+        (n_modes,) <L^2>/hbar^2 = sum_l l(l+1) w_l / sum_l w_l: the expectation
+        in the resolved part, renormalised to it.
+    abs_m
+        (n_modes,) dominant |m| about the z axis (axisymmetric shapes), else None.
+    l_max
+        Highest degree analysed.
+    """
+
+    weights: np.ndarray
+    dominant_l: np.ndarray
+    dominant_weight: np.ndarray
+    mean_L2: np.ndarray
+    abs_m: np.ndarray | None
+    l_max: int
+
+    @property
+    def unresolved(self) -> np.ndarray:
+        """(n_modes,) weight not accounted for by degrees up to ``l_max``."""
+        return 1.0 - self.weights.sum(axis=1)
+
+    def __repr__(self) -> str:
+        n = len(self.dominant_l)
+        head = ", ".join(f"{l}:{w:.3f}" for l, w in zip(self.dominant_l[:6], self.dominant_weight[:6]))
+        more = ", ..." if n > 6 else ""
+        return f"AngularContent(modes={n}, l_max={self.l_max}, dominant l:weight=[{head}{more}])"
+
+
+@dataclass(frozen=True, eq=False)
+class HarmonicProjector:
+    """Loewdin-orthonormalised analysing functions on one mesh (see module docstring).
+
+    Attributes
+    ----------
+    M
+        The mass matrix the inner product uses.
+    B
+        (N, n_functions) analysing functions at the nodes.
+    inverse_root
+        G^-1/2 for the Gram matrix G = B^T M B.
+    l, m, k
+        (n_functions,) degree, order and radial index of each column.
+    l_max
+        Highest degree.
+    condition
+        Condition number of G.
+    """
+
+    M: object
+    B: np.ndarray
+    inverse_root: np.ndarray
+    l: np.ndarray
+    m: np.ndarray
+    k: np.ndarray
+    l_max: int
+    condition: float
+
+    def coefficients(self, vectors: np.ndarray) -> np.ndarray:
+        """(n_functions, n_vectors) coefficients of the vectors' projections, orthonormal basis."""
+        return self.inverse_root @ (self.B.T @ (self.M @ vectors))
+
+    def by_degree(self, squared: np.ndarray) -> np.ndarray:
+        """Sum (n_functions, ...) values over the functions of each degree -> (l_max + 1, ...)."""
+        out = np.zeros((self.l_max + 1,) + squared.shape[1:])
+        np.add.at(out, self.l, squared)
+        return out
+
+
+def harmonic_projector(nodes, M, l_max: int, center=(0.0, 0.0, 0.0), radial_degree: int = 0):
+    """Build the least-squares harmonic analysis of functions on a mesh.
+
+    Parameters
+    ----------
+    nodes
+        (N, 3) finite-element node positions.
+    M
+        (N, N) mass matrix (sparse or dense) of the same discretisation.
+    l_max
+        Highest degree analysed.
+    center
+        Centre of the radial map onto the unit sphere.
+    radial_degree
+        0 for surface modes; for volume modes the Legendre degree of the
+        radial factors (see the module docstring).
+
+    Returns
+    -------
+    HarmonicProjector
+
+    Raises
+    ------
+    ValueError
+        For inconsistent shapes, a negative ``l_max`` or ``radial_degree``, or
+        a node at the centre (its direction is undefined).
+
+    Warns
+    -----
+    MeshQualityWarning
+        When the analysing functions exceed 1/8 of the nodes or the Gram
+        matrix has a condition number above 1e6: the mesh does not resolve
+        ``l_max``.
+    """
+    nodes = np.asarray(nodes, dtype=float)
+    if nodes.ndim != 2 or nodes.shape[1] != 3:
+        raise ValueError(f"nodes must have shape (N, 3), got {nodes.shape}")
+    if M.shape != (len(nodes), len(nodes)):
+        raise ValueError(f"M has shape {M.shape}, expected {(len(nodes), len(nodes))} to match the nodes")
+    if int(l_max) != l_max or l_max < 0:
+        raise ValueError(f"l_max must be a non-negative integer, got {l_max!r}")
+    if int(radial_degree) != radial_degree or radial_degree < 0:
+        raise ValueError(f"radial_degree must be a non-negative integer, got {radial_degree!r}")
+    l_max, radial_degree = int(l_max), int(radial_degree)
+    offset = nodes - np.asarray(center, dtype=float)
+    r = np.linalg.norm(offset, axis=1)
+    if np.any(r <= 1e-12 * max(float(r.max()), 1.0)):
+        raise ValueError("a node lies at the centre, where the direction (and so Y_lm) is undefined; "
+                         "move the centre or analyse a shell that excludes it")
+    n_functions = (l_max + 1) ** 2 * (radial_degree + 1)
+    if n_functions > _MAX_FUNCTIONS_PER_NODE * len(nodes):
+        warnings.warn(f"{n_functions} analysing functions for {len(nodes)} nodes: the mesh cannot resolve "
+                      f"l_max={l_max} (keep the count below {_MAX_FUNCTIONS_PER_NODE:.3g} of the nodes); "
+                      "lower l_max or refine", MeshQualityWarning, stacklevel=3)
+    theta, phi = angles(offset)
+    Y = real_sph_harm_basis(l_max, theta, phi)
+    labels = np.array(harmonic_labels(l_max))
+    if radial_degree == 0:
+        B, radial_index = Y, np.zeros(len(labels), dtype=int)
+    else:
+        span = float(r.max() - r.min())
+        if span <= 1e-9 * float(r.max()):
+            raise ValueError("radial_degree > 0 needs nodes spread in radius (a volume mesh); "
+                             "use radial_degree=0 for surfaces")
+        s = 2.0 * (r - r.min()) / span - 1.0
+        P = legendre.legvander(s, radial_degree)  # (N, d + 1)
+        B = (P[:, :, None] * Y[:, None, :]).reshape(len(nodes), -1)  # column = k * n_h + j
+        radial_index = np.repeat(np.arange(radial_degree + 1), len(labels))
+        labels = np.tile(labels, (radial_degree + 1, 1))
+    MB = M @ B
+    G = B.T @ MB
+    G = 0.5 * (G + G.T)
+    s_values, vectors = np.linalg.eigh(G)
+    if s_values[0] <= 0:
+        condition = np.inf
+    else:
+        condition = float(s_values[-1] / s_values[0])
+    if condition > _MAX_GRAM_CONDITION:
+        warnings.warn(f"harmonic Gram matrix condition number {condition:.3g} > {_MAX_GRAM_CONDITION:.0e}: "
+                      f"the mesh does not resolve l_max={l_max} (or radial_degree={radial_degree}); "
+                      "lower them or refine", MeshQualityWarning, stacklevel=3)
+    # Drop numerically null directions rather than divide by ~0.
+    keep = s_values > 1e-12 * s_values[-1]
+    inverse_root = (vectors[:, keep] / np.sqrt(s_values[keep])) @ vectors[:, keep].T
+    return HarmonicProjector(M=M, B=B, inverse_root=inverse_root, l=labels[:, 0], m=labels[:, 1],
+                             k=radial_index, l_max=l_max, condition=condition)
+
+
+def _columns(modes, n_nodes):
+    modes = np.asarray(modes, dtype=float)
+    if modes.ndim == 1:
+        modes = modes[:, None]
+    if modes.ndim != 2 or modes.shape[0] != n_nodes:
+        raise ValueError(f"modes must have shape ({n_nodes}, n_modes), got {modes.shape}")
+    return modes
+
+
+def _m_norms(M, modes):
+    norms = np.einsum("ij,ij->j", modes, np.asarray(M @ modes))
+    if np.any(norms <= 0):
+        raise ValueError("a mode has zero (or negative) M-norm; is M a mass matrix?")
+    return norms
+
+
+def angular_content(nodes, modes, M, l_max: int, center=(0.0, 0.0, 0.0), axisymmetric: bool = False,
+                    radial_degree: int = 0) -> AngularContent:
+    """Weight of each harmonic degree l in each mode (least squares in the M norm).
+
+    Parameters
+    ----------
+    nodes
+        (N, 3) node positions (surface or volume mesh).
+    modes
+        (N, n_modes) nodal values; any normalisation.
+    M
+        (N, N) mass matrix of the discretisation.
+    l_max
+        Highest degree analysed.
+    center
+        Centre of the radial map onto the unit sphere.
+    axisymmetric
+        If True, also report the dominant |m| about the z axis.
+    radial_degree
+        0 for surfaces; for shells, the Legendre degree in r of the radial
+        factors (e.g. 6 for the lowest few radial states; the remainder
+        ``1 - weights.sum(1)`` shows when it is too low).
+
+    Returns
+    -------
+    AngularContent
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from skfem import asm
+    >>> from skfem.models.poisson import mass
+    >>> from shellmodes.surface import curved_surface
+    >>> from shellmodes.shapes.reference import icosphere
+    >>> s = curved_surface(*icosphere(2), 2, project=lambda x: x / np.linalg.norm(x, axis=1)[:, None])
+    >>> c = angular_content(s.nodes, s.nodes[:, 2], asm(mass, s.basis), l_max=3)
+    >>> int(c.dominant_l[0]), bool(c.dominant_weight[0] > 0.999)
+    (1, True)
+
+    References
+    ----------
+    P.-O. Loewdin, J. Chem. Phys. 18, 365 (1950) (symmetric orthonormalisation).
+    """
+    nodes = np.asarray(nodes, dtype=float)
+    modes = _columns(modes, len(nodes))
+    projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
+    d2 = projector.coefficients(modes) ** 2 / _m_norms(M, modes)  # (n_functions, n_modes)
+    weights = projector.by_degree(d2).T
+    dominant = np.argmax(weights, axis=1)
+    degrees = np.arange(l_max + 1)
+    resolved = weights.sum(axis=1)
+    mean_L2 = (weights @ (degrees * (degrees + 1.0))) / np.where(resolved > 0, resolved, 1.0)
+    abs_m = None
+    if axisymmetric:
+        by_m = np.zeros((l_max + 1, modes.shape[1]))
+        np.add.at(by_m, np.abs(projector.m), d2)
+        abs_m = np.argmax(by_m, axis=0)
+    return AngularContent(weights=weights, dominant_l=dominant,
+                          dominant_weight=weights[np.arange(len(dominant)), dominant],
+                          mean_L2=mean_L2, abs_m=abs_m, l_max=int(l_max))
+
+
+def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0),
+                      radial_degree: int = 0) -> list[dict]:
+    """Weight of each degree l in the subspaces spanned by groups of modes.
+
+    The weight of l in a group is trace(Q^T M P_l Q) / size, with Q an
+    M-orthonormal basis of the group's span and P_l the projector onto the
+    (Loewdin-orthonormalised) degree-l analysing functions: independent of
+    which vectors inside a degenerate multiplet the eigen-solver returned.
+
+    Parameters
+    ----------
+    nodes, modes, M, l_max, center, radial_degree
+        As in :func:`angular_content`.
+    groups
+        Sequence of sequences of mode (column) indices, e.g. the multiplets.
+
+    Returns
+    -------
+    list of dict
+        One per group: ``modes`` (the indices), ``size``, ``weights`` ((l_max+1,)
+        array), ``l`` (dominant degree), ``purity`` (its weight) and
+        ``unresolved`` (1 - sum of weights).
+
+    Raises
+    ------
+    ValueError
+        For an empty group, an index out of range, or linearly dependent modes.
+    """
+    nodes = np.asarray(nodes, dtype=float)
+    modes = _columns(modes, len(nodes))
+    groups = [list(map(int, g)) for g in groups]
+    for g in groups:
+        if not g:
+            raise ValueError("empty group of modes")
+        if min(g) < -modes.shape[1] or max(g) >= modes.shape[1]:
+            raise ValueError(f"group {g} refers to modes outside 0..{modes.shape[1] - 1}")
+    projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
+    rows = []
+    for g in groups:
+        V = modes[:, g]
+        gram = V.T @ np.asarray(M @ V)
+        try:
+            L = np.linalg.cholesky(0.5 * (gram + gram.T))
+        except np.linalg.LinAlgError:
+            raise ValueError(f"modes {g} are linearly dependent in the M inner product") from None
+        Q = scipy.linalg.solve_triangular(L, V.T, lower=True).T
+        weights = projector.by_degree(projector.coefficients(Q) ** 2).sum(axis=1) / len(g)
+        dominant = int(np.argmax(weights))
+        rows.append({"modes": g, "size": len(g), "weights": weights, "l": dominant,
+                     "purity": float(weights[dominant]), "unresolved": float(1.0 - weights.sum())})
+    return rows

@@ -1,0 +1,356 @@
+"""Case files: TOML text validated into immutable objects.
+
+The schema is a set of pydantic models (one per TOML table) with unknown
+keys forbidden, NaN/inf refused and every default in one place.  Errors come
+out as :class:`~shellmodes.errors.CaseError` naming the file, the dotted key,
+the offending value and what is allowed (nearest valid key for typos).
+``case_schema()`` returns the JSON Schema editors use for completion.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import sys
+from pathlib import Path
+from typing import Annotated, Any, Literal, Union
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+
+from .errors import CaseError
+from .expression import ExpressionError, compile_expression
+from .units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+__all__ = ["Case", "load_case", "case_from_dict", "case_schema", "CASE_TABLES"]
+
+Positive = Annotated[float, Field(gt=0)]
+LengthUnit = Literal[tuple(LENGTH_UNITS)]
+EnergyUnit = Literal[tuple(ENERGY_UNITS)]
+MassUnit = Literal[tuple(MASS_UNITS)]
+InertiaUnit = Literal[tuple(INERTIA_UNITS)]
+Rim = Literal["dirichlet", "neumann"]
+
+
+class _Table(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+
+
+class DeformationTerm(_Table):
+    """One term a_lm Y_lm of a star-shaped radius r = R (1 + sum a_lm Y_lm)."""
+
+    l: int = Field(ge=0, le=40, description="degree of the real spherical harmonic")
+    m: int = Field(description="order, -l <= m <= l (m > 0 cosine-like, m < 0 sine-like)")
+    amplitude: float = Field(description="dimensionless amplitude a_lm")
+
+    @model_validator(mode="after")
+    def _order(self):
+        if abs(self.m) > self.l:
+            raise ValueError(f"m = {self.m} is outside -l..l for l = {self.l}")
+        return self
+
+
+class SphereSurface(_Table):
+    shape: Literal["sphere"]
+    radius: Positive = Field(1.0, description="radius, in units.length")
+
+
+class EllipsoidSurface(_Table):
+    shape: Literal["ellipsoid"]
+    axes: tuple[Positive, Positive, Positive] = Field(description="semi-axes along x, y, z")
+
+
+class SpheroidSurface(_Table):
+    shape: Literal["spheroid"]
+    equatorial_radius: Positive = Field(description="semi-axis in the x-y plane")
+    polar_radius: Positive = Field(description="semi-axis along z")
+
+
+class StarSurface(_Table):
+    shape: Literal["star"]
+    radius: Positive = Field(1.0, description="mean radius R")
+    deformation: tuple[DeformationTerm, ...] = Field((), description="terms of r = R(1 + sum a_lm Y_lm)")
+
+
+class TorusSurface(_Table):
+    shape: Literal["torus"]
+    major_radius: Positive = Field(description="distance from the z axis to the tube centre")
+    minor_radius: Positive = Field(description="tube radius, smaller than major_radius")
+
+
+class CapSurface(_Table):
+    shape: Literal["cap"]
+    radius: Positive = Field(1.0, description="sphere radius")
+    half_angle: float = Field(90.0, gt=0, lt=180, description="polar half-angle of the cap in degrees")
+    rim: Rim = Field("dirichlet", description="hard rim (dirichlet) or free rim (neumann)")
+
+
+class SnapTarget(_Table):
+    """An analytic shape to snap an imported mesh's geometry nodes onto."""
+
+    shape: Literal["sphere", "ellipsoid", "spheroid", "star", "torus"]
+    radius: Positive | None = None
+    axes: tuple[Positive, Positive, Positive] | None = None
+    equatorial_radius: Positive | None = None
+    polar_radius: Positive | None = None
+    deformation: tuple[DeformationTerm, ...] = ()
+    major_radius: Positive | None = None
+    minor_radius: Positive | None = None
+
+
+class MeshSurface(_Table):
+    shape: Literal["mesh"]
+    file: str = Field(description="mesh file (.vtu .vtk .msh .stl .obj .ply), relative to the case file")
+    snap: SnapTarget | None = Field(None, description="snap geometry nodes onto this exact shape")
+    rim: Rim = Field("dirichlet", description="condition on the rim of an open mesh")
+
+
+Surface = Annotated[
+    Union[SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
+          MeshSurface],
+    Field(discriminator="shape"),
+]
+
+
+class Resolution(_Table):
+    """Element degree and mesh refinement (give subdivisions or edge_length, not both)."""
+
+    degree: int = Field(2, ge=1, le=4, description="polynomial degree of elements and geometry (1..4)")
+    subdivisions: int | None = Field(None, ge=0, le=9, description="halvings of the reference mesh")
+    edge_length: Positive | None = Field(None, description="largest reference edge, in units.length")
+    quadrature_order: int | None = Field(None, ge=1, le=20, description="exactness of the cell rule")
+
+    @model_validator(mode="after")
+    def _one_size(self):
+        if self.subdivisions is not None and self.edge_length is not None:
+            raise ValueError("give either subdivisions or edge_length, not both")
+        return self
+
+
+class Particle(_Table):
+    """The particle: a mass (times an effective-mass factor) or a rigid rotor's moment of inertia."""
+
+    mass: Positive | None = Field(None, description="particle mass in mass_unit")
+    mass_unit: MassUnit = Field("electron", description="unit of mass")
+    effective_mass: Positive = Field(1.0, description="factor multiplying mass (band effective mass)")
+    moment_of_inertia: Positive | None = Field(None, description="rigid rotor: I = m R^2, in inertia_unit")
+    inertia_unit: InertiaUnit = Field("amu angstrom2", description="unit of moment_of_inertia")
+
+    @model_validator(mode="after")
+    def _one_kind(self):
+        if self.mass is not None and self.moment_of_inertia is not None:
+            raise ValueError("give either mass or moment_of_inertia, not both")
+        return self
+
+
+class Units(_Table):
+    length: LengthUnit = Field("1", description="unit of every length in the case ('1': dimensionless)")
+    energy: EnergyUnit = Field("1", description="unit of reported energies ('1': the eigenvalue lambda)")
+
+
+class Potential(_Table):
+    """A scalar potential V(x, y, z) added to the kinetic energy."""
+
+    expression: str = Field(description="arithmetic in x, y, z, r, theta, phi (lengths in units.length)")
+    unit: EnergyUnit = Field("1", description="energy unit of the expression's value")
+
+    @field_validator("expression")
+    @classmethod
+    def _parse(cls, text):
+        try:
+            compile_expression(text)
+        except ExpressionError as exc:
+            raise ValueError(f"{text!r}: {exc}") from None
+        return text
+
+
+class Modes(_Table):
+    """Which modes to find and how to group them."""
+
+    count: int | None = Field(None, ge=1, le=100000, description="number of lowest modes")
+    below: float | None = Field(None, description="all modes with energy below this, in units.energy")
+    multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
+    backend: Literal["auto", "splu", "cholmod"] = Field("auto", description="factorization for shift-invert")
+    residual_limit: Positive = Field(1e-6, description="largest acceptable relative residual")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _one_target(cls, data):
+        if isinstance(data, dict):
+            if data.get("count") is not None and data.get("below") is not None:
+                raise ValueError("give either count or below, not both")
+            if data.get("count") is None and data.get("below") is None:
+                data = {**data, "count": 20}
+        return data
+
+
+class Output(_Table):
+    vtu: bool = Field(True, description="write modes.vtu with every mode as a point field")
+
+
+class Case(_Table):
+    """A whole case file."""
+
+    title: str = Field("", description="free text shown in reports")
+    surface: Surface
+    resolution: Resolution = Resolution()
+    particle: Particle = Particle()
+    units: Units = Units()
+    potential: Potential | None = None
+    modes: Modes = Modes()
+    output: Output = Output()
+    source: str = Field("<case>", exclude=True, description="where the case came from (not a TOML key)")
+
+    @model_validator(mode="after")
+    def _consistent(self):
+        rotor = self.particle.moment_of_inertia is not None
+        if self.units.length == "1" and self.units.energy != "1" and not rotor:
+            raise ValueError("units.energy needs a physical units.length (m, um, nm, angstrom, bohr) "
+                             "or a rotor's particle.moment_of_inertia")
+        if self.potential is not None and self.potential.unit != "1" and self.units.length == "1":
+            raise ValueError("potential.unit needs a physical units.length")
+        if self.particle.moment_of_inertia is not None and self.surface.shape not in ("sphere",):
+            raise ValueError("particle.moment_of_inertia describes a rigid rotor: use surface.shape = 'sphere'")
+        return self
+
+    @property
+    def base_dir(self) -> Path:
+        return Path(self.source).parent if self.source != "<case>" else Path.cwd()
+
+
+CASE_TABLES = {"surface": Surface, "resolution": Resolution, "particle": Particle, "units": Units,
+               "potential": Potential, "modes": Modes, "output": Output}
+
+
+def _allowed_keys(loc: tuple) -> list[str]:
+    """Valid keys of the table at ``loc`` (a pydantic location without the last element)."""
+    model: Any = Case
+    for part in loc:
+        if isinstance(part, int):
+            continue
+        fields = getattr(model, "model_fields", None)
+        if fields is None:
+            return []
+        if part in fields:
+            ann = fields[part].annotation
+            model = _model_of(ann)
+        else:  # a discriminator tag, e.g. 'sphere'
+            model = _variant(part)
+        if model is None:
+            return []
+    return list(getattr(model, "model_fields", {}))
+
+
+def _model_of(annotation):
+    args = getattr(annotation, "__args__", ())
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return annotation
+    for a in args:
+        found = _model_of(a)
+        if found is not None:
+            return found
+    metadata = getattr(annotation, "__metadata__", None)
+    if metadata is not None:
+        return _model_of(annotation.__origin__)
+    return None
+
+
+def _variant(tag):
+    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
+                MeshSurface):
+        if cls.model_fields["shape"].annotation.__args__[0] == tag:
+            return cls
+    return None
+
+
+_TAGS = {"sphere", "ellipsoid", "spheroid", "star", "torus", "cap", "mesh"}
+
+
+def _format_error(error: dict) -> tuple[str, str]:
+    loc = tuple(error["loc"])
+    # drop discriminator tags and pydantic's function-validator labels from the key path
+    key_parts = [str(p) if not isinstance(p, int) else f"[{p}]" for p in loc
+                 if not (isinstance(p, str) and (p in _TAGS and len(loc) > 1 and p != loc[0]))]
+    key = ".".join(key_parts).replace(".[", "[")
+    value = error.get("input")
+    kind = error["type"]
+    if kind == "extra_forbidden":
+        allowed = _allowed_keys(tuple(p for p in loc[:-1]))
+        allowed = [a for a in allowed if a != "source"]
+        near = difflib.get_close_matches(str(loc[-1]), allowed, n=1)
+        hint = f"did you mean '{near[0]}'? " if near else ""
+        return key, f"unknown key; {hint}allowed: {', '.join(allowed)}"
+    if kind == "missing":
+        return key, "required key is missing"
+    if kind in ("union_tag_invalid", "union_tag_not_found"):
+        return key + ".shape" if not key.endswith("shape") else key, (
+            f"unknown shape {error.get('ctx', {}).get('tag', value)!r}; allowed: {', '.join(sorted(_TAGS))}")
+    msg = error["msg"].replace("Value error, ", "")
+    if isinstance(value, float) and math.isnan(value):
+        value_text = "nan"
+    else:
+        value_text = repr(value)
+    if kind == "value_error" and not loc:
+        return "", msg
+    return key, f"value {value_text}: {msg}"
+
+
+def case_from_dict(data: dict, source: str = "<case>") -> Case:
+    """Validate case data (the parsed TOML tables) into a :class:`Case`.
+
+    Raises
+    ------
+    CaseError
+        For the first problem found, naming the key and the value.
+
+    Examples
+    --------
+    >>> case = case_from_dict({"surface": {"shape": "sphere"}, "modes": {"count": 4}})
+    >>> case.resolution.degree
+    2
+    """
+    if not isinstance(data, dict):
+        raise CaseError("a case must be a table of tables", source)
+    if "source" in data:
+        raise CaseError("unknown key; 'source' is reserved", source, "source")
+    try:
+        return Case.model_validate({**data, "source": source})
+    except ValidationError as exc:
+        key, message = _format_error(exc.errors()[0])
+        raise CaseError(message, source, key or None) from None
+
+
+def load_case(path) -> Case:
+    """Read and validate a TOML case file.
+
+    Raises
+    ------
+    CaseError
+        Missing or unreadable file, malformed TOML, or invalid contents.
+    """
+    path = Path(path)
+    source = str(path)
+    if not path.is_file():
+        raise CaseError("no such case file", source)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise CaseError(f"cannot read the case file ({exc.__class__.__name__})", source) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise CaseError(f"malformed TOML: {exc}", source) from None
+    return case_from_dict(data, source)
+
+
+def case_schema() -> dict:
+    """JSON Schema of the case file (for editors: completion and validation)."""
+    schema = Case.model_json_schema(mode="validation")
+    schema.get("properties", {}).pop("source", None)
+    schema["title"] = "shellmodes case file"
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    return schema

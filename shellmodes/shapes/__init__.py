@@ -1,0 +1,24 @@
+"""Registry of surface shapes.
+
+A shape turns a refinement setting into a flat reference triangulation plus
+an exact map onto the true surface (see :mod:`shellmodes.shapes.base`).
+Each shape module registers itself with :func:`register`; ``SHAPES`` maps a
+case-file ``shape`` name to its class, so an unknown name fails with the
+list of valid ones.
+"""
+
+from __future__ import annotations
+
+from .base import SHAPES, Shape, register
+from . import analytic, cap, imported, torus  # noqa: F401  (modules register their shapes)
+
+__all__ = ["SHAPES", "Shape", "register", "make_shape"]
+
+
+def make_shape(name: str, **parameters) -> Shape:
+    """Instantiate the registered shape ``name`` with its parameters."""
+    try:
+        cls = SHAPES[name]
+    except KeyError:
+        raise ValueError(f"unknown shape {name!r}; allowed: {', '.join(sorted(SHAPES))}") from None
+    return cls(**parameters)
