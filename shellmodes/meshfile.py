@@ -25,9 +25,10 @@ import contextlib
 import io
 import logging
 import os
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, NamedTuple
+from typing import NamedTuple
 
 import meshio
 import numpy as np
@@ -477,8 +478,9 @@ def _check_edge_nodes(nodes: np.ndarray, edges: _Edges, scale: float, source: st
     bad = gap > DUPLICATE_TOLERANCE * scale
     if bad.any():
         h0, h1 = edges.pairs[np.flatnonzero(bad)[0]]
+        here, there = _position(edge_nodes[h0]), _position(edge_nodes[h1])
         raise MeshError(f"quadratic triangles {h0 // 3} and {h1 // 3} place the node of their shared edge "
-                        f"at different positions {_position(edge_nodes[h0])} and {_position(edge_nodes[h1])}; "
+                        f"at different positions {here} and {there}; "
                         f"{int(bad.sum())} such edges; curved triangles must meet along shared edges", source)
 
 
