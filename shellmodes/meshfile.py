@@ -7,7 +7,7 @@ meshio's cells into one (N, 3) point array and one consistently oriented
 ``triangle6`` cells), and the checks that make such a mesh fit for a finite
 element eigen-problem: finite coordinates, valid indices, no degenerate
 triangles, no duplicated vertices, manifold and consistently oriented edges,
-one connected piece.
+one fan of triangles around every vertex, one connected piece.
 
 Numbering in messages: triangles are counted from 0 over the triangle cells
 of the file in file order (other cells are skipped); vertices are the file's
@@ -219,7 +219,7 @@ def read_surface_mesh(path: str | os.PathLike) -> SurfaceMeshData:
     quadratic_nodes = points[cells] if cells.shape[1] == 6 else None
     edges = _validate(points, triangles, source)
     if quadratic_nodes is not None:
-        _check_edge_nodes(quadratic_nodes, edges, _scale(points[np.unique(triangles)]), source)
+        _check_edge_nodes(quadratic_nodes, edges, _scale(points[_used_mask(triangles, len(points))]), source)
 
     used, triangles = np.unique(triangles, return_inverse=True)
     return SurfaceMeshData(points=points[used], triangles=triangles.reshape(-1, 3),
@@ -255,8 +255,8 @@ def validate_surface(points, triangles, source: str = "<mesh>") -> bool:
         times the bounding-box diagonal; a triangle of area at most
         :data:`DEGENERATE_TOLERANCE` times the mean edge length squared; an
         edge shared by more than two triangles; two triangles running along a
-        shared edge in the same direction; a pinch vertex or several
-        disconnected pieces.
+        shared edge in the same direction; a vertex where triangles meet
+        without sharing an edge (pinch point); several disconnected pieces.
 
     Examples
     --------
@@ -289,7 +289,8 @@ def _validate(points, triangles, source: str) -> _Edges:
     _check_duplicates(points, used, scale, source)
     _check_areas(points, triangles, source)
     edges = _check_edges(triangles, len(points), source)
-    _check_connected(points, triangles, edges.pairs, source)
+    _check_vertex_fans(points, triangles, edges.pairs, source)
+    _check_connected(triangles, edges.pairs, source)
     return edges
 
 
@@ -307,14 +308,24 @@ def _read_with_meshio(surface_format: SurfaceFormat, source: str) -> meshio.Mesh
     except MemoryError:
         raise
     except Exception as exc:  # meshio's parsers fail with anything from ReadError to IndexError
-        detail = " ".join(str(exc).split())
-        if not isinstance(exc, meshio.ReadError):
-            detail = f"{type(exc).__name__}: {detail}" if detail else type(exc).__name__
-        raise MeshError(f"cannot read as {surface_format.description} ({detail})", source) from exc
+        raise MeshError(f"cannot read as {surface_format.description} ({_describe(exc)})", source) from exc
     finally:
         for line in captured.getvalue().splitlines():
             if line.strip():
                 log.warning("meshio reading %s: %s", source, line.strip())
+
+
+def _describe(exc: BaseException) -> str:
+    """One line on why a parser failed."""
+    # meshio often raises a bare ReadError() while handling the informative
+    # error (an XML ParseError, say), so look down the chain for a message.
+    while exc is not None:
+        text = " ".join(str(exc).split())
+        if text:
+            text = text if isinstance(exc, meshio.ReadError) else f"{type(exc).__name__}: {text}"
+            return text if len(text) <= 200 else text[:197] + "..."
+        exc = exc.__cause__ or exc.__context__
+    return "not a valid file of this kind"
 
 
 def _surface_cells(mesh: meshio.Mesh, source: str) -> tuple[np.ndarray, np.ndarray]:
@@ -403,10 +414,11 @@ def _check_duplicates(points: np.ndarray, used: np.ndarray, scale: float, source
 
 
 def _check_areas(points: np.ndarray, triangles: np.ndarray, source: str) -> None:
-    corners = points[triangles]
-    sides = corners[:, [1, 2, 0]] - corners
-    area = 0.5 * np.linalg.norm(np.cross(sides[:, 0], -sides[:, 2]), axis=1)
-    threshold = DEGENERATE_TOLERANCE * np.mean(np.linalg.norm(sides, axis=2)) ** 2
+    a, b, c = (points[triangles[:, k]] for k in range(3))
+    ab, bc, ca = b - a, c - b, a - c
+    area = 0.5 * np.sqrt(np.square(np.cross(ab, -ca)).sum(axis=1))
+    mean_edge = np.mean([np.sqrt(np.square(side).sum(axis=1)).mean() for side in (ab, bc, ca)])
+    threshold = DEGENERATE_TOLERANCE * mean_edge**2
     bad = area <= threshold
     if bad.any():
         tri = int(np.flatnonzero(bad)[0])
@@ -446,23 +458,46 @@ def _check_edges(triangles: np.ndarray, n_points: int, source: str) -> _Edges:
     return _Edges(pairs=pairs, closed=bool(np.all(counts == 2)))
 
 
-def _check_connected(points: np.ndarray, triangles: np.ndarray, pairs: np.ndarray, source: str) -> None:
-    # Pieces are triangles connected through shared edges: two pieces that
-    # touch only at a vertex exchange nothing in the weak form at the
-    # continuum level, so a single vertex must not join them.
+def _check_vertex_fans(points: np.ndarray, triangles: np.ndarray, pairs: np.ndarray, source: str) -> None:
+    """Each vertex must have one fan of triangles, joined through edges that meet at the vertex.
+
+    Two fans at one vertex (two cones touching at their tips, a bow tie, two
+    sheets pinched together) make it a non-manifold point: the surfaces meet
+    there without sharing an edge, which no valid surface does.
+    """
+    # Corner 3 * t + k is vertex k of triangle t, numbered like the half-edge
+    # leaving it.  A shared edge a -> b (half-edge h0) / b -> a (half-edge h1)
+    # joins the two corners at a (h0 and the corner after h1) and the two
+    # corners at b (the corner after h0, and h1).
+    def after(h):
+        return h - h % 3 + (h % 3 + 1) % 3
+
+    h0, h1 = pairs[:, 0], pairs[:, 1]
+    n_corners = triangles.size
+    graph = coo_matrix((np.ones(2 * len(pairs)), (np.r_[h0, after(h0)], np.r_[after(h1), h1])),
+                       shape=(n_corners, n_corners))
+    n_fans, fan = connected_components(graph, directed=False)
+    vertex_of_corner = triangles.reshape(-1)
+    if n_fans == np.count_nonzero(np.bincount(vertex_of_corner)):
+        return
+    vertex_fan = np.unique(vertex_of_corner.astype(np.int64) * n_corners + fan)
+    vertex = vertex_fan // n_corners
+    pinched = np.unique(vertex[1:][vertex[1:] == vertex[:-1]])
+    v = int(pinched[0])
+    n_here = int(np.count_nonzero(vertex == v))
+    raise MeshError(f"vertex {v} {_position(points[v])} joins {n_here} fans of triangles that share no edge "
+                    f"there (non-manifold vertex, a pinch point); {len(pinched)} such vertices; surfaces "
+                    f"must meet along edges, not at single points", source)
+
+
+def _check_connected(triangles: np.ndarray, pairs: np.ndarray, source: str) -> None:
+    # Pieces are triangles connected through shared edges (vertex contacts
+    # are rejected before this by _check_vertex_fans).
     m = len(triangles)
     graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0] // 3, pairs[:, 1] // 3)), shape=(m, m))
     n_pieces, labels = connected_components(graph, directed=False)
     if n_pieces == 1:
         return
-    vertex_piece = np.unique(triangles.reshape(-1) * n_pieces + np.repeat(labels, 3))
-    vertex = vertex_piece // n_pieces
-    pinched = vertex[1:][vertex[1:] == vertex[:-1]]
-    if len(pinched):
-        v = int(pinched[0])
-        raise MeshError(f"surface pieces meet at vertex {v} {_position(points[v])} without sharing an "
-                        f"edge (pinch point); {len(np.unique(pinched))} such vertices; pieces must be "
-                        f"joined along edges or separated", source)
     sizes = np.sort(np.bincount(labels))[::-1]
     listed = ", ".join(str(s) for s in sizes[:5]) + (", ..." if n_pieces > 5 else "")
     raise MeshError(f"mesh has {n_pieces} disconnected pieces (triangles per piece: {listed}); a surface "

@@ -138,12 +138,14 @@ def test_quadratic_cells_need_not_share_edge_nodes(tmp_path):
     np.testing.assert_array_equal(mesh.quadratic_nodes, p[cells])
 
 
-def test_other_cells_ignored_and_unused_vertices_dropped(tmp_path):
+# gmsh 4.1 needs entity tags to write several cell kinds; gmsh 2.2 does not.
+@pytest.mark.parametrize("suffix, file_format", [(".vtu", "vtu"), (".msh", "gmsh22")])
+def test_other_cells_ignored_and_unused_vertices_dropped(tmp_path, suffix, file_format):
     p, t = meshdata.octahedron()
     stray = np.array([[5.0, 5.0, 5.0], [6.0, 5.0, 5.0]])
     points = np.vstack([stray, p])  # unused vertices first, so triangles must be renumbered
     cells = [("vertex", np.array([[0]])), ("line", np.array([[0, 1], [2, 3]])), ("triangle", t + 2)]
-    mesh = read_surface_mesh(write(tmp_path, "extra.vtu", points, cells))
+    mesh = read_surface_mesh(write(tmp_path, f"extra{suffix}", points, cells, file_format))
     assert mesh.points.shape == p.shape and mesh.triangles.shape == t.shape
     np.testing.assert_array_equal(mesh.points[mesh.triangles], p[t])
     assert mesh.closed
@@ -219,7 +221,7 @@ def test_empty_file(tmp_path):
     assert "empty" in file_error(path)
 
 
-@pytest.mark.parametrize("suffix", [".vtu", ".vtk", ".msh", ".stl", ".ply"])
+@pytest.mark.parametrize("suffix", sorted(SURFACE_FORMATS))
 def test_garbage_is_wrapped_and_nothing_printed(tmp_path, capsys, suffix):
     path = tmp_path / f"garbage{suffix}"
     path.write_bytes(np.random.default_rng(7).bytes(2000))
@@ -228,6 +230,15 @@ def test_garbage_is_wrapped_and_nothing_printed(tmp_path, capsys, suffix):
     assert SURFACE_FORMATS[suffix].description in message
     captured = capsys.readouterr()
     assert captured.out == "" and captured.err == ""
+
+
+@pytest.mark.parametrize("suffix, reason", [(".vtu", "ParseError: syntax error"),
+                                            (".msh", "not a valid file of this kind"),
+                                            (".stl", "could not convert string to float")])
+def test_unreadable_text_says_why(tmp_path, suffix, reason):
+    path = tmp_path / f"note{suffix}"
+    path.write_text("hello world\n1 2 3\n")
+    assert reason in file_error(path)
 
 
 def test_meshio_warnings_go_to_logging(tmp_path, caplog, capsys):
@@ -282,6 +293,14 @@ def test_nan_coordinate_in_file(tmp_path):
     p[4, 1] = np.nan
     message = file_error(write(tmp_path, "nan.vtu", p, [("triangle", t)]))
     assert "vertex 4 has coordinates (0, nan, 1)" in message and "finite" in message
+
+
+def test_nan_in_quadratic_edge_node(tmp_path):
+    p, cells = meshdata.quadratic_sphere(1)
+    node = cells[2, 5]
+    p[node] = [np.nan, np.nan, np.nan]
+    message = file_error(write(tmp_path, "nan6.vtu", p, [("triangle6", cells)]))
+    assert f"vertex {node} has coordinates (nan, nan, nan)" in message
 
 
 def test_index_out_of_range_in_file(tmp_path):
@@ -420,7 +439,25 @@ def test_pinch_vertex():
     p, t = meshdata.pinched_tetrahedra()
     assert meshdata.enclosed_volume(p, t) > 0  # the fixture is outward oriented
     message = mesh_error(p, t)
-    assert "pieces meet at vertex 0 (0, 0, 0) without sharing an edge" in message
+    assert "vertex 0 (0, 0, 0) joins 2 fans of triangles that share no edge" in message
+
+
+def test_bow_tie_of_two_triangles():
+    p = np.array([[0.0, 0, 0], [1, 0, 0], [1, 1, 0], [-1, 0, 0], [-1, -1, 0]])
+    message = mesh_error(p, np.array([[0, 1, 2], [0, 3, 4]]))
+    assert "vertex 0 (0, 0, 0) joins 2 fans" in message and "1 such vertices" in message
+
+
+def test_pinch_inside_one_piece():
+    # Glue a sphere's vertex to its antipode: still one edge-connected piece
+    # with manifold, consistently oriented edges, but vertex `a` now has two
+    # fans (its own and the antipode's).
+    p, t = meshdata.sphere(1)
+    a = 0
+    b = int(np.argmin(p @ p[a]))
+    assert p[b] @ p[a] == pytest.approx(-1.0)  # icosphere vertices come in antipodal pairs
+    t[t == b] = a
+    assert f"vertex {a} " in mesh_error(p, t) and "joins 2 fans" in mesh_error(p, t)
 
 
 def test_errors_are_project_errors():
