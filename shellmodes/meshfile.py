@@ -211,7 +211,9 @@ def read_surface_mesh(path: str | os.PathLike) -> SurfaceMeshData:
     _check_indices(cells, len(points), source)
     _check_finite(points, _used_mask(cells, len(points)), source)
     if surface_format.separate_facets:
-        # +0.0 turns -0.0 into 0.0 so that signed zeros weld too.
+        # meshio's STL reader happens to weld already; doing it here keeps
+        # the guarantee for any facet format.  +0.0 turns -0.0 into 0.0, so
+        # signed zeros weld whether np.unique compares values or bytes.
         points, inverse = np.unique(points + 0.0, axis=0, return_inverse=True)
         cells = inverse.reshape(-1)[cells]
 
@@ -251,8 +253,8 @@ def validate_surface(points, triangles, source: str = "<mesh>") -> bool:
     MeshError
         On the first of these found, in this order: wrong array shapes or
         types; no triangles; an index outside the points; a non-finite
-        coordinate; two vertices closer than :data:`DUPLICATE_TOLERANCE`
-        times the bounding-box diagonal; a triangle of area at most
+        coordinate; two vertices at most :data:`DUPLICATE_TOLERANCE` times
+        the bounding-box diagonal apart; a triangle of area at most
         :data:`DEGENERATE_TOLERANCE` times the mean edge length squared; an
         edge shared by more than two triangles; two triangles running along a
         shared edge in the same direction; a vertex where triangles meet

@@ -21,7 +21,9 @@ from shellmodes.meshfile import (
     DEGENERATE_TOLERANCE,
     DUPLICATE_TOLERANCE,
     SURFACE_FORMATS,
+    SurfaceFormat,
     read_surface_mesh,
+    register_surface_format,
     validate_surface,
 )
 
@@ -168,6 +170,32 @@ def test_stl_facets_are_welded(tmp_path):
     # 42 shared vertices, not 3 per facet.
     assert len(mesh.points) == len(p)
     assert mesh.closed
+
+
+def test_facet_formats_weld_exactly_coincident_corners(tmp_path, monkeypatch):
+    # A stand-in facet format whose reader returns three fresh vertices per
+    # triangle, with signed zeros, as a raw STL holds them.
+    p, t = meshdata.octahedron()
+    corners = p[t].reshape(-1, 3)
+    half = corners[: len(corners) // 2]
+    half[half == 0.0] = -0.0  # the other half keeps +0.0: both must weld together
+    facets = meshio.Mesh(corners, [("triangle", np.arange(len(corners)).reshape(-1, 3))])
+    monkeypatch.setitem(SURFACE_FORMATS, ".facets", SurfaceFormat("test facets", lambda name: facets,
+                                                                  separate_facets=True))
+    path = tmp_path / "octahedron.facets"
+    path.write_text("read by the stand-in reader\n")
+    mesh = read_surface_mesh(path)
+    assert mesh.points.shape == p.shape and mesh.closed
+    np.testing.assert_array_equal(np.sort(mesh.points[mesh.triangles].reshape(-1, 3), axis=0),
+                                  np.sort(p[t].reshape(-1, 3), axis=0))
+    # The same data from a format that shares vertices is a defect.
+    monkeypatch.setitem(SURFACE_FORMATS, ".facets", SurfaceFormat("test facets", lambda name: facets))
+    assert "at the same position" in file_error(path)
+
+
+def test_register_surface_format_needs_a_dot():
+    with pytest.raises(ValueError, match="must start with '.'"):
+        register_surface_format("vtu", SURFACE_FORMATS[".vtu"])
 
 
 def test_planar_points_get_z_zero(tmp_path):
@@ -518,7 +546,6 @@ def test_sample_flat_pebble_volume_converges_at_second_order():
     # Halving h divides an O(h^2) error by ~4; accept 3.5 to 4.5 for the
     # pre-asymptotic levels.
     ratios = [errors[0] / errors[1], errors[1] / errors[2]]
-    assert len(ratios) == 2
     assert all(3.5 < ratio < 4.5 for ratio in ratios), ratios
 
 
