@@ -1,0 +1,769 @@
+"""Exact and published reference results that shellmodes validates against.
+
+This module owns every number the solver is checked against and nothing else:
+spectra of the sphere, of spherical caps and of hemispheres (surface problems,
+eigenvalues lambda of minus the Laplace-Beltrami operator), areas and
+curvature integrals of analytic surfaces, the radial spectra of balls and
+spherical shells with hard (Dirichlet) or free (Neumann) walls (wave numbers k
+with lambda = k^2 of minus the Laplacian), the bound states of a finite
+spherical well with a mass jump (BenDaniel-Duke matching), the thin-shell
+limit and the rigid-rotor rotational constant.
+
+Every root is found the same way: a uniform scan for sign changes of a
+continuous, bounded function on a grid much finer than the known root spacing,
+each bracket refined by :func:`scipy.optimize.brentq`.  No root depends on an
+initial guess.  Zero modes (constant functions of all-Neumann problems) are
+not roots of the scanned functions and are added explicitly, as the first
+value returned.
+
+Angles: theta is the polar angle and phi the azimuth; the signed order labels
+of cap modes follow the real-harmonic convention of :mod:`shellmodes.harmonics`
+(+m for cos(m phi), -m for sin(m phi)).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import constants
+from scipy.optimize import brentq
+from scipy.special import elliprd, elliprf, kve, roots_jacobi, spherical_jn, spherical_yn
+
+from shellmodes.errors import GeometryError
+
+__all__ = [
+    "sphere_eigenvalues",
+    "sphere_levels",
+    "cap_eigenvalues",
+    "hemisphere_eigenvalues",
+    "spheroid_area",
+    "ellipsoid_area",
+    "torus_area",
+    "cap_area",
+    "gaussian_curvature_integral",
+    "torus_gaussian_curvature_integral",
+    "ball_dirichlet",
+    "ball_neumann",
+    "shell_dirichlet",
+    "shell_neumann",
+    "shell_mixed",
+    "finite_spherical_well",
+    "thin_shell_lowest_band",
+    "rotational_constant_cm",
+]
+
+WALLS = ("dirichlet", "neumann")
+
+# Points per (lower bound of the) root spacing in every sign-change scan.
+_POINTS_PER_SPACING = 40
+_SCAN_CHUNK = 4096
+_SCAN_LIMIT = 4_000_000
+
+
+# ----------------------------------------------------------------------------- argument checks
+def _count(count) -> int:
+    if isinstance(count, bool) or not isinstance(count, (int, np.integer)) or count < 1:
+        raise ValueError(f"count must be a positive integer, got {count!r}")
+    return int(count)
+
+
+def _degree(l) -> int:
+    if isinstance(l, bool) or not isinstance(l, (int, np.integer)) or l < 0:
+        raise ValueError(f"degree l must be a non-negative integer, got {l!r}")
+    return int(l)
+
+
+def _positive(name: str, value) -> np.ndarray:
+    value = np.asarray(value, dtype=float)
+    if not np.all(np.isfinite(value)) or np.any(value <= 0):
+        raise ValueError(f"{name} must be positive and finite, got {value!r}")
+    return value
+
+
+def _wall(name: str, value: str) -> str:
+    if value not in WALLS:
+        raise ValueError(f"{name} must be one of {WALLS}, got {value!r}")
+    return value
+
+
+# ----------------------------------------------------------------------------- root finding
+def _scan_roots(f, start: float, step: float, count: int | None = None, stop: float | None = None):
+    """Roots of the vectorised function ``f`` on [start, stop] (or the first ``count`` above start).
+
+    The grid start + i * step is scanned in chunks; a grid value that is exactly
+    zero is a root, every strict sign change is refined by brentq.  ``step`` must
+    be well below the smallest spacing of consecutive roots.
+    """
+    roots: list[float] = []
+    i0 = 0
+    while True:
+        x = start + step * np.arange(i0, i0 + _SCAN_CHUNK + 1)
+        if stop is not None:
+            x = x[x <= stop]
+        if x.size < 2:
+            break
+        y = np.asarray(f(x), dtype=float)
+        if not np.all(np.isfinite(y)):
+            raise FloatingPointError(f"non-finite value in a root scan near {x[~np.isfinite(y)][0]:.6g}")
+        s = np.sign(y)
+        exact = np.flatnonzero(s[:-1] == 0)
+        brackets = np.flatnonzero(s[:-1] * s[1:] < 0)
+        found = [float(x[i]) for i in exact]
+        for i in brackets:
+            found.append(brentq(lambda t: float(f(np.array([t]))[0]), x[i], x[i + 1],
+                                xtol=1e-15, rtol=4 * np.finfo(float).eps, maxiter=200))
+        roots.extend(sorted(found))
+        if count is not None and len(roots) >= count:
+            return np.array(roots[:count])
+        if stop is not None and x[-1] >= stop - 0.5 * step:
+            break
+        i0 += _SCAN_CHUNK
+        if i0 > _SCAN_LIMIT:
+            raise RuntimeError("root scan exceeded its length limit; arguments out of the supported range")
+    if count is not None:
+        raise RuntimeError(f"found only {len(roots)} of {count} roots before the end of the scan")
+    # a root at the very end of the scan interval is counted if it is an exact grid zero
+    if stop is not None and x.size and x[-1] == stop and f(np.array([stop]))[0] == 0:
+        roots.append(float(stop))
+    return np.array(roots)
+
+
+# ----------------------------------------------------------------------------- sphere
+def sphere_eigenvalues(count: int, radius: float = 1.0) -> np.ndarray:
+    """Lowest ``count`` eigenvalues of minus the Laplace-Beltrami operator on a sphere.
+
+    Parameters
+    ----------
+    count : int
+        Number of eigenvalues, each repeated by its multiplicity 2l+1 (the last
+        multiplet may be cut).
+    radius : float
+        Sphere radius R.
+
+    Returns
+    -------
+    numpy.ndarray
+        Ascending values l(l+1)/R^2, shape (count,).
+
+    References
+    ----------
+    DLMF 14.30.10 (the spherical harmonics Y_l^m are eigenfunctions of the
+    Laplace-Beltrami operator with eigenvalue -l(l+1)).
+
+    Examples
+    --------
+    >>> sphere_eigenvalues(5).tolist()
+    [0.0, 2.0, 2.0, 2.0, 6.0]
+    """
+    count = _count(count)
+    radius = float(_positive("radius", radius))
+    l = np.repeat(np.arange(int(np.sqrt(count)) + 1), 2 * np.arange(int(np.sqrt(count)) + 1) + 1)
+    return (l[:count] * (l[:count] + 1.0)) / radius**2
+
+
+def sphere_levels(l_max: int) -> list[tuple[int, int, int]]:
+    """Levels (l, l(l+1), 2l+1) of the unit sphere for l = 0..l_max.
+
+    References
+    ----------
+    DLMF 14.30.10; multiplicity 2l+1 is the number of orders m = -l..l.
+
+    Examples
+    --------
+    >>> sphere_levels(2)
+    [(0, 0, 1), (1, 2, 3), (2, 6, 5)]
+    """
+    l_max = _degree(l_max)
+    return [(l, l * (l + 1), 2 * l + 1) for l in range(l_max + 1)]
+
+
+# ----------------------------------------------------------------------------- spherical cap
+def _legendre_degrees(theta0: float, m: int):
+    """Vectorised nu -> (c P_nu^{-m}(cos theta0), c P_{nu+1}^{-m}(cos theta0)), c(m, theta0) > 0.
+
+    The two lowest degrees nu0 = nu - floor(nu) and nu0 + 1 come from the
+    Mehler-Dirichlet integral (DLMF 14.12.1)
+        P_nu^{-m}(cos t) = sqrt(2/pi) sin(t)^(-m) / Gamma(m + 1/2)
+                           * int_0^t cos((nu + 1/2) p) (cos p - cos t)^(m - 1/2) dp
+    by Gauss-Jacobi quadrature with the endpoint factor (t - p)^(m - 1/2) as weight
+    (the rest of the integrand is smooth); higher degrees follow from the degree
+    recurrence (nu + m + 1) P_{nu+1}^{-m} = (2 nu + 1) x P_nu^{-m} - (nu - m) P_{nu-1}^{-m}
+    (DLMF 14.10.3), neutrally stable for -1 < x < 1.  Why not simpler routes:
+    scipy's hyp2f1 loses digits near sin^2(t/2) = 1 (c - a - b = -m is an
+    integer), and the integral alone at high degree cancels catastrophically for
+    large m (measured: relative error 2.5e-6 at m = 13, nu = 24 on the hemisphere).
+    """
+    # nodes: the low-degree integrand is smooth except for the near-singularity of
+    # (cos p - cos t) at p = 2 pi - t when t approaches pi
+    n = 48 + int(np.ceil(10 / np.sqrt(np.pi - theta0)))
+    x, w = roots_jacobi(n, m - 0.5, 0.0)
+    p = 0.5 * theta0 * (1.0 + x)
+    # (cos p - cos t)/(t - p) = sin((t + p)/2) * sin(u)/u with u = (t - p)/2, positive on [0, t]
+    g = np.sin(0.5 * (theta0 + p)) * np.sinc((theta0 - p) / (2 * np.pi))
+    weights = w * g ** (m - 0.5)
+    weights /= np.abs(weights).sum()
+    c = np.cos(theta0)
+
+    def values(nu):
+        nu = np.asarray(nu, dtype=float)
+        steps = np.floor(nu).astype(int)
+        nu0 = nu - steps
+        prev, cur = (np.cos(np.multiply.outer(d + 0.5, p)) @ weights for d in (nu0, nu0 + 1.0))
+        low, high = prev.copy(), cur.copy()
+        for j in range(1, int(steps.max(initial=0)) + 1):
+            d = nu0 + j  # degree of cur
+            prev, cur = cur, ((2 * d + 1) * c * cur - (d - m) * prev) / (d + m + 1)
+            done = steps == j
+            low, high = np.where(done, prev, low), np.where(done, cur, high)
+        return low, high
+
+    return values
+
+
+def _cap_function(theta0: float, m: int, rim: str):
+    """Function of nu whose positive roots are the cap eigen-degrees of order m."""
+    P = _legendre_degrees(theta0, m)
+    if rim == "dirichlet":
+        return lambda nu: P(nu)[0]
+    c = np.cos(theta0)
+
+    # d/dtheta P_nu^{-m}(cos t) is proportional to (nu+1) cos t P_nu^{-m} - (nu+m+1) P_{nu+1}^{-m}
+    # (DLMF 14.10.5 with mu = -m); for m = 0 it vanishes at nu = 0 (the constant
+    # mode), divided out so that the scan sees only the nonconstant modes.
+    def neumann(nu):
+        nu = np.asarray(nu, dtype=float)
+        low, high = P(nu)
+        h = (nu + 1) * c * low - (nu + m + 1) * high
+        return h / nu if m == 0 else h
+
+    return neumann
+
+
+def cap_eigenvalues(half_angle: float, count: int, rim: str = "dirichlet", return_labels: bool = False):
+    """Lowest eigenvalues of minus the Laplace-Beltrami operator on a spherical cap.
+
+    The cap is 0 <= theta <= theta0 of the unit sphere.  Separating
+    u = f(theta) e^{i m phi}, the regular solution is the Ferrers function
+    P_nu^{-m}(cos theta) and lambda = nu(nu+1); the rim condition selects nu:
+    P_nu^{-m}(cos theta0) = 0 (Dirichlet) or d/dtheta P_nu^{-m}(cos theta0) = 0
+    (Neumann).  Order m = 0 gives one mode, m > 0 two (cos and sin).
+
+    Parameters
+    ----------
+    half_angle : float
+        theta0, in (0, pi).
+    count : int
+        Number of eigenvalues, repeated by multiplicity (a cos/sin pair may be cut
+        at the end).
+    rim : {"dirichlet", "neumann"}
+        Condition on the rim theta = theta0.  For Neumann the first value is the
+        zero mode lambda = 0 (nu = 0, m = 0).
+    return_labels : bool
+        Also return the degree nu and the signed order m of each value.
+
+    Returns
+    -------
+    lam : numpy.ndarray
+        Ascending eigenvalues, shape (count,), for the unit sphere (divide by R^2
+        for radius R).
+    nu, m : numpy.ndarray
+        Only if ``return_labels``: the non-integer degree (float) and the signed
+        order (int; +m is the cos(m phi) mode, -m the sin(m phi) mode, listed in
+        that order).
+
+    Raises
+    ------
+    ValueError
+        For a half-angle outside (0, pi), a bad count or an unknown rim.
+
+    References
+    ----------
+    DLMF 14.12.1 (Mehler-Dirichlet integral) and 14.10.3 (degree recurrence)
+    used to evaluate P_nu^{-m}, DLMF 14.10.5 (derivative recurrence), DLMF 14.3.1 (hypergeometric form
+    P_nu^{-m}(cos t) = sin(t)^m / (2^m m!) 2F1(m-nu, m+nu+1; m+1; sin^2(t/2))).
+    For theta0 = pi/2 the eigenvalues are l(l+1) with l+m odd (Dirichlet) or even
+    (Neumann), see :func:`hemisphere_eigenvalues`.
+
+    Examples
+    --------
+    >>> lam = cap_eigenvalues(np.pi / 2, 4, "dirichlet")
+    >>> np.allclose(lam, [2, 6, 6, 12])
+    True
+    """
+    theta0 = float(half_angle)
+    if not 0.0 < theta0 < np.pi:
+        raise ValueError(f"half_angle must lie in (0, pi), got {half_angle!r}")
+    count = _count(count)
+    rim = _wall("rim", rim)
+    # Weyl's law N(lam) ~ area lam / (4 pi) = (1 - cos theta0) lam / 2 sets the first ceiling
+    ceiling = 2.5 * count / (1.0 - np.cos(theta0)) + 10.0
+    # consecutive degrees of one order are about pi / theta0 apart (Bessel-zero spacing)
+    step = np.pi / (_POINTS_PER_SPACING * theta0)
+    # every order-m eigenvalue is >= m^2 / max(sin^2 theta) over the cap (the m^2/sin^2 theta
+    # term of the Rayleigh quotient)
+    widest = np.sin(theta0) if theta0 < np.pi / 2 else 1.0
+    while True:
+        nu_max = 0.5 * (np.sqrt(1.0 + 4.0 * ceiling) - 1.0)
+        nus, ms = ([0.0], [0]) if rim == "neumann" else ([], [])
+        for m in range(int(np.sqrt(ceiling) * widest) + 1):
+            roots = _scan_roots(_cap_function(theta0, m, rim), 0.5 * step, step, stop=nu_max + step)
+            roots = roots[roots * (roots + 1) <= ceiling]
+            for nu in roots:
+                nus.extend([nu] if m == 0 else [nu, nu])
+                ms.extend([0] if m == 0 else [m, -m])
+        if len(nus) >= count:
+            break
+        ceiling *= 2.0
+    nu = np.array(nus)
+    m = np.array(ms, dtype=int)
+    order = np.lexsort((-m, np.abs(m), nu))[:count]
+    nu, m = nu[order], m[order]
+    lam = nu * (nu + 1.0)
+    return (lam, nu, m) if return_labels else lam
+
+
+def hemisphere_eigenvalues(count: int, rim: str = "dirichlet") -> np.ndarray:
+    """Lowest eigenvalues of the unit hemisphere 0 <= theta <= pi/2, in closed form.
+
+    The harmonic Y_lm is odd under theta -> pi - theta when l + m is odd and even
+    when l + m is even, so the Dirichlet hemisphere keeps l(l+1) with the l
+    orders of odd l + m (l >= 1) and the Neumann hemisphere the l + 1 orders of
+    even l + m (l >= 0, including the zero mode).
+
+    Parameters
+    ----------
+    count : int
+        Number of values, repeated by multiplicity.
+    rim : {"dirichlet", "neumann"}
+
+    Returns
+    -------
+    numpy.ndarray
+        Ascending values l(l+1), shape (count,).
+
+    References
+    ----------
+    DLMF section 14.7 (parity P_l^m(-x) = (-1)^(l+m) P_l^m(x)).
+
+    Examples
+    --------
+    >>> hemisphere_eigenvalues(4, "neumann").tolist()
+    [0.0, 2.0, 2.0, 6.0]
+    """
+    count = _count(count)
+    rim = _wall("rim", rim)
+    l = np.arange(int(np.sqrt(2 * count)) + 2)
+    multiplicity = l if rim == "dirichlet" else l + 1
+    levels = np.repeat(l, multiplicity)[:count]
+    return levels * (levels + 1.0)
+
+
+# ----------------------------------------------------------------------------- areas and curvature
+def spheroid_area(a, c):
+    """Area of the spheroid x^2/a^2 + y^2/a^2 + z^2/c^2 = 1 (broadcasts over arrays).
+
+    Oblate (c < a), with e^2 = 1 - c^2/a^2:  S = 2 pi a^2 + 2 pi c^2 artanh(e)/e.
+    Prolate (c > a), with e^2 = 1 - a^2/c^2: S = 2 pi a^2 + 2 pi a c arcsin(e)/e.
+    Both tend to 4 pi a^2 as e -> 0; e^2 is formed as (a - c)(a + c)/a^2 so that
+    nearly spherical shapes lose no digits.
+
+    Parameters
+    ----------
+    a : float or array_like
+        Equatorial semi-axis.
+    c : float or array_like
+        Polar semi-axis.
+
+    References
+    ----------
+    DLMF section 19.33 (surface area of ellipsoids; the spheroid is the case
+    a = b, where the elliptic integrals reduce to artanh and arcsin).
+
+    Examples
+    --------
+    >>> bool(np.isclose(spheroid_area(2.0, 2.0), 16 * np.pi))
+    True
+    """
+    a = _positive("a", a)
+    c = _positive("c", c)
+    oblate = a >= c
+    e = np.sqrt(np.abs((a - c) * (a + c)) / np.maximum(a, c) ** 2)
+    safe_e = np.where(e > 0, e, 1.0)
+    ratio = np.where(oblate, np.arctanh(np.minimum(e, 1 - 1e-16)), np.arcsin(e)) / safe_e
+    ratio = np.where(e > 1e-8, ratio, 1.0 + e**2 / np.where(oblate, 3.0, 6.0))
+    return 2 * np.pi * a**2 + 2 * np.pi * np.where(oblate, c**2, a * c) * ratio
+
+
+def ellipsoid_area(a, b, c):
+    """Area of the triaxial ellipsoid x^2/a^2 + y^2/b^2 + z^2/c^2 = 1 (broadcasts).
+
+    S = 4 pi a b c R_G(a^-2, b^-2, c^-2), with Carlson's symmetric integral
+    2 R_G(x, y, z) = z R_F(x, y, z) - (x - z)(y - z) R_D(x, y, z)/3 + sqrt(x y / z),
+    where z is taken as the middle value so that every term is non-negative.
+
+    References
+    ----------
+    DLMF section 19.33 (S = 3 V R_G(a^-2, b^-2, c^-2) with V the volume) and
+    DLMF 19.21.10 (R_G from R_F and R_D).
+
+    Examples
+    --------
+    >>> bool(np.isclose(ellipsoid_area(1.0, 1.0, 1.0), 4 * np.pi))
+    True
+    """
+    a, b, c = np.broadcast_arrays(_positive("a", a), _positive("b", b), _positive("c", c))
+    # R_G is symmetric; the middle value goes in the third slot so that (x - z)(y - z) <= 0
+    x, z, y = np.sort(np.stack([a**-2.0, b**-2.0, c**-2.0]), axis=0)
+    rg = 0.5 * (z * elliprf(x, y, z) - (x - z) * (y - z) * elliprd(x, y, z) / 3.0 + np.sqrt(x * y / z))
+    return 4 * np.pi * a * b * c * rg
+
+
+def torus_area(R, r):
+    """Area 4 pi^2 R r of the ring torus with centre-line radius R and tube radius r <= R.
+
+    References
+    ----------
+    Pappus's centroid theorem: the tube circle of length 2 pi r sweeps a circle
+    of length 2 pi R (e.g. do Carmo, Differential Geometry of Curves and
+    Surfaces, section 2-8).
+
+    Examples
+    --------
+    >>> bool(np.isclose(torus_area(2.0, 0.5), 4 * np.pi**2))
+    True
+    """
+    R = _positive("R", R)
+    r = _positive("r", r)
+    if np.any(r > R):
+        raise GeometryError(f"tube radius r must not exceed R (self-intersecting torus), got R={R}, r={r}")
+    return 4 * np.pi**2 * R * r
+
+
+def cap_area(R, theta0):
+    """Area 2 pi R^2 (1 - cos theta0) = 4 pi R^2 sin^2(theta0/2) of a spherical cap.
+
+    The sine form avoids cancellation for small caps.
+
+    References
+    ----------
+    Archimedes' hat-box theorem (a spherical zone has the area of the band it
+    projects to on the circumscribed cylinder, 2 pi R h with h = R (1 - cos theta0)).
+
+    Examples
+    --------
+    >>> bool(np.isclose(cap_area(1.0, np.pi), 4 * np.pi))
+    True
+    """
+    R = _positive("R", R)
+    theta0 = np.asarray(theta0, dtype=float)
+    if np.any(~np.isfinite(theta0)) or np.any(theta0 < 0) or np.any(theta0 > np.pi):
+        raise ValueError(f"theta0 must lie in [0, pi], got {theta0!r}")
+    return 4 * np.pi * R**2 * np.sin(0.5 * theta0) ** 2
+
+
+def gaussian_curvature_integral(genus: int = 0) -> float:
+    """Integral of the Gaussian curvature over a closed orientable surface of given genus.
+
+    Gauss-Bonnet: int K dA = 2 pi chi = 4 pi (1 - genus); 4 pi for every
+    sphere-like surface (genus 0), 0 for the torus.
+
+    References
+    ----------
+    Gauss-Bonnet theorem, do Carmo, Differential Geometry of Curves and Surfaces,
+    section 4-5.
+    """
+    genus = _degree(genus)
+    return 4 * np.pi * (1 - genus)
+
+
+def torus_gaussian_curvature_integral() -> float:
+    """Integral of the Gaussian curvature over any torus: 0 (Gauss-Bonnet, genus 1).
+
+    References
+    ----------
+    See :func:`gaussian_curvature_integral`.
+    """
+    return gaussian_curvature_integral(1)
+
+
+# ----------------------------------------------------------------------------- balls and shells
+def _radial(l: int, x, wall: str):
+    """(j_l, y_l) or their derivatives at x, normalised by their (positive) modulus."""
+    derivative = wall == "neumann"
+    j = spherical_jn(l, x, derivative=derivative)
+    y = spherical_yn(l, x, derivative=derivative)
+    modulus = np.hypot(j, y)
+    return j / modulus, y / modulus
+
+
+def ball_dirichlet(l: int, count: int, radius: float = 1.0) -> np.ndarray:
+    """Wave numbers k of a hard-walled ball: j_l(k a) = 0, lowest ``count`` for degree l.
+
+    Each root is a (2l+1)-fold eigenvalue lambda = k^2 of minus the Laplacian with
+    u = 0 on r = a.
+
+    Parameters
+    ----------
+    l : int
+        Angular degree.
+    count : int
+        Number of radial roots.
+    radius : float
+        Ball radius a.
+
+    Returns
+    -------
+    numpy.ndarray
+        Ascending k, shape (count,), in the inverse unit of ``radius``.
+
+    References
+    ----------
+    Abramowitz and Stegun, Table 10.6 and DLMF 10.21 (zeros of spherical Bessel
+    functions); DLMF 10.47.3 (j_l = sqrt(pi / 2x) J_{l+1/2}).
+
+    Examples
+    --------
+    >>> bool(np.allclose(ball_dirichlet(0, 2), [np.pi, 2 * np.pi]))
+    True
+    """
+    return _shell_roots(_degree(l), _count(count), 0.0, float(_positive("radius", radius)), None, "dirichlet")
+
+
+def ball_neumann(l: int, count: int, radius: float = 1.0) -> np.ndarray:
+    """Wave numbers k of a free-walled ball: j_l'(k a) = 0, lowest ``count`` for degree l.
+
+    For l = 0 the first value returned is k = 0, the constant (zero) mode; it
+    counts towards ``count``.  The other values for l = 0 are the zeros of j_1
+    (j_0' = -j_1).
+
+    References
+    ----------
+    Abramowitz and Stegun, Table 10.6 and DLMF 10.21 (zeros of j_l').
+
+    Examples
+    --------
+    >>> ball_neumann(0, 1).tolist()
+    [0.0]
+    """
+    return _shell_roots(_degree(l), _count(count), 0.0, float(_positive("radius", radius)), None, "neumann")
+
+
+def shell_dirichlet(l: int, count: int, a: float, b: float) -> np.ndarray:
+    """Wave numbers of a hard-walled shell a < r < b: j_l(ka) y_l(kb) - j_l(kb) y_l(ka) = 0.
+
+    For l = 0 the roots are exactly n pi / (b - a).  See :func:`shell_mixed`.
+
+    Examples
+    --------
+    >>> bool(np.allclose(shell_dirichlet(0, 2, 1.0, 2.0), [np.pi, 2 * np.pi]))
+    True
+    """
+    return shell_mixed(l, count, a, b, "dirichlet", "dirichlet")
+
+
+def shell_neumann(l: int, count: int, a: float, b: float) -> np.ndarray:
+    """Wave numbers of a free-walled shell: j_l'(ka) y_l'(kb) - j_l'(kb) y_l'(ka) = 0.
+
+    For l = 0 the first value is k = 0, the constant mode.  See :func:`shell_mixed`.
+    """
+    return shell_mixed(l, count, a, b, "neumann", "neumann")
+
+
+def shell_mixed(l: int, count: int, a: float, b: float, inner: str = "dirichlet", outer: str = "dirichlet"):
+    """Lowest ``count`` wave numbers k of degree l in the shell a < r < b.
+
+    The radial solution A j_l(kr) + B y_l(kr) meets u = 0 ("dirichlet") or
+    du/dr = 0 ("neumann") at each wall; k is a root of the 2 x 2 determinant
+    p_l(ka) q_l(kb) - p_l(kb) q_l(ka) built from (j_l, y_l) or their
+    derivatives.  Each root is a (2l+1)-fold eigenvalue lambda = k^2.
+
+    Parameters
+    ----------
+    l : int
+        Angular degree.
+    count : int
+        Number of values.  With both walls Neumann and l = 0 the first value is
+        k = 0, the constant mode, and counts towards ``count``.
+    a, b : float
+        Inner and outer radius, 0 < a < b.
+    inner, outer : {"dirichlet", "neumann"}
+        Condition on r = a and r = b.
+
+    Returns
+    -------
+    numpy.ndarray
+        Ascending k, shape (count,), in the inverse unit of the radii.
+
+    Raises
+    ------
+    shellmodes.errors.GeometryError
+        If not 0 < a < b.
+
+    References
+    ----------
+    DLMF 10.47 and 10.51 (spherical Bessel functions and their derivatives);
+    the cross-product eigenvalue equation as in Abramowitz and Stegun 9.5
+    (zeros of J_nu(x) Y_nu(lambda x) - J_nu(lambda x) Y_nu(x)) with nu = l + 1/2.
+    """
+    l, count = _degree(l), _count(count)
+    a, b = float(_positive("a", a)), float(_positive("b", b))
+    if not a < b:
+        raise GeometryError(f"need inner radius a < outer radius b, got a={a}, b={b}")
+    return _shell_roots(l, count, a, b, _wall("inner", inner), _wall("outer", outer))
+
+
+def _shell_roots(l: int, count: int, a: float, b: float, inner: str | None, outer: str) -> np.ndarray:
+    """Radial wave numbers of the ball (inner None, a = 0) or of the shell a < r < b."""
+    zero_mode = l == 0 and outer == "neumann" and inner in (None, "neumann")
+    wanted = count - 1 if zero_mode else count
+    if wanted == 0:
+        return np.zeros(1)
+    if inner is None:
+        derivative = outer == "neumann"
+
+        def f(k):
+            return spherical_jn(l, k * b, derivative=derivative)
+    else:
+
+        def f(k):
+            ja, ya = _radial(l, k * a, inner)
+            jb, yb = _radial(l, k * b, outer)
+            return ja * yb - jb * ya
+
+    # Rayleigh-quotient lower bound: k^2 > l(l+1)/b^2 + (a/b)^2 (c pi/d)^2 with c = 1 for two
+    # hard walls, 1/2 for one, 0 otherwise (1-D Poincare inequality on [a, b]); the scan starts
+    # just below it, which skips the long root-free stretch of thin shells.
+    d = b - a
+    hard = [inner, outer].count("dirichlet") if inner is not None else 0
+    c = {0: 0.0, 1: 0.5, 2: 1.0}[hard]
+    bound = np.sqrt(l * (l + 1) / b**2 + (a / b * c * np.pi / d) ** 2)
+    # consecutive roots are at least about pi / b apart (asymptotically pi / d)
+    step = np.pi / (_POINTS_PER_SPACING * b)
+    start = max(0.999 * bound, 0.5 * step)
+    k = _scan_roots(f, start, step, count=wanted)
+    return np.concatenate([[0.0], k]) if zero_mode else k
+
+
+# ----------------------------------------------------------------------------- finite well
+def finite_spherical_well(l: int, V0: float, radius: float, mass_in: float, mass_out: float,
+                          hbar2_over_2: float = 1.0) -> np.ndarray:
+    """Bound-state energies 0 < E < V0 of degree l in a finite spherical well with a mass jump.
+
+    The Hamiltonian is -(hbar^2/2) div (1/m) grad + V with m = mass_in, V = 0
+    for r < a and m = mass_out, V = V0 outside.  Inside psi = j_l(k r) with
+    E = (hbar^2/2) k^2 / mass_in, outside psi = k_l(kappa r) (modified spherical
+    Bessel function, decaying) with V0 - E = (hbar^2/2) kappa^2 / mass_out.
+    BenDaniel-Duke matching (psi and (1/m) dpsi/dr continuous at r = a) gives
+
+        (k / mass_in) j_l'(ka) k_l(kappa a) - (kappa / mass_out) k_l'(kappa a) j_l(ka) = 0,
+
+    solved here after division by k_l(kappa a) > 0, with the logarithmic
+    derivative k_l'/k_l = -(l+1)/x - K_{l-1/2}(x)/K_{l+1/2}(x) taken from
+    exponentially scaled Bessel functions so that deep wells do not underflow.
+
+    Parameters
+    ----------
+    l : int
+        Angular degree; each energy is (2l+1)-fold degenerate.
+    V0 : float
+        Barrier height (energy unit), > 0.
+    radius : float
+        Well radius a.
+    mass_in, mass_out : float
+        Masses inside and outside, in any common unit.
+    hbar2_over_2 : float
+        hbar^2/2 in energy x mass x length^2 of the units used.
+
+    Returns
+    -------
+    numpy.ndarray
+        Ascending energies, possibly empty (a shallow well may bind no state).
+
+    References
+    ----------
+    D. J. BenDaniel and C. B. Duke, Phys. Rev. 152, 683 (1966) (matching
+    condition); DLMF sections 10.47 and 10.51 (modified spherical Bessel k_l and
+    its derivative);
+    for equal masses and l = 0 the condition reduces to -cot(ka) = kappa/k
+    (Griffiths, Introduction to Quantum Mechanics, finite square well, odd
+    states, and problem on the finite spherical well).
+    """
+    l = _degree(l)
+    V0 = float(_positive("V0", V0))
+    a = float(_positive("radius", radius))
+    m_in, m_out = float(_positive("mass_in", mass_in)), float(_positive("mass_out", mass_out))
+    h = float(_positive("hbar2_over_2", hbar2_over_2))
+    k_max = np.sqrt(V0 * m_in / h)
+
+    def matching(k):
+        k = np.asarray(k, dtype=float)
+        kappa = np.sqrt(np.maximum(m_out * (V0 - h * k**2 / m_in), 0.0) / h)
+        x = np.maximum(kappa * a, 1e-300)
+        # kappa k_l'/k_l; at threshold (kappa = 0) its limit -(l+1)/a
+        outer = np.where(kappa > 0, -(l + 1) / a - kappa * kve(l - 0.5, x) / kve(l + 0.5, x), -(l + 1) / a)
+        return (k / m_in) * spherical_jn(l, k * a, derivative=True) - (outer / m_out) * spherical_jn(l, k * a)
+
+    # interior roots are about pi / a apart.  No bound state has k a << 1: there j_l'/j_l ~ l/(ka)
+    # would make the inner flux positive while the outer one (k_l decays) is negative, so
+    # the scan may start just above k = 0, where the function vanishes for l >= 1.
+    step = min(np.pi / (_POINTS_PER_SPACING * a), k_max / 2000)
+    k = _scan_roots(matching, 0.5 * step, step, stop=k_max)
+    k = k[k < k_max]  # a root exactly at threshold is not a bound state
+    return h * k**2 / m_in
+
+
+def thin_shell_lowest_band(l, R: float, d: float):
+    """Asymptotic lowest radial band pi^2/d^2 + l(l+1)/R^2 of a thin hard-walled shell.
+
+    For a shell R - d/2 < r < R + d/2 with Dirichlet walls and d/R -> 0, the
+    lowest eigenvalue of degree l tends to the 1-D ground state of width d plus
+    the rotor term on the mid-radius sphere.  For l = 0 it is exact; for l > 0
+    the error is O(l(l+1) d^2 / R^4) (first-order perturbation of 1/r^2 about
+    r = R gives l(l+1) d^2 (1/4 - 3/(2 pi^2)) / R^4).
+
+    Returns
+    -------
+    float or numpy.ndarray
+        lambda (1/length^2), broadcast over ``l``.
+
+    References
+    ----------
+    Separation u(r) = r R(r) of the radial equation (DLMF section 10.47) turns it
+    into -u'' + l(l+1) u / r^2 = k^2 u on [R - d/2, R + d/2]; with r = R the
+    particle in a box of width d.  Common practice in thin-layer quantisation
+    (e.g. R. C. T. da Costa, Phys. Rev. A 23, 1982 (1981), recalled from memory).
+    """
+    l = np.asarray(l)
+    if np.any(l < 0) or not np.all(np.equal(np.mod(l, 1), 0)):
+        raise ValueError(f"l must be non-negative integers, got {l!r}")
+    R = _positive("R", R)
+    d = _positive("d", d)
+    if np.any(d >= 2 * R):
+        raise GeometryError(f"need shell thickness d < 2R, got R={R}, d={d}")
+    return np.pi**2 / d**2 + l * (l + 1.0) / R**2
+
+
+# ----------------------------------------------------------------------------- rotor
+def rotational_constant_cm(I_kg_m2):
+    """Rotational constant B = h / (8 pi^2 c I) of a rigid rotor, in cm^-1.
+
+    The rotor levels are E_l = h c B l(l+1), i.e. hbar^2 l(l+1) / (2 I).
+
+    Parameters
+    ----------
+    I_kg_m2 : float or array_like
+        Moment of inertia in kg m^2.
+
+    References
+    ----------
+    Herzberg, Molecular Spectra and Molecular Structure I, Spectra of Diatomic
+    Molecules (1950), chapter III (rigid rotor); constants from scipy.constants
+    (CODATA).
+
+    Examples
+    --------
+    >>> bool(50 < rotational_constant_cm(4.6e-48) < 70)
+    True
+    """
+    I = _positive("I_kg_m2", I_kg_m2)
+    # h / (8 pi^2 c I) is in m^-1; 1 m^-1 = 0.01 cm^-1
+    return constants.h / (8 * np.pi**2 * constants.c * I) / 100.0
