@@ -175,6 +175,8 @@ class Modes(_Table):
     below: float | None = Field(None, description="all modes with energy below this, in units.energy")
     multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
     backend: Literal["auto", "splu", "cholmod"] = Field("auto", description="factorization for shift-invert")
+    method: Literal["auto", "lanczos", "block"] = Field(
+        "auto", description="eigen-iteration: ARPACK Lanczos, or a blocked shift-invert iteration for large problems")
     residual_limit: Positive = Field(1e-6, description="largest acceptable relative residual")
 
     @model_validator(mode="before")
@@ -211,8 +213,8 @@ class Case(_Table):
         if self.units.length == "1" and self.units.energy != "1" and not rotor:
             raise ValueError("units.energy needs a physical units.length (m, um, nm, angstrom, bohr) "
                              "or a rotor's particle.moment_of_inertia")
-        if self.potential is not None and self.potential.unit != "1" and self.units.length == "1":
-            raise ValueError("potential.unit needs a physical units.length")
+        if self.potential is not None and (self.potential.unit == "1") != (self.units.energy == "1"):
+            raise ValueError("potential.unit and units.energy must both be physical or both be '1'")
         if self.particle.moment_of_inertia is not None and self.surface.shape not in ("sphere",):
             raise ValueError("particle.moment_of_inertia describes a rigid rotor: use surface.shape = 'sphere'")
         return self

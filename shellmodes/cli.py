@@ -1,0 +1,117 @@
+"""Command line: ``shellmodes run | check | schema | keys``.
+
+Only this module prints or sets exit codes: 0 success, 2 bad input (one
+line on stderr, no traceback), 1 internal failure.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import sys
+import warnings
+from pathlib import Path
+
+from .errors import ShellmodesError
+
+__all__ = ["main"]
+
+
+def _default_out(case_path: Path) -> Path:
+    return case_path.with_suffix("") if case_path.suffix else case_path.parent / (case_path.name + "-out")
+
+
+def _cmd_run(args) -> int:
+    from .case import load_case
+    from .outputs import write_outputs
+    from .run import run_case
+
+    case_path = Path(args.case)
+    case = load_case(case_path)
+    out = Path(args.out) if args.out else _default_out(case_path)
+    spectrum = run_case(case)
+    files = None if case.output.vtu else ["spectrum.json", "spectrum.csv", "run.log"]
+    write_outputs(spectrum, out, files)
+    if not args.quiet:
+        info = spectrum.info
+        mesh = info["mesh"]
+        print(f"{case.title or case_path.name}: degree {mesh['degree']}, {mesh['dofs']} dofs, "
+              f"{len(spectrum.eigenvalues)} modes, {info['solver']['backend']}, "
+              f"{info['timings']['total']:.2f} s")
+        print(spectrum.summary())
+        print(f"wrote {out}/")
+    return 0
+
+
+def _cmd_check(args) -> int:
+    from .checks import format_table, run_checks
+
+    results = run_checks(args.only)
+    print(format_table(results))
+    return 0 if all(r.passed for r in results) else 1
+
+
+def _cmd_schema(args) -> int:
+    from .case import case_schema
+
+    print(json.dumps(case_schema(), indent=2))
+    return 0
+
+
+def _cmd_keys(args) -> int:
+    from .docs import case_keys_markdown
+
+    print(case_keys_markdown())
+    return 0
+
+
+def _parser() -> argparse.ArgumentParser:
+    from ._version import __version__
+
+    p = argparse.ArgumentParser(prog="shellmodes", description="Eigenmodes of particles on curved surfaces.")
+    p.add_argument("--version", action="version", version=f"shellmodes {__version__}")
+    p.add_argument("-v", "--verbose", action="store_true", help="log progress")
+    sub = p.add_subparsers(dest="command", required=True)
+    r = sub.add_parser("run", help="solve one case file")
+    r.add_argument("case", help="TOML case file")
+    r.add_argument("--out", help="output folder (default: the case file's name beside it)")
+    r.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
+    r.set_defaults(func=_cmd_run)
+    c = sub.add_parser("check", help="run the built-in validation set against exact results")
+    c.add_argument("--only", help="run only checks whose name contains this text")
+    c.set_defaults(func=_cmd_check)
+    s = sub.add_parser("schema", help="print the case-file JSON Schema")
+    s.set_defaults(func=_cmd_schema)
+    k = sub.add_parser("keys", help="print every case-file key with its meaning (Markdown)")
+    k.set_defaults(func=_cmd_keys)
+    return p
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    print(f"warning: {message}", file=sys.stderr)
+
+
+def main(argv=None) -> int:
+    args = _parser().parse_args(argv)
+    logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING, format="%(message)s")
+    warnings.showwarning = _show_warning
+    try:
+        return args.func(args)
+    except ShellmodesError as exc:
+        print(f"shellmodes: error: {exc}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:  # output piped into a pager or head that closed early
+        return 0
+    except KeyboardInterrupt:
+        print("shellmodes: interrupted; nothing was written", file=sys.stderr)
+        return 130
+    except Exception as exc:  # an internal failure, not the user's input
+        print(f"shellmodes: internal error: {type(exc).__name__}: {exc} (please report this)", file=sys.stderr)
+        if args.verbose:
+            raise
+        return 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,131 @@
+"""Writing results: spectrum.json, spectrum.csv, modes.vtu and run.log.
+
+Everything is written into a fresh temporary folder beside the target and
+moved into place only when every file is complete, so a failed run leaves
+nothing half-written.  meshio's VTU writer drops field data, so each mode's
+energy is carried in its point-array name as well as in the tables.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_field_name", "EXPORTERS", "register"]
+
+EXPORTERS: dict = {}
+
+
+def register(name):
+    """Decorator registering ``writer(spectrum, folder)`` under a file name."""
+
+    def wrap(fn):
+        EXPORTERS[name] = fn
+        return fn
+
+    return wrap
+
+
+def mode_field_name(i: int, energy: float) -> str:
+    return f"mode{i:04d}_E={energy:.9g}"
+
+
+def spectrum_json(spectrum) -> dict:
+    return {
+        "modes": spectrum.modes_table(),
+        "multiplets": [m.as_dict() for m in spectrum.multiplets],
+        **{k: spectrum.info.get(k) for k in ("units", "mesh", "solver", "versions", "case", "timings",
+                                              "warnings")},
+    }
+
+
+@register("spectrum.json")
+def _write_json(spectrum, folder: Path):
+    (folder / "spectrum.json").write_text(json.dumps(spectrum_json(spectrum), indent=2, default=_plain) + "\n")
+
+
+@register("spectrum.csv")
+def _write_csv(spectrum, folder: Path):
+    rows = spectrum.modes_table()
+    buf = io.StringIO()
+    writer = csv.DictWriter(buf, fieldnames=["index", "energy", "eigenvalue", "multiplet", "l", "residual"],
+                            lineterminator="\n")
+    writer.writeheader()
+    for row in rows:
+        writer.writerow({**row, "l": "" if row["l"] is None else row["l"]})
+    (folder / "spectrum.csv").write_text(buf.getvalue())
+
+
+@register("modes.vtu")
+def _write_vtu(spectrum, folder: Path):
+    import meshio
+
+    export = spectrum.export
+    if not export:
+        return
+    point_data = {mode_field_name(i, e): spectrum.vectors[:, i] for i, e in enumerate(spectrum.energies)}
+    point_data.update(export.get("point_data", {}))
+    mesh = meshio.Mesh(export["points"], export["cells"], point_data=point_data,
+                       cell_data=export.get("cell_data", {}))
+    mesh.write(folder / "modes.vtu", binary=True)
+
+
+@register("run.log")
+def _write_log(spectrum, folder: Path):
+    (folder / "run.log").write_text(spectrum.info.get("log", "") + "\n")
+
+
+def _plain(value):
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    return str(value)
+
+
+class atomic_directory:
+    """Context manager: yields a temporary folder, then moves its files into ``target``.
+
+    The files appear in ``target`` only if the block finishes without error;
+    each is moved with an atomic rename.
+    """
+
+    def __init__(self, target):
+        self.target = Path(target)
+
+    def __enter__(self) -> Path:
+        parent = self.target.parent
+        parent.mkdir(parents=True, exist_ok=True)
+        self.tmp = Path(tempfile.mkdtemp(prefix=f".{self.target.name}.", dir=parent))
+        return self.tmp
+
+    def __exit__(self, kind, value, tb):
+        try:
+            if kind is None:
+                if not self.target.exists():
+                    os.replace(self.tmp, self.target)
+                    return False
+                for item in self.tmp.iterdir():
+                    os.replace(item, self.target / item.name)
+        finally:
+            shutil.rmtree(self.tmp, ignore_errors=True)
+        return False
+
+
+def write_outputs(spectrum, folder, files=None) -> Path:
+    """Write every registered output (or ``files``) for ``spectrum`` into ``folder``."""
+    names = list(EXPORTERS) if files is None else list(files)
+    unknown = set(names) - set(EXPORTERS)
+    if unknown:
+        raise ValueError(f"unknown outputs {sorted(unknown)}; allowed: {', '.join(EXPORTERS)}")
+    with atomic_directory(folder) as tmp:
+        for name in names:
+            EXPORTERS[name](spectrum, tmp)
+    return Path(folder)

@@ -1,0 +1,215 @@
+"""The pipeline for one case: case -> shape -> curved mesh -> problem -> solve -> spectrum.
+
+``run_case`` does everything the ``shellmodes run`` command does except
+writing files (:func:`shellmodes.outputs.write_outputs`) and printing.
+"""
+
+from __future__ import annotations
+
+import logging
+import platform
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+from . import _version
+from .case import Case
+from .errors import CaseError, GeometryError, MeshError, ShellmodesError
+from .expression import compile_expression
+from .problem import assemble_surface
+from .shapes import make_shape
+from .solve import lowest_modes
+from .spectrum import Spectrum, build_multiplets
+from .surface import curved_surface, lagrange_element, lattice_cells
+from .units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS, joule_to, kinetic_scale_joule
+
+__all__ = ["run_case", "build_shape", "discretise", "energy_scale", "versions"]
+
+log = logging.getLogger(__name__)
+
+
+def versions() -> dict:
+    import meshio
+    import scipy
+    import skfem
+
+    return {"shellmodes": _version.__version__, "python": platform.python_version(), "numpy": np.__version__,
+            "scipy": scipy.__version__, "scikit-fem": skfem.__version__, "meshio": meshio.__version__}
+
+
+def build_shape(case: Case):
+    """The :class:`~shellmodes.shapes.Shape` a case describes."""
+    spec = case.surface.model_dump()
+    name = spec.pop("shape")
+    spec.pop("rim", None)
+    try:
+        if name == "star":
+            spec["deformation"] = [(d["l"], d["m"], d["amplitude"]) for d in spec["deformation"]]
+        if name == "mesh":
+            path = Path(spec["file"])
+            if not path.is_absolute():
+                path = case.base_dir / path
+            snap = spec.pop("snap")
+            target = None
+            if snap is not None:
+                snap_name = snap.pop("shape")
+                params = {k: v for k, v in snap.items() if v not in (None, ())}
+                if snap_name == "star":
+                    params["radius"] = params.get("radius", 1.0)
+                    params["deformation"] = [(d["l"], d["m"], d["amplitude"]) for d in snap.get("deformation", ())]
+                target = make_shape(snap_name, **params)
+            return make_shape("mesh", file=path, snap=target)
+        return make_shape(name, **spec)
+    except GeometryError as exc:
+        raise CaseError(str(exc), case.source, "surface") from None
+    except MeshError as exc:
+        raise CaseError(exc.reason, exc.source or case.source, "surface.file") from None
+    except TypeError as exc:
+        raise CaseError(f"incomplete parameters for shape {name!r} ({exc})", case.source, "surface") from None
+
+
+def discretise(case: Case, shape=None):
+    """Curved Lagrange surface of the case's degree and refinement."""
+    shape = build_shape(case) if shape is None else shape
+    res = case.resolution
+    if res.edge_length is not None:
+        level = shape.subdivisions_for(res.edge_length)
+    elif res.subdivisions is not None:
+        level = res.subdivisions
+    else:
+        level = 0 if shape.name == "mesh" else 3
+    points, triangles = shape.reference(level)
+    element_nodes = getattr(shape, "quadratic_nodes", None) if level == 0 else None
+    if shape.name == "mesh" and shape.snap_shape is None and res.degree > 1 and (
+            element_nodes is None or res.degree != 2):
+        warnings.warn(f"{case.source}: degree {res.degree} elements on the flat triangles of "
+                      f"{shape.file}: the geometry limits eigenvalue accuracy to O(h^2); give quadratic "
+                      "cells with degree 2 or set surface.snap", UserWarning, stacklevel=2)
+    return curved_surface(points, triangles, res.degree, project=shape.project,
+                          quadrature_order=res.quadrature_order, element_nodes=element_nodes,
+                          unwrap=shape.unwrap)
+
+
+def energy_scale(case: Case, shape=None) -> tuple[float | None, str]:
+    """E0 (energy of lam = 1 per length unit squared) in the case's energy unit, and its origin."""
+    units, particle = case.units, case.particle
+    if units.energy == "1":
+        return None, "dimensionless: energies are the eigenvalues lambda"
+    if particle.moment_of_inertia is not None:
+        inertia = particle.moment_of_inertia * INERTIA_UNITS[particle.inertia_unit]
+        radius = case.surface.radius
+        # E = hbar^2 lam R^2 / (2 I); lam R^2 is dimensionless, so the length unit cancels
+        from scipy.constants import hbar
+
+        e0 = hbar**2 * radius**2 / (2.0 * inertia)
+        return float(joule_to(e0, units.energy)), f"rigid rotor, I = {inertia:.6g} kg m^2"
+    mass = (particle.mass if particle.mass is not None else 1.0) * MASS_UNITS[particle.mass_unit]
+    mass *= particle.effective_mass
+    length = LENGTH_UNITS[units.length]
+    e0 = kinetic_scale_joule(mass, length)
+    return float(joule_to(e0, units.energy)), f"hbar^2/(2 m L^2), m = {mass:.6g} kg, L = {length:.6g} m"
+
+
+def _potential(case: Case, e0):
+    if case.potential is None:
+        return None
+    expr = compile_expression(case.potential.expression)
+    unit = case.potential.unit
+    if unit == "1":
+        return expr
+    # V given in an energy unit: divide by E0 expressed in that same unit
+    e0_here = e0 * ENERGY_UNITS[case.units.energy] / ENERGY_UNITS[unit] if case.units.energy != "1" else None
+    if e0_here is None:
+        raise CaseError("a potential with a physical unit needs a physical units.energy", case.source,
+                        "potential.unit")
+    return lambda **kw: expr(**kw) / e0_here
+
+
+def _export_cells(surface):
+    degree = surface.degree
+    t = surface.basis.element_dofs
+    if degree == 2:
+        return [("triangle6", t.T.copy())]
+    sub = lattice_cells(lagrange_element(degree), degree)
+    cells = t[sub.T]  # (3, k^2, Nel)
+    return [("triangle", cells.transpose(2, 1, 0).reshape(-1, 3))]
+
+
+def run_case(case: Case) -> Spectrum:
+    """Solve one case and return its :class:`Spectrum`.
+
+    Raises
+    ------
+    ShellmodesError
+        Invalid geometry, mesh or request (exit status 2 from the CLI).
+
+    Examples
+    --------
+    >>> from shellmodes.case import case_from_dict
+    >>> s = run_case(case_from_dict({"surface": {"shape": "sphere"}, "resolution": {"degree": 2,
+    ...     "subdivisions": 2}, "modes": {"count": 4}}))
+    >>> [m.size for m in s.multiplets]
+    [1, 3]
+    """
+    lines = []
+    t_start = time.perf_counter()
+    shape = build_shape(case)
+    surface = discretise(case, shape)
+    t_mesh = time.perf_counter() - t_start
+    e0, origin = energy_scale(case, shape)
+    rim = getattr(case.surface, "rim", None)
+    try:
+        problem = assemble_surface(surface, _potential(case, e0), rim=rim if not shape.closed else None)
+    except ValueError as exc:
+        raise CaseError(str(exc), case.source, "potential.expression") from None
+    modes = case.modes
+    below = None if modes.below is None else (modes.below / e0 if e0 is not None else modes.below)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            pairs = lowest_modes(problem.K, problem.M, count=modes.count, below=below,
+                                 lower_bound=problem.lower_bound, scale=problem.spectral_scale,
+                                 backend=modes.backend, multiplet_tolerance=modes.multiplet_tolerance,
+                                 residual_limit=modes.residual_limit)
+        except ValueError as exc:
+            raise CaseError(str(exc), case.source, "modes.backend") from None
+        except ShellmodesError as exc:
+            raise CaseError(str(exc), case.source, "modes") from None
+    for w in caught:
+        warnings.warn(w.message, w.category, stacklevel=2)
+    lam = pairs.lam
+    energies = lam * e0 if e0 is not None else lam.copy()
+    radius_eq2 = problem.area / (4 * np.pi) if (shape.closed and shape.sphere_like) else None
+    multiplets = build_multiplets(lam, energies, modes.multiplet_tolerance, problem.spectral_scale, radius_eq2)
+    vectors = problem.expand(pairs.vectors)
+    mesh_info = {"shape": shape.parameters(), "degree": surface.degree, "elements": int(surface.mesh.nelements),
+                 "dofs": int(surface.ndofs), "free_dofs": int(problem.ndofs), "h": surface.h,
+                 "area": problem.area, "exact_area": shape.exact_area(), "closed": bool(shape.closed),
+                 "rim": problem.rim}
+    solver_info = {"backend": pairs.backend, "shift": pairs.shift, "requested": modes.count,
+                   "below": modes.below, "returned": int(len(lam)), "orthogonality_error": pairs.orthogonality,
+                   "multiplet_tolerance": modes.multiplet_tolerance, "max_residual": float(np.max(pairs.residuals))
+                   if len(lam) else None, "residual_definition": "||K u - lam M u|| / (max(|lam|, |shift|) ||M u||)"}
+    timings = {"mesh": t_mesh, "assembly": problem.timings["assembly"], "eigensolve": pairs.timings["eigensolve"],
+               "total": time.perf_counter() - t_start}
+    units = {"length": case.units.length, "energy": case.units.energy, "energy_per_lambda": e0,
+             "energy_scale": origin, "eigenvalue": f"1/{case.units.length}^2" if case.units.length != "1" else "1"}
+    lines.append(f"case: {case.source}")
+    lines.append(f"shape: {shape!r}")
+    lines.append(f"mesh: degree {surface.degree}, {surface.mesh.nelements} elements, {surface.ndofs} dofs, "
+                 f"h = {surface.h:.4g}, area = {problem.area:.10g}")
+    lines.append(f"solver: {pairs.backend}, shift {pairs.shift:.4g}, {len(lam)} modes "
+                 f"(requested {modes.count if modes.count else 'below ' + str(modes.below)})")
+    lines.append("timings [s]: " + ", ".join(f"{k} {v:.3f}" for k, v in timings.items()))
+    lines.append("versions: " + ", ".join(f"{k} {v}" for k, v in versions().items()))
+    warn_text = [str(w.message) for w in caught]
+    lines += [f"warning: {w}" for w in warn_text]
+    info = {"units": units, "mesh": mesh_info, "solver": solver_info, "versions": versions(),
+            "case": case.model_dump(mode="json"), "timings": timings, "warnings": warn_text,
+            "log": "\n".join(lines)}
+    export = {"points": surface.nodes, "cells": _export_cells(surface)}
+    log.info("%s", lines[2])
+    return Spectrum(eigenvalues=lam, energies=energies, residuals=pairs.residuals, vectors=vectors,
+                    nodes=surface.nodes, multiplets=multiplets, info=info, export=export)

@@ -1,0 +1,134 @@
+"""A solved spectrum: energies, residuals, multiplets and parent-l labels.
+
+Multiplets are runs of eigenvalues whose neighbours differ by at most the
+relative ``multiplet_tolerance``.  On closed genus-0 surfaces each multiplet
+is labelled with the parent degree l of the sphere of the same area
+(R_eq = sqrt(A / 4 pi)): l is the integer nearest to the root of
+l(l+1) = lam R_eq^2, and its expected size is 2l + 1.  A multiplet whose size
+differs from 2l+1 shows how the sphere's degeneracy is split.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .solve import group_multiplets
+
+__all__ = ["Multiplet", "Spectrum", "parent_degree", "build_multiplets"]
+
+
+def parent_degree(x: np.ndarray) -> np.ndarray:
+    """Nearest integer l >= 0 to the root of l (l + 1) = x."""
+    x = np.maximum(np.asarray(x, dtype=float), 0.0)
+    return np.rint((-1.0 + np.sqrt(1.0 + 4.0 * x)) / 2.0).astype(int)
+
+
+@dataclass(frozen=True)
+class Multiplet:
+    index: int
+    members: tuple[int, ...]
+    eigenvalue: float
+    energy: float
+    size: int
+    l: int | None
+    expected_size: int | None
+    spread: float  # max - min energy, in the energy unit
+    relative_spread: float
+
+    def as_dict(self) -> dict:
+        return {"index": self.index, "energy": self.energy, "eigenvalue": self.eigenvalue, "size": self.size,
+                "l": self.l, "expected_size": self.expected_size, "spread": self.spread,
+                "relative_spread": self.relative_spread, "modes": list(self.members)}
+
+
+def build_multiplets(lam, energy, tolerance, scale, radius_eq2=None) -> list[Multiplet]:
+    """Group modes into :class:`Multiplet` records (labels when ``radius_eq2`` is given)."""
+    out = []
+    for i, members in enumerate(group_multiplets(lam, tolerance, scale)):
+        lam_m = float(np.mean(lam[members]))
+        e = energy[members]
+        l = int(parent_degree(lam_m * radius_eq2)) if radius_eq2 is not None else None
+        spread = float(np.max(e) - np.min(e))
+        mean = float(np.mean(e))
+        out.append(Multiplet(index=i, members=tuple(int(m) for m in members), eigenvalue=lam_m, energy=mean,
+                             size=len(members), l=l, expected_size=None if l is None else 2 * l + 1,
+                             spread=spread, relative_spread=spread / abs(mean) if mean else 0.0))
+    return out
+
+
+@dataclass(frozen=True, eq=False)
+class Spectrum:
+    """The result of one solve, with everything needed to report and export it.
+
+    Attributes
+    ----------
+    eigenvalues
+        lam in 1/L^2 (L the case's length unit), ascending.
+    energies
+        E = E0 lam in the case's energy unit.
+    residuals
+        Relative residuals ||K u - lam M u|| / (max(|lam|, |sigma|) ||M u||).
+    vectors
+        (Ndofs, n) M-orthonormal nodal values on the whole mesh (zero on a hard rim).
+    nodes
+        (Ndofs, 3) positions of the degrees of freedom.
+    multiplets
+        :class:`Multiplet` records.
+    info
+        Units, mesh, solver, timings and versions, as written to spectrum.json.
+    """
+
+    eigenvalues: np.ndarray
+    energies: np.ndarray
+    residuals: np.ndarray
+    vectors: np.ndarray
+    nodes: np.ndarray
+    multiplets: list[Multiplet]
+    info: dict = field(default_factory=dict)
+    export: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def mode_multiplet(self) -> np.ndarray:
+        out = np.zeros(len(self.eigenvalues), dtype=int)
+        for m in self.multiplets:
+            out[list(m.members)] = m.index
+        return out
+
+    @property
+    def mode_l(self) -> list:
+        labels = [None] * len(self.eigenvalues)
+        for m in self.multiplets:
+            for i in m.members:
+                labels[i] = m.l
+        return labels
+
+    def modes_table(self) -> list[dict]:
+        mult, ls = self.mode_multiplet, self.mode_l
+        return [{"index": i, "energy": float(self.energies[i]), "eigenvalue": float(self.eigenvalues[i]),
+                 "multiplet": int(mult[i]), "l": ls[i], "residual": float(self.residuals[i])}
+                for i in range(len(self.eigenvalues))]
+
+    def summary(self, max_rows: int = 40) -> str:
+        """A compact terminal table, one row per multiplet."""
+        unit = self.info.get("units", {}).get("energy", "1")
+        head = f"{'#':>4} {'energy [' + unit + ']':>18} {'lambda':>16} {'size':>5} {'l':>3} {'2l+1':>5} " \
+               f"{'spread':>10} {'max resid':>10}"
+        lines = [head, "-" * len(head)]
+        for m in self.multiplets[:max_rows]:
+            res = float(np.max(self.residuals[list(m.members)]))
+            mark = "" if m.expected_size in (None, m.size) else "  split" if m.size < m.expected_size else ""
+            lines.append(f"{m.index:>4} {m.energy:>18.10g} {m.eigenvalue:>16.10g} {m.size:>5} "
+                         f"{'-' if m.l is None else m.l:>3} {'-' if m.expected_size is None else m.expected_size:>5} "
+                         f"{m.relative_spread:>10.2e} {res:>10.1e}{mark}")
+        if len(self.multiplets) > max_rows:
+            lines.append(f"... {len(self.multiplets) - max_rows} more multiplets in spectrum.csv")
+        return "\n".join(lines)
+
+    def __repr__(self):
+        low = ", ".join(f"{v:.6g}" for v in self.eigenvalues[:4])
+        mesh = self.info.get("mesh", {})
+        return (f"Spectrum(modes={len(self.eigenvalues)}, multiplets={len(self.multiplets)}, "
+                f"lambda=[{low}, ...], max_residual={np.max(self.residuals):.1e}, "
+                f"dofs={mesh.get('dofs')}, degree={mesh.get('degree')}, h={mesh.get('h', float('nan')):.3g})")
