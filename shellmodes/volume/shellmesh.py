@@ -30,8 +30,8 @@ Points are (N, 3) on entry and exit.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Callable, Sequence
 
 import numpy as np
 from scipy.spatial import cKDTree
@@ -42,6 +42,9 @@ from ..shapes.reference import icosahedron, icosphere
 __all__ = ["ShellMesh", "shell_mesh", "constant_wall", "signed_volumes"]
 
 WallFunction = Callable[[np.ndarray], np.ndarray]
+# the six edges and four faces of a tetrahedron, in local vertex numbers
+TET_EDGES = ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))
+TET_FACES = ((0, 1, 2), (0, 1, 3), (0, 2, 3), (1, 2, 3))
 
 
 def constant_wall(radius: float) -> WallFunction:
@@ -111,7 +114,7 @@ class ShellMesh:
     def h(self) -> float:
         """Largest straight edge length."""
         t = self.tets
-        pairs = np.vstack([t[:, [i, j]] for i, j in ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))])
+        pairs = np.vstack([t[:, list(pair)] for pair in TET_EDGES])
         return float(np.max(np.linalg.norm(self.points[pairs[:, 0]] - self.points[pairs[:, 1]], axis=1)))
 
     def place(self, directions: np.ndarray, radial: np.ndarray) -> np.ndarray:
@@ -262,7 +265,8 @@ def shell_mesh(
     ball = walls[0] is None
     for i, n in enumerate(layers):
         if n < 1 and not (ball and i == 0 and n == 0):
-            raise GeometryError(f"region {i} has {n} layers; need at least 1 (0 allowed only for a ball's core)")
+            raise GeometryError(f"region {i} has {n} layers; need at least 1 "
+                                "(0 allowed only for a ball's core)")
     if not 0 <= int(level) <= 7:
         raise GeometryError(f"level {level} is outside 0..7")
     if ball and layers[0] > 0 and not 0.0 < core_fraction < 1.0:
@@ -332,20 +336,20 @@ def shell_mesh(
     scale = np.max(np.abs(vol)) if len(vol) else 1.0
     tiny = np.nonzero(np.abs(vol) <= 1e-12 * scale)[0]
     if len(tiny):
-        raise MeshError(f"tetrahedron {tiny[0]} has zero volume at {_fmt(points[tets[tiny[0]]].mean(axis=0))}")
+        centre = points[tets[tiny[0]]].mean(axis=0)
+        raise MeshError(f"tetrahedron {tiny[0]} has zero volume at {_fmt(centre)}")
     object.__setattr__(mesh, "points", points)
     return mesh
 
 
 def _interior_edge_keys(tets: np.ndarray, n: int) -> np.ndarray:
     """Keys of block edges that are not on the block's surface (Cartesian midpoint rule)."""
-    faces = np.sort(np.vstack([tets[:, [0, 1, 2]], tets[:, [0, 1, 3]], tets[:, [0, 2, 3]], tets[:, [1, 2, 3]]]),
-                    axis=1)
+    faces = np.sort(np.vstack([tets[:, list(f)] for f in TET_FACES]), axis=1)
     uniq, counts = np.unique(faces, axis=0, return_counts=True)
     boundary = uniq[counts == 1]
     surface_keys = np.unique(np.concatenate([boundary[:, i] * n + boundary[:, j]
                                              for i, j in ((0, 1), (0, 2), (1, 2))]))
-    e = np.sort(np.vstack([tets[:, [i, j]] for i, j in ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))]), axis=1)
+    e = np.sort(np.vstack([tets[:, list(pair)] for pair in TET_EDGES]), axis=1)
     keys = np.unique(e[:, 0] * n + e[:, 1])
     return np.setdiff1d(keys, surface_keys)
 
@@ -372,8 +376,7 @@ def _core_block(level: int, sphere_points: np.ndarray):
     t = np.column_stack([np.full(len(faces), 12), faces])
     on_surface = np.r_[np.ones(12, bool), False]
     for _ in range(level):
-        pairs = np.sort(np.vstack([t[:, [i, j]] for i, j in ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))]),
-                        axis=1)
+        pairs = np.sort(np.vstack([t[:, list(pair)] for pair in TET_EDGES]), axis=1)
         uniq, inv = np.unique(pairs, axis=0, return_inverse=True)
         inv = inv.ravel().reshape(6, -1).T + len(p)
         mid = 0.5 * (p[uniq[:, 0]] + p[uniq[:, 1]])
@@ -383,8 +386,8 @@ def _core_block(level: int, sphere_points: np.ndarray):
         p = np.vstack([p, mid])
         on_surface = np.concatenate([on_surface, surf])
         local = np.column_stack([t, inv])  # 0-3 vertices, then 01, 02, 03, 12, 13, 23
-        lengths = {diag: np.linalg.norm(p[local[:, diag[0]]] - p[local[:, diag[1]]], axis=1) for diag in _OCTA}
-        best = np.argmin(np.column_stack([lengths[d] for d in _OCTA]), axis=1)
+        lengths = [np.linalg.norm(p[local[:, a]] - p[local[:, b]], axis=1) for a, b in _OCTA]
+        best = np.argmin(np.column_stack(lengths), axis=1)
         children = [local[:, list(c)] for c in _CORNERS]
         for j, diag in enumerate(_OCTA):
             sel = best == j
