@@ -13,19 +13,24 @@ On a deformed surface the interpolated harmonics are not M-orthonormal: the
 Gram matrix G = B^T M B of the analysing functions B differs from the identity
 (the area element is not that of the unit sphere).  We therefore
 
-1. project u onto span(B) by least squares in the M norm (the M-orthogonal
-   projection P u = B G^-1 B^T M u, the best approximation in that norm);
-2. split ||P u||^2 among the degrees by writing P u in the Loewdin
-   (symmetric) orthonormalisation B G^-1/2 of the analysing functions, the
-   orthonormal set closest to B in the least-squares sense (Loewdin,
-   J. Chem. Phys. 18, 365 (1950); Mayer, Int. J. Quantum Chem. 90, 63 (2002)).
-   The weight of l is the sum over m of the squared coefficients.
+1. fit u by least squares in the M norm: c = G^+ B^T M u (G^+ the
+   pseudo-inverse on the numerically non-null part of G), so that B c is the
+   M-orthogonal projection P u of u onto span(B).  The resolved fraction is
+   ||P u||_M^2 / ||u||_M^2 <= 1; the rest is content above ``l_max`` (or
+   not representable by the analysing functions);
+2. split the resolved fraction among the degrees in proportion to the norms
+   of the coefficient blocks measured on the unit sphere, where the Y_lm are
+   orthonormal: w_l = resolved * sum_m |c_lm|^2 / sum_lm |c_lm|^2.
 
-The weights are non-negative, sum to ||P u||^2/||u||^2 <= 1 (the remainder is
-content above ``l_max`` or not representable), reduce to the ordinary
-|<Y_lm, u>|^2 on the sphere, and are unchanged by any orthogonal change of
-basis inside one l block (G^-1/2 transforms covariantly), so they do not
-depend on the real/complex or rotated choice of harmonics of one degree.
+This is the spherical-harmonic content of the mode seen as a function of
+direction (the expansion a physicist writes), fitted in the metric of the
+actual surface.  It is exact for a function in span(B) (a spheroid's constant
+ground state is pure l = 0, whatever G is), reduces to |<Y_lm, u>|^2 on the
+sphere, and since c_l -> R^T c_l under any orthogonal change of basis R inside
+one l block it does not depend on the real/complex or rotated choice of
+harmonics of one degree.  (A split by a symmetric orthonormalisation of B
+would spread even an exact Y_00 over other degrees at first order in G - I,
+which is why it is not used.)
 
 Shells (volume modes)
 ---------------------
@@ -35,8 +40,12 @@ is sum_m int f_lm(r)^2 r^2 dr / ||u||^2.  Projecting onto the harmonics alone
 radial nodes.  With ``radial_degree = d > 0`` the analysing functions are the
 products P_k(s(r)) Y_lm(omega), k = 0..d, with P_k Legendre polynomials in the
 radius mapped onto [-1, 1] over the nodes' radial range; the M inner product
-then integrates the radial dependence out.  For surfaces keep d = 0: there r
-is a function of omega and radial factors would alias other degrees.
+then integrates the radial dependence out, and the coefficient block of l is
+measured with the norm of sum_k c_lmk P_k(s(r)) Y_lm in r^2 dr dOmega over
+that range.  For surfaces keep d = 0: there r is a function of omega and
+radial factors would alias other degrees.
+
+Memory: B and M B are dense (N, (l_max+1)^2 (d+1)) arrays.
 
 Array layout: ``nodes`` (N, 3), ``modes`` (N, n_modes), as everywhere.
 """
@@ -107,7 +116,7 @@ class AngularContent:
 
 @dataclass(frozen=True, eq=False)
 class HarmonicProjector:
-    """Loewdin-orthonormalised analysing functions on one mesh (see module docstring).
+    """Least-squares harmonic analysis on one mesh (see the module docstring).
 
     Attributes
     ----------
@@ -115,8 +124,12 @@ class HarmonicProjector:
         The mass matrix the inner product uses.
     B
         (N, n_functions) analysing functions at the nodes.
-    inverse_root
-        G^-1/2 for the Gram matrix G = B^T M B.
+    gram
+        The Gram matrix G = B^T M B.
+    gram_pinv
+        Its pseudo-inverse.
+    radial_gram
+        (d+1, d+1) Gram matrix of the radial factors in r^2 dr ([[1]] for surfaces).
     l, m, k
         (n_functions,) degree, order and radial index of each column.
     l_max
@@ -127,7 +140,9 @@ class HarmonicProjector:
 
     M: object
     B: np.ndarray
-    inverse_root: np.ndarray
+    gram: np.ndarray
+    gram_pinv: np.ndarray
+    radial_gram: np.ndarray
     l: np.ndarray
     m: np.ndarray
     k: np.ndarray
@@ -135,13 +150,25 @@ class HarmonicProjector:
     condition: float
 
     def coefficients(self, vectors: np.ndarray) -> np.ndarray:
-        """(n_functions, n_vectors) coefficients of the vectors' projections, orthonormal basis."""
-        return self.inverse_root @ (self.B.T @ (self.M @ vectors))
+        """(n_functions, n_vectors) least-squares coefficients c = G^+ B^T M v."""
+        return self.gram_pinv @ (self.B.T @ np.asarray(self.M @ vectors))
 
-    def by_degree(self, squared: np.ndarray) -> np.ndarray:
-        """Sum (n_functions, ...) values over the functions of each degree -> (l_max + 1, ...)."""
-        out = np.zeros((self.l_max + 1,) + squared.shape[1:])
-        np.add.at(out, self.l, squared)
+    def projected_norms(self, coefficients: np.ndarray) -> np.ndarray:
+        """(n_vectors,) ||P v||_M^2 = c^T G c from the coefficients."""
+        return np.einsum("iv,iv->v", coefficients, self.gram @ coefficients)
+
+    def sphere_norms(self, coefficients: np.ndarray, key: str = "l") -> np.ndarray:
+        """Norms on the unit sphere (times r^2 dr for shells) of the coefficient blocks.
+
+        Returns (max key + 1, n_vectors): summed over the functions with the same
+        degree (``key="l"``) or the same |m| (``key="abs_m"``).
+        """
+        n_radial = len(self.radial_gram)
+        c = coefficients.reshape(n_radial, -1, coefficients.shape[1])  # (k, harmonic, vector)
+        per_function = np.einsum("kjv,kq,qjv->jv", c, self.radial_gram, c)
+        labels = self.l[: c.shape[1]] if key == "l" else np.abs(self.m[: c.shape[1]])
+        out = np.zeros((self.l_max + 1, coefficients.shape[1]))
+        np.add.at(out, labels, per_function)
         return out
 
 
@@ -203,7 +230,7 @@ def harmonic_projector(nodes, M, l_max: int, center=(0.0, 0.0, 0.0), radial_degr
     Y = real_sph_harm_basis(l_max, theta, phi)
     labels = np.array(harmonic_labels(l_max))
     if radial_degree == 0:
-        B, radial_index = Y, np.zeros(len(labels), dtype=int)
+        B, radial_index, radial_gram = Y, np.zeros(len(labels), dtype=int), np.ones((1, 1))
     else:
         span = float(r.max() - r.min())
         if span <= 1e-9 * float(r.max()):
@@ -214,6 +241,11 @@ def harmonic_projector(nodes, M, l_max: int, center=(0.0, 0.0, 0.0), radial_degr
         B = (P[:, :, None] * Y[:, None, :]).reshape(len(nodes), -1)  # column = k * n_h + j
         radial_index = np.repeat(np.arange(radial_degree + 1), len(labels))
         labels = np.tile(labels, (radial_degree + 1, 1))
+        # int P_k P_q r^2 dr over the radial range, exact by Gauss-Legendre in s
+        x, w = legendre.leggauss(radial_degree + 2)
+        Px = legendre.legvander(x, radial_degree)
+        rx = r.min() + 0.5 * (x + 1.0) * span
+        radial_gram = Px.T @ ((w * rx**2 * 0.5 * span)[:, None] * Px)
     MB = M @ B
     G = B.T @ MB
     G = 0.5 * (G + G.T)
@@ -226,11 +258,24 @@ def harmonic_projector(nodes, M, l_max: int, center=(0.0, 0.0, 0.0), radial_degr
         warnings.warn(f"harmonic Gram matrix condition number {condition:.3g} > {_MAX_GRAM_CONDITION:.0e}: "
                       f"the mesh does not resolve l_max={l_max} (or radial_degree={radial_degree}); "
                       "lower them or refine", MeshQualityWarning, stacklevel=3)
-    # Drop numerically null directions rather than divide by ~0.
+    # Drop numerically null directions rather than divide by ~0 (minimum-norm fit).
     keep = s_values > 1e-12 * s_values[-1]
-    inverse_root = (vectors[:, keep] / np.sqrt(s_values[keep])) @ vectors[:, keep].T
-    return HarmonicProjector(M=M, B=B, inverse_root=inverse_root, l=labels[:, 0], m=labels[:, 1],
-                             k=radial_index, l_max=l_max, condition=condition)
+    gram_pinv = (vectors[:, keep] / s_values[keep]) @ vectors[:, keep].T
+    return HarmonicProjector(M=M, B=B, gram=G, gram_pinv=gram_pinv, radial_gram=radial_gram, l=labels[:, 0],
+                             m=labels[:, 1], k=radial_index, l_max=l_max, condition=condition)
+
+
+def _split(projector, coefficients, resolved, aggregate=False):
+    """Share ``resolved`` among degrees in proportion to the coefficients' sphere norms.
+
+    Per vector (``resolved`` of shape (n_vectors,)) or, with ``aggregate``, for
+    the span of all columns at once (Frobenius norms of the blocks).
+    """
+    blocks = projector.sphere_norms(coefficients)
+    if aggregate:
+        blocks = blocks.sum(axis=1)
+    total = blocks.sum(axis=0)
+    return blocks * (resolved / np.where(total > 0, total, 1.0))
 
 
 def _columns(modes, n_nodes):
@@ -290,22 +335,21 @@ def angular_content(nodes, modes, M, l_max: int, center=(0.0, 0.0, 0.0), axisymm
 
     References
     ----------
-    P.-O. Loewdin, J. Chem. Phys. 18, 365 (1950) (symmetric orthonormalisation).
+    Least squares in a weighted inner product: G. H. Golub and C. F. Van Loan,
+    *Matrix Computations*, 4th ed., sect. 6.1 (normal equations).
     """
     nodes = np.asarray(nodes, dtype=float)
     modes = _columns(modes, len(nodes))
     projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
-    d2 = projector.coefficients(modes) ** 2 / _m_norms(M, modes)  # (n_functions, n_modes)
-    weights = projector.by_degree(d2).T
+    c = projector.coefficients(modes)
+    resolved = np.clip(projector.projected_norms(c) / _m_norms(M, modes), 0.0, 1.0)
+    weights = _split(projector, c, resolved).T
     dominant = np.argmax(weights, axis=1)
     degrees = np.arange(l_max + 1)
-    resolved = weights.sum(axis=1)
     mean_L2 = (weights @ (degrees * (degrees + 1.0))) / np.where(resolved > 0, resolved, 1.0)
     abs_m = None
     if axisymmetric:
-        by_m = np.zeros((l_max + 1, modes.shape[1]))
-        np.add.at(by_m, np.abs(projector.m), d2)
-        abs_m = np.argmax(by_m, axis=0)
+        abs_m = np.argmax(projector.sphere_norms(c, "abs_m"), axis=0)
     return AngularContent(weights=weights, dominant_l=dominant,
                           dominant_weight=weights[np.arange(len(dominant)), dominant],
                           mean_L2=mean_L2, abs_m=abs_m, l_max=int(l_max))
@@ -315,10 +359,12 @@ def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0
                       radial_degree: int = 0) -> list[dict]:
     """Weight of each degree l in the subspaces spanned by groups of modes.
 
-    The weight of l in a group is trace(Q^T M P_l Q) / size, with Q an
-    M-orthonormal basis of the group's span and P_l the projector onto the
-    (Loewdin-orthonormalised) degree-l analysing functions: independent of
-    which vectors inside a degenerate multiplet the eigen-solver returned.
+    With Q an M-orthonormal basis of the group's span and C its coefficient
+    matrix, the resolved fraction trace(Q^T M P Q) / size is shared among the
+    degrees in proportion to the sphere norms ||C_l||_F^2 of the degree-l
+    blocks.  Both are unchanged by Q -> Q R (R orthogonal), so the result does
+    not depend on which vectors inside a degenerate multiplet the eigen-solver
+    returned; for one mode it equals :func:`angular_content`.
 
     Parameters
     ----------
@@ -352,12 +398,14 @@ def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0
     for g in groups:
         V = modes[:, g]
         gram = V.T @ np.asarray(M @ V)
-        try:
-            L = np.linalg.cholesky(0.5 * (gram + gram.T))
-        except np.linalg.LinAlgError:
-            raise ValueError(f"modes {g} are linearly dependent in the M inner product") from None
-        Q = scipy.linalg.solve_triangular(L, V.T, lower=True).T
-        weights = projector.by_degree(projector.coefficients(Q) ** 2).sum(axis=1) / len(g)
+        gram = 0.5 * (gram + gram.T)
+        s_values = np.linalg.eigvalsh(gram)
+        if s_values[0] <= 1e-10 * s_values[-1]:
+            raise ValueError(f"modes {g} are linearly dependent in the M inner product")
+        Q = scipy.linalg.solve_triangular(np.linalg.cholesky(gram), V.T, lower=True).T
+        C = projector.coefficients(Q)
+        resolved = min(float(projector.projected_norms(C).sum()) / len(g), 1.0)
+        weights = _split(projector, C, resolved, aggregate=True)
         dominant = int(np.argmax(weights))
         rows.append({"modes": g, "size": len(g), "weights": weights, "l": dominant,
                      "purity": float(weights[dominant]), "unresolved": float(1.0 - weights.sum())})
