@@ -120,6 +120,8 @@ class Resolution(_Table):
     """Element degree and mesh refinement (give subdivisions or edge_length, not both)."""
 
     degree: int = Field(2, ge=1, le=4, description="polynomial degree of elements and geometry (1..4)")
+    geometry_degree: int | None = Field(
+        None, ge=1, le=4, description="degree of the geometry map (default: degree; higher = superparametric)")
     subdivisions: int | None = Field(None, ge=0, le=9, description="halvings of the reference mesh")
     edge_length: Positive | None = Field(None, description="largest reference edge, in units.length")
     quadrature_order: int | None = Field(None, ge=1, le=20, description="exactness of the cell rule")
@@ -128,6 +130,8 @@ class Resolution(_Table):
     def _one_size(self):
         if self.subdivisions is not None and self.edge_length is not None:
             raise ValueError("give either subdivisions or edge_length, not both")
+        if self.geometry_degree is not None and self.geometry_degree < self.degree:
+            raise ValueError(f"geometry_degree {self.geometry_degree} must be at least degree {self.degree}")
         return self
 
 

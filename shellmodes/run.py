@@ -89,7 +89,7 @@ def discretise(case: Case, shape=None):
                       "cells with degree 2 or set surface.snap", UserWarning, stacklevel=2)
     return curved_surface(points, triangles, res.degree, project=shape.project,
                           quadrature_order=res.quadrature_order, element_nodes=element_nodes,
-                          unwrap=shape.unwrap)
+                          unwrap=shape.unwrap, geometry_degree=res.geometry_degree)
 
 
 def energy_scale(case: Case, shape=None) -> tuple[float | None, str]:
@@ -184,7 +184,8 @@ def run_case(case: Case) -> Spectrum:
     radius_eq2 = problem.area / (4 * np.pi) if (shape.closed and shape.sphere_like) else None
     multiplets = build_multiplets(lam, energies, modes.multiplet_tolerance, problem.spectral_scale, radius_eq2)
     vectors = problem.expand(pairs.vectors)
-    mesh_info = {"shape": shape.parameters(), "degree": surface.degree, "elements": int(surface.mesh.nelements),
+    mesh_info = {"shape": shape.parameters(), "degree": surface.degree,
+                 "geometry_degree": surface.geometry_degree, "elements": int(surface.mesh.nelements),
                  "dofs": int(surface.ndofs), "free_dofs": int(problem.ndofs), "h": surface.h,
                  "area": problem.area, "exact_area": shape.exact_area(), "closed": bool(shape.closed),
                  "rim": problem.rim}

@@ -150,6 +150,7 @@ class CurvedSurface:
     nodes: np.ndarray
     degree: int
     h: float
+    geometry_degree: int | None = None
 
     @property
     def ndofs(self) -> int:
@@ -164,7 +165,8 @@ class CurvedSurface:
         return self.basis.get_dofs(facets).flatten()
 
     def __repr__(self) -> str:
-        return (f"CurvedSurface(degree={self.degree}, elements={self.mesh.nelements}, "
+        return (f"CurvedSurface(degree={self.degree}, geometry_degree={self.geometry_degree}, "
+                f"elements={self.mesh.nelements}, "
                 f"dofs={self.ndofs}, h={self.h:.3g})")
 
 
@@ -176,6 +178,7 @@ def curved_surface(
     quadrature_order: int | None = None,
     element_nodes: np.ndarray | None = None,
     unwrap: Callable[[np.ndarray], np.ndarray] | None = None,
+    geometry_degree: int | None = None,
 ) -> CurvedSurface:
     """Build a curved surface of ``degree`` from a flat reference triangulation.
 
@@ -198,6 +201,10 @@ def curved_surface(
         Optional (M, 6) positions for quadratic input (meshio ``triangle6``
         order: vertices then edge midpoints 01, 12, 20); used for degree 2
         geometry instead of ``project``.
+    geometry_degree
+        Degree of the geometry map (default: ``degree``).  A higher one
+        (superparametric) removes the geometric error that otherwise limits
+        odd degrees to order k+1.
     unwrap
         Optional map of per-element corner coordinates (3, Nel, 3) that makes
         them contiguous on periodic reference charts (the torus seam).
@@ -217,33 +224,47 @@ def curved_surface(
     points = np.asarray(points, dtype=float)
     triangles = np.asarray(triangles)
     element = lagrange_element(degree)
+    gdegree = degree if geometry_degree is None else geometry_degree
+    geometry_element = lagrange_element(gdegree)
     # scikit-fem needs a planar coordinate array for its topology bookkeeping;
     # the coordinates themselves are never used, the mapping carries geometry.
     mesh = skfem.MeshTri(np.ascontiguousarray(points[:, :2].T), np.ascontiguousarray(triangles.T))
-    dofs = skfem.assembly.Dofs(mesh, element)
-    t = dofs.element_dofs
     # scikit-fem sorts each triangle's vertices; use its ordering for the
     # affine reference map so local node positions match the global dofs.
     corners = points[mesh.t]  # (3 vertices, Nel, 3)
     if unwrap is not None:
         corners = unwrap(corners)
-    ref = element.doflocs  # (Nb, 2)
-    lam = np.column_stack([1.0 - ref[:, 0] - ref[:, 1], ref[:, 0], ref[:, 1]])  # (Nb, 3)
-    local = np.einsum("bv,ved->bed", lam, corners)  # (Nb, Nel, 3)
-    flat = np.zeros((dofs.N, 3))
-    flat[t.ravel()] = local.reshape(-1, 3)  # shared nodes get the same position from each element
-    if element_nodes is not None and degree == 2:
-        nodes = _quadratic_nodes(mesh, triangles, element_nodes, t, dofs.N)
+    gdofs = skfem.assembly.Dofs(mesh, geometry_element)
+    tg = gdofs.element_dofs
+    flat = _flat_positions(corners, geometry_element.doflocs, tg, gdofs.N)
+    if element_nodes is not None and gdegree == 2:
+        gnodes = _quadratic_nodes(mesh, triangles, element_nodes, tg, gdofs.N)
     elif project is not None:
-        nodes = np.asarray(project(flat), dtype=float)
+        gnodes = np.asarray(project(flat), dtype=float)
     else:
-        nodes = flat
-    mapping = SurfaceMapping(t, np.ascontiguousarray(nodes.T), element)
-    order = 2 * degree + 2 if quadrature_order is None else quadrature_order
+        gnodes = flat
+    mapping = SurfaceMapping(tg, np.ascontiguousarray(gnodes.T), geometry_element)
+    order = 2 * max(degree, gdegree) + 2 if quadrature_order is None else quadrature_order
     basis = skfem.CellBasis(mesh, element, mapping=mapping, intorder=order)
-    ends = nodes[t[:3]]  # vertex images, (3, Nel, 3)
+    t = basis.element_dofs
+    if gdegree == degree:
+        nodes = gnodes
+    else:  # positions of the solution's nodes on the curved geometry
+        local = mapping.F(element.doflocs.T)  # (3, Nel, Nb)
+        nodes = np.zeros((basis.N, 3))
+        nodes[t.T.ravel()] = local.transpose(1, 2, 0).reshape(-1, 3)
+    ends = gnodes[tg[:3]]  # vertex images, (3, Nel, 3)
     h = float(np.max(np.linalg.norm(ends - np.roll(ends, 1, axis=0), axis=2)))
-    return CurvedSurface(mesh=mesh, basis=basis, nodes=nodes, degree=degree, h=h)
+    return CurvedSurface(mesh=mesh, basis=basis, nodes=nodes, degree=degree, h=h, geometry_degree=gdegree)
+
+
+def _flat_positions(corners, doflocs, t, n):
+    """Positions of Lagrange nodes on the flat reference triangles, one per global dof."""
+    lam = np.column_stack([1.0 - doflocs[:, 0] - doflocs[:, 1], doflocs[:, 0], doflocs[:, 1]])  # (Nb, 3)
+    local = np.einsum("bv,ved->bed", lam, corners)  # (Nb, Nel, 3)
+    flat = np.zeros((n, 3))
+    flat[t.ravel()] = local.reshape(-1, 3)  # shared nodes get the same position from each element
+    return flat
 
 
 def _quadratic_nodes(mesh, triangles, element_nodes, t, n):
