@@ -197,7 +197,9 @@ def harmonic_projector(nodes, M, l_max: int, center=(0.0, 0.0, 0.0), radial_degr
     ------
     ValueError
         For inconsistent shapes, a negative ``l_max`` or ``radial_degree``, or
-        a node at the centre (its direction is undefined).
+        all nodes at the centre.  (A node at the centre of a ball has no
+        direction: there the harmonics with l > 0 are taken as 0, the limit of
+        the degree-l part of any regular function.)
 
     Warns
     -----
@@ -218,9 +220,9 @@ def harmonic_projector(nodes, M, l_max: int, center=(0.0, 0.0, 0.0), radial_degr
     l_max, radial_degree = int(l_max), int(radial_degree)
     offset = nodes - np.asarray(center, dtype=float)
     r = np.linalg.norm(offset, axis=1)
-    if np.any(r <= 1e-12 * max(float(r.max()), 1.0)):
-        raise ValueError("a node lies at the centre, where the direction (and so Y_lm) is undefined; "
-                         "move the centre or analyse a shell that excludes it")
+    at_center = r <= 1e-12 * max(float(r.max()), 1.0)
+    if np.all(at_center):
+        raise ValueError("every node lies at the centre: there is no direction to analyse")
     n_functions = (l_max + 1) ** 2 * (radial_degree + 1)
     if n_functions > _MAX_FUNCTIONS_PER_NODE * len(nodes):
         warnings.warn(f"{n_functions} analysing functions for {len(nodes)} nodes: the mesh cannot resolve "
@@ -228,6 +230,9 @@ def harmonic_projector(nodes, M, l_max: int, center=(0.0, 0.0, 0.0), radial_degr
                       "lower l_max or refine", MeshQualityWarning, stacklevel=3)
     theta, phi = angles(offset)
     Y = real_sph_harm_basis(l_max, theta, phi)
+    # A node at the centre (a full ball) has no direction; a regular function's
+    # degree-l part vanishes there like r^l, so harmonics with l > 0 are set to 0.
+    Y[at_center, 1:] = 0.0
     labels = np.array(harmonic_labels(l_max))
     if radial_degree == 0:
         B, radial_index, radial_gram = Y, np.zeros(len(labels), dtype=int), np.ones((1, 1))
