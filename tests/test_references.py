@@ -147,6 +147,26 @@ def test_small_cap_tends_to_the_flat_disc(rim, zeros):
     assert errors[2] < 2e-3
 
 
+@pytest.mark.parametrize("rim", ["dirichlet", "neumann"])
+def test_cap_with_a_pinhole_tends_to_the_sphere(rim):
+    # A hole of angular radius eps at the south pole perturbs the order-m sphere level
+    # l = m by O(eps^(2m)) (Y_mm ~ sin^m theta there); Dirichlet levels lie above the sphere's
+    # (domain monotonicity).  This exercises the Legendre evaluation near theta = pi, where
+    # hypergeometric series fail.  Observed coefficients: 3/2 (m = 1) and 15/4 (m = 2).
+    shifts = {1: [], 2: []}
+    for eps in (0.04, 0.02, 0.01):
+        lam, nu, m = ref.cap_eigenvalues(np.pi - eps, 12, rim, return_labels=True)
+        for order in (1, 2):
+            shifts[order].append(lam[m == order][0] - order * (order + 1))
+    for order, expected_ratio in ((1, 4.0), (2, 16.0)):
+        s = np.array(shifts[order])
+        if rim == "dirichlet":
+            assert np.all(s > 0)
+        ratios = s[:-1] / s[1:]
+        # 3 %: the next term is O(eps^2) relative (eps^2 = 1.6e-3 at most here)
+        assert np.allclose(ratios, expected_ratio, rtol=0.03)
+
+
 def test_cap_rejects_bad_arguments():
     for bad in (0.0, np.pi, -1.0):
         with pytest.raises(ValueError):
@@ -374,6 +394,17 @@ def test_finite_well_mass_jump_residual_and_direction():
     # min-max: the kinetic term (hbar^2/2m) |grad psi|^2 falls as mass_out grows, so every
     # level must fall too
     assert energies[0.3] > energies[1.0] > energies[3.0]
+
+
+def test_finite_well_finds_a_state_just_below_threshold():
+    # z0 = pi/2 + 0.02: Griffiths' odd condition has one root with k a just below z0,
+    # i.e. E close to V0; the scan must reach the threshold itself to see it
+    z0 = np.pi / 2 + 0.02
+    E = ref.finite_spherical_well(0, z0**2, 1.0, 1.0, 1.0)
+    assert E.shape == (1,)
+    assert 0.99 * z0**2 < E[0] < z0**2
+    k, kappa = np.sqrt(E[0]), np.sqrt(z0**2 - E[0])
+    assert -1 / np.tan(k) == pytest.approx(kappa / k, rel=1e-8)  # kappa is small: looser than 1e-10
 
 
 def test_finite_well_shallow_binds_nothing():
