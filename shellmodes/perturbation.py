@@ -28,7 +28,8 @@ a generalised eigenproblem whose unperturbed eigenspace for degree l is
 spanned by Y_lm, m = -l..l, with eigenvalue l(l+1).  Degenerate
 Rayleigh-Schroedinger theory (Messiah, *Quantum Mechanics*, vol. II,
 ch. XVI sect. 1; Sakurai and Napolitano, *Modern Quantum Mechanics*,
-sect. 5.2) diagonalises the perturbation inside that space: with
+sect. 5.2; chapter numbers recalled from memory) diagonalises the
+perturbation inside that space: with
 F_mm' = int f Y_lm Y_lm' dOmega and F c = mu c,
 
     lambda R^2 = l(l+1) / (1 + 2 eps mu) = l(l+1) (1 - 2 eps mu) + O(eps^2).
@@ -46,7 +47,8 @@ cos(theta), and a trigonometric polynomial of degree <= l1 + l2 + l3 in phi.
 Gauss-Legendre with n nodes in cos(theta) is exact to degree 2n - 1, and the
 uniform rule with n_phi points exact for trigonometric degree < n_phi
 (Abramowitz and Stegun 25.4.29; Davis and Rabinowitz, *Methods of Numerical
-Integration*, sect. 2.9 for the periodic trapezoid rule), so
+Integration*, sect. 2.9 for the periodic trapezoid rule; section numbers
+recalled from memory), so
 :func:`sphere_quadrature` of total degree L integrates these exactly.  The
 tests compare with the Wigner 3j closed form (DLMF 34.3.22 and 34.2.4).
 """
