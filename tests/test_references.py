@@ -122,6 +122,34 @@ def test_cap_neumann_roots_are_stationary_points_of_lpmv(theta0):
         assert abs(derivative) < 1e-9 * scale
 
 
+def test_cap_dirichlet_misses_no_root_of_lpmv():
+    theta0 = 1.3
+    lam, nu, m = ref.cap_eigenvalues(theta0, 60, "dirichlet", return_labels=True)
+    assert lam.shape == (60,)
+    top = nu[-1]
+    for order in range(6):
+        # lpmv's P_nu^m vanishes identically at integer nu < m, so count only nu > m - 1/2
+        # (no Dirichlet root lies below nu = m, asserted in the residual test)
+        grid = np.linspace(order - 0.5 if order else 1e-3, top, 20_001)[:-1]
+        y = lpmv(order, grid, np.cos(theta0))
+        dense = np.count_nonzero(np.sign(y[:-1]) * np.sign(y[1:]) < 0)
+        assert np.count_nonzero((m == order) & (nu < top)) == dense
+
+
+@pytest.mark.parametrize("rim, sign", [("dirichlet", -1), ("neumann", 1)])
+def test_cap_counts_follow_two_term_weyl_law(rim, sign):
+    # N(lam) ~ A lam / (4 pi) -+ L sqrt(lam) / (4 pi) (Weyl's law with the boundary term,
+    # Dirichlet minus, Neumann plus; A, L the cap's area and rim length)
+    theta0, count = 1.3, 300
+    lam = ref.cap_eigenvalues(theta0, count, rim)
+    assert lam.shape == (count,)
+    area, rim_length = 2 * np.pi * (1 - np.cos(theta0)), 2 * np.pi * np.sin(theta0)
+    weyl = area * lam[-1] / (4 * np.pi) + sign * rim_length * np.sqrt(lam[-1]) / (4 * np.pi)
+    # observed |N - weyl| = 0.3 (Dirichlet) and 2.1 (Neumann); 1.5 % of N allows the o(sqrt lam)
+    # remainder, while a missed order m would remove tens of values
+    assert abs(count - weyl) < 0.015 * count
+
+
 def test_cap_labels_come_in_cos_sin_pairs():
     lam, nu, m = ref.cap_eigenvalues(1.1, 41, "dirichlet", return_labels=True)
     assert lam.shape == m.shape == (41,)
