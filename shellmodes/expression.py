@@ -54,7 +54,7 @@ def compile_expression(text: str, variables: tuple[str, ...] = ("x", "y", "z", "
 
     Examples
     --------
-    >>> f = compile_expression("2*x + sin(pi*y)")
+    >>> f = compile_expression("2*x + sin(pi*y)", variables=("x", "y", "z"))
     >>> float(f(x=1.0, y=0.5, z=0.0))
     3.0
     """

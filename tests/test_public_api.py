@@ -1,0 +1,24 @@
+"""Every public name imports, and the package docstring example runs."""
+
+import doctest
+
+import shellmodes
+
+
+def test_all_names_exist():
+    assert len(shellmodes.__all__) == len(set(shellmodes.__all__))
+    for name in shellmodes.__all__:
+        assert hasattr(shellmodes, name), name
+
+
+def test_docstring_examples():
+    import shellmodes.case
+    import shellmodes.expression
+    import shellmodes.harmonics
+    import shellmodes.solve
+    import shellmodes.units
+
+    for module in (shellmodes, shellmodes.case, shellmodes.expression, shellmodes.harmonics, shellmodes.solve,
+                   shellmodes.units):
+        failures, tried = doctest.testmod(module)
+        assert failures == 0, module.__name__
