@@ -37,7 +37,7 @@ def real_sph_harm(l: int, m: int, theta: np.ndarray, phi: np.ndarray) -> np.ndar
     Examples
     --------
     >>> import numpy as np
-    >>> float(real_sph_harm(0, 0, np.array([0.3]), np.array([1.0]))[0]) == 0.5 / np.sqrt(np.pi)
+    >>> bool(np.isclose(real_sph_harm(0, 0, np.array([0.3]), np.array([1.0]))[0], 0.5 / np.sqrt(np.pi)))
     True
     """
     if abs(m) > l or l < 0:
