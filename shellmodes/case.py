@@ -194,7 +194,50 @@ class Modes(_Table):
         return data
 
 
+class SweepParameter(_Table):
+    """One swept case key: a list of values, or an evenly spaced range."""
+
+    key: str = Field(description="dotted case key, e.g. 'surface.deformation[0].amplitude' or 'surface.radius'")
+    values: tuple[float, ...] | None = Field(None, min_length=1, description="the values, in order")
+    start: float | None = Field(None, description="first value of an evenly spaced range")
+    stop: float | None = Field(None, description="last value of the range (included)")
+    steps: int | None = Field(None, ge=1, le=10000, description="number of values in the range")
+
+    @model_validator(mode="after")
+    def _values_or_range(self):
+        ranged = (self.start, self.stop, self.steps)
+        if self.values is None and any(v is None for v in ranged):
+            raise ValueError("give values, or start, stop and steps")
+        if self.values is not None and any(v is not None for v in ranged):
+            raise ValueError("give values or a range (start, stop, steps), not both")
+        return self
+
+    def resolved(self) -> tuple[float, ...]:
+        if self.values is not None:
+            return tuple(self.values)
+        if self.steps == 1:
+            return (float(self.start),)
+        return tuple(float(self.start + (self.stop - self.start) * i / (self.steps - 1)) for i in range(self.steps))
+
+
+class Sweep(_Table):
+    """Solve the case once per step while one or more keys change together."""
+
+    parameters: tuple[SweepParameter, ...] = Field(min_length=1, description="keys swept together, equal lengths")
+    workers: int = Field(2, ge=1, le=256, description="parallel local worker processes")
+    scheduler: str | None = Field(None, description="address of a running Dask distributed scheduler")
+
+    @model_validator(mode="after")
+    def _equal_lengths(self):
+        lengths = {len(p.resolved()) for p in self.parameters}
+        if len(lengths) > 1:
+            raise ValueError(f"swept parameters must have equal numbers of values, got {sorted(lengths)}")
+        return self
+
+
 class Output(_Table):
+    """Which files to write besides spectrum.json, spectrum.csv and run.log."""
+
     vtu: bool = Field(True, description="write modes.vtu with every mode as a point field")
 
 
@@ -209,6 +252,7 @@ class Case(_Table):
     potential: Potential | None = None
     modes: Modes = Modes()
     output: Output = Output()
+    sweep: Sweep | None = None
     source: str = Field("<case>", exclude=True, description="where the case came from (not a TOML key)")
 
     @model_validator(mode="after")
@@ -229,7 +273,7 @@ class Case(_Table):
 
 
 CASE_TABLES = {"surface": Surface, "resolution": Resolution, "particle": Particle, "units": Units,
-               "potential": Potential, "modes": Modes, "output": Output}
+               "potential": Potential, "modes": Modes, "output": Output, "sweep": Sweep}
 
 
 def _allowed_keys(loc: tuple) -> list[str]:

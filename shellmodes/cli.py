@@ -7,6 +7,8 @@ line on stderr, no traceback), 1 internal failure.
 from __future__ import annotations
 
 import argparse
+import importlib
+import importlib.util
 import json
 import logging
 import sys
@@ -16,6 +18,10 @@ from pathlib import Path
 from .errors import ShellmodesError
 
 __all__ = ["main"]
+
+#: modules that add a sub-command: each defines ``add_command(subparsers)``,
+#: which creates its parser and sets ``func`` to a function(args) -> exit code
+_PLUGIN_COMMANDS = ("convergence", "sweep", "report")
 
 
 def _default_out(case_path: Path) -> Path:
@@ -85,6 +91,11 @@ def _parser() -> argparse.ArgumentParser:
     s.set_defaults(func=_cmd_schema)
     k = sub.add_parser("keys", help="print every case-file key with its meaning (Markdown)")
     k.set_defaults(func=_cmd_keys)
+    for module in _PLUGIN_COMMANDS:
+        if importlib.util.find_spec(f"shellmodes.{module}") is None:
+            continue
+        mod = importlib.import_module(f"shellmodes.{module}")
+        mod.add_command(sub)
     return p
 
 

@@ -59,7 +59,10 @@ def case_keys_markdown() -> str:
         out += ["", f"## [surface] with shape = \"{shape}\"", "", "| key | type | default | meaning |",
                 "|---|---|---|---|"]
         out += [f"| `surface.{k}` | {t} | {d} | {m} |" for k, t, d, m in _rows("", cls)]
-    for title, cls in (("surface.deformation[] entries", DeformationTerm), ("surface.snap", SnapTarget)):
+    from .case import SweepParameter
+
+    for title, cls in (("surface.deformation[] entries", DeformationTerm), ("surface.snap", SnapTarget),
+                       ("sweep.parameters[] entries", SweepParameter)):
         out += ["", f"## {title}", "", "| key | type | default | meaning |", "|---|---|---|---|"]
         out += [f"| `{k}` | {t} | {d} | {m} |" for k, t, d, m in _rows("", cls)]
     for table, ann in CASE_TABLES.items():
