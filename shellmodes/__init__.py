@@ -12,8 +12,16 @@ Pipeline: case -> shape -> curved mesh -> problem -> solve -> spectrum -> output
 
 from ._version import __version__
 from .case import Case, case_from_dict, case_schema, load_case
-from .errors import (CaseError, DoubtfulResultWarning, GeometryError, MeshError, MeshQualityWarning,
-                     MultipletCutWarning, ShellmodesError, SolverError)
+from .errors import (
+                     CaseError,
+                     DoubtfulResultWarning,
+                     GeometryError,
+                     MeshError,
+                     MeshQualityWarning,
+                     MultipletCutWarning,
+                     ShellmodesError,
+                     SolverError,
+)
 from .harmonics import real_sph_harm
 from .outputs import write_outputs
 from .problem import SurfaceProblem, assemble_surface

@@ -13,7 +13,7 @@ import difflib
 import math
 import sys
 from pathlib import Path
-from typing import Annotated, Any, Literal, Union
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
@@ -110,8 +110,7 @@ class MeshSurface(_Table):
 
 
 Surface = Annotated[
-    Union[SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
-          MeshSurface],
+    SphereSurface | EllipsoidSurface | SpheroidSurface | StarSurface | TorusSurface | CapSurface | MeshSurface,
     Field(discriminator="shape"),
 ]
 
@@ -370,7 +369,10 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
     try:
         return Case.model_validate({**data, "source": source})
     except ValidationError as exc:
-        key, message = _format_error(exc.errors()[0])
+        errors = exc.errors()
+        # a typo'd key usually also leaves a required key missing: report the typo first
+        first = next((e for e in errors if e["type"] == "extra_forbidden"), errors[0])
+        key, message = _format_error(first)
         raise CaseError(message, source, key or None) from None
 
 

@@ -50,8 +50,17 @@ def case_keys_markdown() -> str:
     out += ["## top level", "", "| key | type | default | meaning |", "|---|---|---|---|"]
     out += [f"| `{k}` | {t} | {d} | {m} |" for k, t, d, m in _rows("", Case)
             if k not in CASE_TABLES]
-    from .case import (CapSurface, DeformationTerm, EllipsoidSurface, MeshSurface, SnapTarget, SphereSurface,
-                       SpheroidSurface, StarSurface, TorusSurface)
+    from .case import (
+        CapSurface,
+        DeformationTerm,
+        EllipsoidSurface,
+        MeshSurface,
+        SnapTarget,
+        SphereSurface,
+        SpheroidSurface,
+        StarSurface,
+        TorusSurface,
+    )
 
     for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
                 MeshSurface):

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import ast
 import operator
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 

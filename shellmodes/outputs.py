@@ -55,8 +55,9 @@ def _write_json(spectrum, folder: Path):
 def _write_csv(spectrum, folder: Path):
     rows = spectrum.modes_table()
     buf = io.StringIO()
-    writer = csv.DictWriter(buf, fieldnames=["index", "energy", "eigenvalue", "multiplet", "l", "residual"],
-                            lineterminator="\n")
+    names = ["index", "energy", "eigenvalue", "multiplet", "l", "residual"]
+    names += [k for k in ("dominant_l", "l_weight", "mean_L2", "abs_m") if rows and k in rows[0]]
+    writer = csv.DictWriter(buf, fieldnames=names, lineterminator="\n")
     writer.writeheader()
     for row in rows:
         writer.writerow({**row, "l": "" if row["l"] is None else row["l"]})

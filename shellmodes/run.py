@@ -176,7 +176,7 @@ def run_case(case: Case) -> Spectrum:
         except ValueError as exc:
             raise CaseError(str(exc), case.source, "modes.backend") from None
         except ShellmodesError as exc:
-            raise CaseError(str(exc), case.source, "modes") from None
+            raise CaseError(str(exc), case.source, "modes.count" if modes.count else "modes.below") from None
     for w in caught:
         warnings.warn(w.message, w.category, stacklevel=2)
     lam = pairs.lam
@@ -184,6 +184,7 @@ def run_case(case: Case) -> Spectrum:
     radius_eq2 = problem.area / (4 * np.pi) if (shape.closed and shape.sphere_like) else None
     multiplets = build_multiplets(lam, energies, modes.multiplet_tolerance, problem.spectral_scale, radius_eq2)
     vectors = problem.expand(pairs.vectors)
+    angular = _angular(shape, surface, problem, vectors, multiplets)
     mesh_info = {"shape": shape.parameters(), "degree": surface.degree,
                  "geometry_degree": surface.geometry_degree, "elements": int(surface.mesh.nelements),
                  "dofs": int(surface.ndofs), "free_dofs": int(problem.ndofs), "h": surface.h,
@@ -213,4 +214,22 @@ def run_case(case: Case) -> Spectrum:
     export = {"points": surface.nodes, "cells": _export_cells(surface)}
     log.info("%s", lines[2])
     return Spectrum(eigenvalues=lam, energies=energies, residuals=pairs.residuals, vectors=vectors,
-                    nodes=surface.nodes, multiplets=multiplets, info=info, export=export)
+                    nodes=surface.nodes, multiplets=multiplets, info=info, export=export, angular=angular)
+
+
+def _angular(shape, surface, problem, vectors, multiplets):
+    """Angular content of each mode on sphere-like closed surfaces (radial map to the unit sphere)."""
+    if not (shape.closed and shape.sphere_like) or vectors.shape[1] == 0:
+        return None
+    from .angular import angular_content
+
+    top = max((m.l for m in multiplets if m.l is not None), default=0)
+    # (l_max + 1)^2 harmonics must stay well below the number of nodes to be resolved
+    resolvable = int(np.sqrt(surface.ndofs / 8.0)) - 1
+    l_max = max(0, min(top + 3, resolvable))
+    axisymmetric = shape.name in ("sphere", "spheroid") or (
+        shape.name == "star" and all(m == 0 for _, m, _ in shape.deformation))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # l_max is chosen within the resolvable range above
+        return angular_content(surface.nodes, vectors, problem.M, l_max, center=shape.center,
+                               axisymmetric=axisymmetric)

@@ -88,6 +88,7 @@ class Spectrum:
     multiplets: list[Multiplet]
     info: dict = field(default_factory=dict)
     export: dict = field(default_factory=dict, repr=False)
+    angular: object | None = field(default=None, repr=False)
 
     @property
     def mode_multiplet(self) -> np.ndarray:
@@ -105,10 +106,20 @@ class Spectrum:
         return labels
 
     def modes_table(self) -> list[dict]:
+        """One record per mode; with angular content also the dominant l, its weight and <L^2>."""
         mult, ls = self.mode_multiplet, self.mode_l
-        return [{"index": i, "energy": float(self.energies[i]), "eigenvalue": float(self.eigenvalues[i]),
+        rows = [{"index": i, "energy": float(self.energies[i]), "eigenvalue": float(self.eigenvalues[i]),
                  "multiplet": int(mult[i]), "l": ls[i], "residual": float(self.residuals[i])}
                 for i in range(len(self.eigenvalues))]
+        a = self.angular
+        if a is not None:
+            for i, row in enumerate(rows):
+                row["dominant_l"] = int(a.dominant_l[i])
+                row["l_weight"] = float(a.dominant_weight[i])
+                row["mean_L2"] = float(a.mean_L2[i])
+                if a.abs_m is not None:
+                    row["abs_m"] = int(a.abs_m[i])
+        return rows
 
     def summary(self, max_rows: int = 40) -> str:
         """A compact terminal table, one row per multiplet."""

@@ -9,7 +9,7 @@ available on this machine.
 
 from __future__ import annotations
 
-from typing import Callable
+from collections.abc import Callable
 
 __all__ = ["BACKENDS", "register", "get_backend", "available_backends"]
 

@@ -16,7 +16,7 @@ import numpy as np
 
 __all__ = ["Shape", "SHAPES", "register"]
 
-SHAPES: dict[str, type["Shape"]] = {}
+SHAPES: dict[str, type[Shape]] = {}
 
 
 def register(cls):
