@@ -6,6 +6,9 @@ the spectrum, so ``K - sigma M`` is positive definite even when K is singular
 vector is fixed, so results are reproducible.  The returned set never ends
 inside a multiplet: it is extended to the next relative gap.  Every pair
 carries its residual and the set is M-orthonormalised and checked.
+Large problems may use the blocked shift-invert iteration of
+:mod:`shellmodes.eigen_block` instead of Lanczos (``method``), from the
+same factor, shift and checks.
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as sla
 
 from .backends import get_backend
+from .eigen_block import block_lowest
 from .errors import DoubtfulResultWarning, SolverError
 
 __all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals"]
@@ -29,6 +33,9 @@ log = logging.getLogger(__name__)
 
 #: below this size a dense generalized eigensolver is cheaper and exact
 DENSE_LIMIT = 600
+#: from this size on ``method="auto"`` uses the blocked iteration (measured: benchmarks/README.md)
+BLOCK_THRESHOLD = 200_000
+METHODS = ("auto", "lanczos", "block")
 
 
 @dataclass(frozen=True, eq=False)
@@ -43,11 +50,12 @@ class Eigenpairs:
     backend: str
     requested: int | None
     timings: dict = field(default_factory=dict)
+    method: str = "lanczos"
 
     def __repr__(self):
         lows = ", ".join(f"{v:.6g}" for v in self.lam[:4])
         return (f"Eigenpairs(n={len(self.lam)}, lam=[{lows}{', ...' if len(self.lam) > 4 else ''}], "
-                f"max_residual={np.max(self.residuals):.2e}, backend={self.backend!r})")
+                f"max_residual={np.max(self.residuals):.2e}, backend={self.backend!r}, method={self.method!r})")
 
 
 def relative_residuals(K, M, lam, U, floor: float) -> np.ndarray:
@@ -106,7 +114,7 @@ def _shift_invert(K, M, k, sigma, factorize, v0):
 
 def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, lower_bound: float = 0.0,
                  scale: float = 1.0, backend: str = "auto", multiplet_tolerance: float = 1e-4,
-                 residual_limit: float = 1e-6) -> Eigenpairs:
+                 residual_limit: float = 1e-6, method: str = "auto") -> Eigenpairs:
     """Lowest ``count`` eigenpairs of K u = lam M u (or all with lam < ``below``).
 
     Parameters
@@ -128,6 +136,10 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
         Relative gap used to extend the set to a whole multiplet.
     residual_limit
         Residuals above this raise a :class:`DoubtfulResultWarning`.
+    method
+        ``"lanczos"`` (ARPACK), ``"block"`` (:mod:`shellmodes.eigen_block`) or
+        ``"auto"``: block from :data:`BLOCK_THRESHOLD` degrees of freedom on.
+        Problems below :data:`DENSE_LIMIT` are solved densely either way.
 
     Returns
     -------
@@ -151,10 +163,15 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     if count is not None and count > n:
         raise SolverError(f"{count} modes were requested but the discretisation has only {n} "
                           "degrees of freedom; refine the mesh or ask for fewer modes")
+    if method not in METHODS:
+        raise ValueError(f"unknown eigen-iteration {method!r}; allowed: {', '.join(METHODS)}")
     K = sp.csr_matrix(K)
     M = sp.csr_matrix(M)
     sigma = float(lower_bound - scale)
     name, factorize = get_backend(backend) if n > DENSE_LIMIT else ("dense", None)
+    if method == "auto":
+        method = "block" if n >= BLOCK_THRESHOLD else "lanczos"
+    solve = None  # the block path factorizes once and keeps the factor across extensions
     rng = np.random.default_rng(20261202)
     v0 = rng.standard_normal(n)
     t0 = time.perf_counter()
@@ -163,10 +180,16 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     while True:
         if name == "dense" or k >= n - 1:
             lam, U = _dense(K, M, min(k, n))
-            name_used = "dense"
+            name_used, method_used = "dense", "dense"
+        elif method == "block" and 4 * k < n:
+            if solve is None:
+                solve = factorize((K - sigma * M).tocsc())
+            found = block_lowest(K, M, k, sigma, solve, gap=multiplet_tolerance, scale=scale)
+            lam, U = found.lam, found.vectors
+            name_used, method_used = name, "block"
         else:
             lam, U = _shift_invert(K, M, k, sigma, factorize, v0)
-            name_used = name
+            name_used, method_used = name, "lanczos"
         groups = group_multiplets(lam, multiplet_tolerance, scale)
         if below is not None:
             inside = np.flatnonzero(lam < below)
@@ -189,7 +212,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     U, orth = _m_orthonormalise(U, M)
     residuals = relative_residuals(K, M, lam, U, floor=abs(sigma) if sigma else 1.0)
     elapsed = time.perf_counter() - t0
-    log.info("solved %d modes with %s in %.2f s", keep, name_used, elapsed)
+    log.info("solved %d modes with %s (%s) in %.2f s", keep, name_used, method_used, elapsed)
     if count is not None and keep > count:
         log.info("extended %d requested modes to %d to complete the last multiplet", count, keep)
     worst = float(np.max(residuals)) if keep else 0.0
@@ -198,4 +221,4 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
                       f"(mode {int(np.argmax(residuals))}); do not trust these modes without checking",
                       DoubtfulResultWarning, stacklevel=2)
     return Eigenpairs(lam=lam, vectors=U, residuals=residuals, orthogonality=orth, shift=sigma,
-                      backend=name_used, requested=count, timings={"eigensolve": elapsed})
+                      backend=name_used, requested=count, timings={"eigensolve": elapsed}, method=method_used)

@@ -1,0 +1,292 @@
+"""Blocked shift-invert eigen-iteration for large problems.
+
+The lowest eigenpairs of K u = lam M u from one Cholesky factor of
+A = K - sigma M (sigma strictly below the spectrum).  It is a block Davidson
+iteration whose correction equation is solved exactly: every step applies
+A^-1 to a block of residuals r = K x - theta M x of the current Ritz
+vectors, which adds x + (sigma - theta) A^-1 M x, so the search space grows
+as a block Krylov space of (A^-1 M) does, the operator of shift-invert
+Lanczos (Morgan and Scott, SIAM J. Sci. Stat. Comput. 7 (1986) 817; Saad,
+*Numerical Methods for Large Eigenvalue Problems*, 2nd ed., SIAM 2011,
+sections 8.3 and 11.2).  The residual of a nearly converged vector is small
+and A^-1 r is nearly orthogonal to the space, so adding it loses no digits,
+which adding A^-1 M x would.
+
+Everything but the triangular solves is BLAS-3 over blocks: block classical
+Gram-Schmidt in the M inner product with a second pass when the first one
+cancels (Kahan's "twice is enough", Parlett, *The Symmetric Eigenvalue
+Problem*, SIAM 1998, section 6.9), SVQB inside a block (Stathopoulos and Wu,
+SIAM J. Sci. Comput. 23 (2002) 2165), and Rayleigh-Ritz of (K, M) on the
+space.  Single-vector Lanczos (ARPACK) spends most of its time in
+matrix-vector Gram-Schmidt on large surfaces (DESIGN.md); blocking turns
+that work into matrix-matrix products and lets the factor solve many
+right-hand sides per pass.
+
+The active block is the lowest Ritz vectors not yet converged and always ends
+at the widest gap between Ritz values near the nominal block size, so a
+multiplet is never split between two blocks.  Converged vectors are locked:
+they stay in the space (Rayleigh-Ritz keeps improving them) but are not
+expanded any more.  When the space is full it is restarted with the lowest
+Ritz vectors (thick restart).  The start block is random with a fixed seed,
+so results are reproducible.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg as la
+
+from .errors import SolverError
+
+__all__ = ["BlockResult", "block_lowest", "default_block_size"]
+
+log = logging.getLogger(__name__)
+
+#: relative residual every returned pair reaches (or the rounding floor, whichever is larger)
+TOLERANCE = 1e-11
+#: a column whose M-norm falls below this fraction in Gram-Schmidt is projected out again
+_REORTHOGONALISE = 0.5
+#: a block is orthonormal when its M inner products differ from the identity by less than this
+_ORTHOGONAL = 1e-13
+#: new columns keeping less than this fraction of their M-norm after orthogonalisation are dependent
+_DEPENDENT = 1e-10
+#: rounding floor of the relative residual, in units of lam_max / max(|lam|, |sigma|)
+_FLOOR = 64 * np.finfo(float).eps
+
+
+@dataclass(frozen=True, eq=False)
+class BlockResult:
+    """Converged eigenpairs (ascending, M-orthonormal) and what it took."""
+
+    lam: np.ndarray
+    vectors: np.ndarray
+    residuals: np.ndarray
+    next_ritz_value: float
+    stats: dict = field(default_factory=dict)
+
+    def __repr__(self):
+        return (f"BlockResult(n={len(self.lam)}, max_residual={np.max(self.residuals):.2e}, "
+                f"iterations={self.stats.get('iterations')}, solves={self.stats.get('solves')})")
+
+
+def default_block_size(count: int) -> int:
+    """Nominal block size for ``count`` wanted modes.
+
+    Large enough to hold a whole multiplet of a sphere-like spectrum up to that
+    count (2l + 1 modes with l ~ sqrt(count)), small enough that the space holds
+    several blocks; measured choices in benchmarks/README.md.
+    """
+    return int(np.clip(2 * np.ceil(np.sqrt(count)) + 4, 8, 48))
+
+
+def _project_out(W, V, M):
+    """W - V C with C = V^T M W, twice when the first pass cancels; returns W, M W and the total C."""
+    MW = M @ W
+    C = np.zeros((V.shape[1], W.shape[1]))
+    if not V.shape[1]:
+        return W, MW, C
+    before = np.sqrt(np.maximum(np.einsum("ij,ij->j", W, MW), 0.0))
+    for _ in range(3):
+        D = V.T @ MW
+        W -= V @ D
+        MW = M @ W
+        C += D
+        after = np.sqrt(np.maximum(np.einsum("ij,ij->j", W, MW), 0.0))
+        if np.all(after >= _REORTHOGONALISE * before):
+            break
+        before = after
+    return W, MW, C
+
+
+def _orthonormal_basis(W, MW, V, M, rng):
+    """An M-orthonormal basis Q of span(W), M-orthogonal to V, and R = Q^T M W (so W = Q R).
+
+    SVQB on unit-normalised columns (Stathopoulos and Wu 2002); directions
+    lost to rank deficiency are replaced by random ones so the block keeps its
+    size (their rows of R are zero).
+    """
+    b = W.shape[1]
+    norms = np.sqrt(np.maximum(np.einsum("ij,ij->j", W, MW), 0.0))
+    scale = np.where(norms > 0, 1.0 / np.maximum(norms, 1e-300), 0.0)
+    Ws, MWs = W * scale, MW * scale
+    G = Ws.T @ MWs
+    d, P = np.linalg.eigh(0.5 * (G + G.T))
+    keep = d > _DEPENDENT * max(float(d[-1]), 1e-300)
+    S = P[:, keep] / np.sqrt(d[keep])
+    Q, MQ = Ws @ S, MWs @ S
+    for _ in range(2):  # one more pass: scaling up cancelled columns scales up their error along V
+        if V.shape[1]:
+            Q -= V @ (V.T @ MQ)
+            MQ = M @ Q
+        G = Q.T @ MQ
+        L = la.cholesky(0.5 * (G + G.T), lower=True)
+        Q = la.solve_triangular(L, Q.T, lower=True).T
+        MQ = la.solve_triangular(L, MQ.T, lower=True).T
+        if np.max(np.abs(Q.T @ MQ - np.eye(Q.shape[1]))) < _ORTHOGONAL:
+            break
+    if Q.shape[1] < b:
+        filler = rng.standard_normal((W.shape[0], b - Q.shape[1]))
+        filler, mfill, _ = _project_out(filler, np.hstack([V, Q]), M)
+        fq, mfq, _ = _orthonormal_basis(filler, mfill, np.hstack([V, Q]), M, rng)[:3]
+        Q, MQ = np.hstack([Q, fq]), np.hstack([MQ, mfq])
+    return Q, MQ, MQ.T @ W
+
+
+def _residuals(K, M, X, lam, floor_scale):
+    """Relative residuals ||K x - lam M x|| / (max(|lam|, floor) ||M x||), the measure of :mod:`shellmodes.solve`."""
+    MX = M @ X
+    R = K @ X - MX * lam
+    return np.linalg.norm(R, axis=0) / (np.maximum(np.abs(lam), floor_scale) * np.linalg.norm(MX, axis=0))
+
+
+def _keep_count(lam, wanted, limit, gap):
+    """How many Ritz vectors a restart keeps: at least ``wanted``, at most ``limit``, ending at a gap."""
+    if limit <= wanted:
+        return limit
+    ends = np.arange(wanted, limit + 1)
+    rel = (lam[np.minimum(ends, len(lam) - 1)] - lam[ends - 1]) / np.maximum(np.abs(lam[ends - 1]), gap)
+    rel[ends >= len(lam)] = np.inf
+    return int(ends[np.argmax(rel)])
+
+
+def block_lowest(K, M, count: int, sigma: float, solve: Callable, *, gap: float = 1e-4, scale: float = 1.0,
+                 block: int | None = None, basis: int | None = None, tolerance: float = TOLERANCE,
+                 seed: int = 20261202, max_solves: int | None = None) -> BlockResult:
+    """Lowest ``count`` (or more) eigenpairs of K u = lam M u by blocked shift-invert Krylov-Schur.
+
+    Parameters
+    ----------
+    K, M
+        Symmetric sparse matrices, M positive definite, K - sigma M positive definite.
+    count
+        Number of lowest pairs wanted; more are returned when the last wanted one
+        is followed by a relative gap smaller than ``gap`` (an unfinished multiplet).
+    sigma
+        The shift, strictly below the spectrum.
+    solve
+        ``solve(B)`` returns (K - sigma M)^-1 B for an (n, b) block
+        (a :mod:`shellmodes.backends` factorization).
+    gap, scale
+        Relative gap, on the scale max(|lam|, ``scale``), that must follow the last returned pair.
+    block
+        Block size (default :func:`default_block_size`); larger than the largest
+        multiplicity wanted, since a block Krylov space holds at most ``block``
+        vectors of one exactly degenerate eigenvalue.
+    basis
+        Largest number of basis vectors before a thick restart
+        (default about 2.2 count + 2 block, capped at n).
+    tolerance
+        Relative residual ||K u - lam M u|| / (max(|lam|, |sigma|) ||M u||) every
+        returned pair must reach; raised to the rounding floor of the problem
+        (64 eps lam_max / max(|lam|, |sigma|)) when that is larger.
+    seed
+        Seed of the random start block.
+    max_solves
+        Give up (:class:`~shellmodes.errors.SolverError`) after this many
+        right-hand sides (default 20 count + 400).
+
+    Returns
+    -------
+    BlockResult
+
+    Examples
+    --------
+    >>> import scipy.sparse as sp
+    >>> from shellmodes.backends import get_backend
+    >>> n = 800
+    >>> K = sp.diags(np.arange(n, dtype=float)).tocsr(); M = sp.identity(n, format="csr")
+    >>> solve = get_backend("splu")[1](K + M)
+    >>> block_lowest(K, M, 5, -1.0, solve).lam[:5].round(8).tolist()
+    [0.0, 1.0, 2.0, 3.0, 4.0]
+    """
+    n = K.shape[0]
+    if count > n:
+        raise SolverError(f"{count} modes were requested from {n} degrees of freedom")
+    b = min(block or default_block_size(count), max(1, n // 4))
+    m_max = min(n - b, basis or int(2.2 * count) + 2 * b)
+    if m_max < count + b:
+        raise SolverError(f"a basis of {m_max} vectors cannot hold {count} modes in blocks of {b}; "
+                          "use the dense or Lanczos path for so small a problem")
+    max_solves = max_solves or 20 * count + 400
+    floor_scale = abs(sigma) if sigma else 1.0
+    # ||K u|| / ||M u|| reaches about the largest eigenvalue: row sums against the mass diagonal
+    lam_top = float(np.max(np.asarray(abs(K).sum(axis=1)).ravel() / np.maximum(M.diagonal(), 1e-300)))
+    t0 = time.perf_counter()
+    stats = {"iterations": 0, "solves": 0, "restarts": 0, "block": b, "basis": m_max,
+             "time_solve": 0.0, "time_orthogonalise": 0.0, "time_restart": 0.0}
+    rng = np.random.default_rng(seed)
+    V = np.empty((n, m_max + b))
+    H = np.zeros((m_max + b, m_max + b))  # V^T M (A^-1 M) V, the shift-inverted operator projected
+    S = np.zeros((m_max + b, b))  # A^-1 M V = V H + Q S^T
+    m = 0
+    Q, _, _ = _project_out(rng.standard_normal((n, b)), V[:, :0], M)
+    Q, _, _ = _orthonormal_basis(Q, M @ Q, V[:, :0], M, rng)
+    tol_t = 1e-13  # ARPACK's tolerance on ||A^-1 M x - mu x||_M / mu, as in the Lanczos path
+    while True:
+        V[:, m:m + b] = Q
+        m_old, m = m, m + b
+        ts = time.perf_counter()
+        W = solve(np.ascontiguousarray(M @ Q))
+        stats["time_solve"] += time.perf_counter() - ts
+        stats["solves"] += b
+        tg = time.perf_counter()
+        W, MW, C = _project_out(W, V[:, :m], M)
+        H[:m, m_old:m] = C
+        H[m_old:m, :m] = C.T
+        H[m_old:m, m_old:m] = 0.5 * (C[m_old:m] + C[m_old:m].T)
+        Q, _, R = _orthonormal_basis(W, MW, V[:, :m], M, rng)
+        S[:m] = 0.0
+        S[m_old:m] = R.T
+        stats["time_orthogonalise"] += time.perf_counter() - tg
+        stats["iterations"] += 1
+
+        mu, Y = la.eigh(H[:m, :m])
+        mu, Y = mu[::-1], Y[:, ::-1]  # largest mu = lowest lam first
+        lam = sigma + 1.0 / mu
+        estimate = np.linalg.norm(S[:m].T @ Y, axis=0) / np.abs(mu)
+        wanted = count
+        while wanted < m - 1 and lam[wanted] - lam[wanted - 1] <= gap * max(abs(lam[wanted]), scale):
+            wanted += 1  # never stop inside a multiplet
+        converged = int(np.argmin(estimate[:wanted] <= tol_t)) if not np.all(estimate[:wanted] <= tol_t) \
+            else wanted
+        log.debug("block iteration %d: space %d, %d of %d wanted converged (estimate)", stats["iterations"], m,
+                  converged, wanted)
+        if converged == wanted and wanted < m - b:
+            U = V[:, :m] @ Y[:, :wanted]
+            # Rayleigh-Ritz of (K, M) on the converged vectors: eigenvalues to second order
+            KU = K @ U
+            lam_k, Z = la.eigh(U.T @ KU, U.T @ (M @ U))
+            U = U @ Z
+            res = _residuals(K, M, U, lam_k, floor_scale)
+            limit = np.maximum(tolerance, _FLOOR * lam_top / np.maximum(np.abs(lam_k), floor_scale))
+            if np.all(res <= limit) or tol_t <= 1e-16:
+                break
+            log.debug("block iteration: true residual %.1e above %.1e; tightening", res.max(), limit.min())
+            tol_t *= 0.1
+        if stats["solves"] >= max_solves:
+            raise SolverError(f"the block iteration did not converge: {converged} of {wanted} modes after "
+                              f"{stats['solves']} solves; refine the mesh or ask for fewer modes")
+        if m + b > m_max:  # Krylov-Schur thick restart on the lowest Ritz vectors, cut at a gap
+            tr = time.perf_counter()
+            least = min(m_max - 2 * b, max(wanted + b, int(0.6 * m_max)))
+            keep = _keep_count(lam, least, min(least + b, m_max - 2 * b), gap)
+            V[:, :keep] = V[:, :m] @ Y[:, :keep]
+            H[:keep, :keep] = np.diag(mu[:keep])
+            S[:keep] = (S[:m].T @ Y[:, :keep]).T
+            m = keep
+            stats["restarts"] += 1
+            stats["time_restart"] += time.perf_counter() - tr
+            H[:m, m:m + b] = S[:m]
+            H[m:m + b, :m] = S[:m].T
+
+    nxt = float(lam[wanted]) if wanted < m else float("inf")
+    stats["time"] = time.perf_counter() - t0
+    stats["space"] = m
+    log.info("block iteration: %d pairs in %d iterations, %d solves, %d restarts, %.2f s",
+             wanted, stats["iterations"], stats["solves"], stats["restarts"], stats["time"])
+    return BlockResult(lam=lam_k, vectors=U, residuals=res, next_ritz_value=nxt, stats=stats)
