@@ -395,3 +395,93 @@ def test_bad_argument_is_usage_error(tmp_path, run_module):
     assert "Traceback" not in result.stderr
     assert "usage:" in result.stderr
     assert list(tmp_path.iterdir()) == []
+
+
+# --- requests that must be refused before they exhaust the machine ---
+#
+# With the bug present these would allocate tens of GB or run for minutes, so the mesh
+# builders are wrapped: past the finest mesh the schema itself allows (subdivisions = 9:
+# 20 * 4^9 = 5.2e6 triangles) the wrapper raises at once instead of building.  A fixed library
+# refuses the case earlier with exit status 2; a broken one hits the wrapper, whose
+# AssertionError the CLI reports as an internal failure (exit status 1).
+
+FINEST_TRIANGLES = 20 * 4**9
+
+
+def guarded_icosphere(monkeypatch):
+    from shellmodes.shapes import analytic
+
+    real = analytic.icosphere
+
+    def icosphere(level):
+        assert 20 * 4**level <= FINEST_TRIANGLES, f"refinement level {level} was built"
+        return real(level)
+
+    monkeypatch.setattr(analytic, "icosphere", icosphere)
+
+
+def guarded_torus_grid(monkeypatch):
+    from shellmodes.shapes import torus
+
+    real = torus.torus_grid
+
+    def torus_grid(n_major, n_minor):
+        assert 2 * n_major * n_minor <= FINEST_TRIANGLES, f"a {n_major} x {n_minor} grid was built"
+        return real(n_major, n_minor)
+
+    monkeypatch.setattr(torus, "torus_grid", torus_grid)
+
+
+@pytest.mark.xfail(strict=True, reason="run.discretise turns any edge_length into subdivisions_for(edge_length) "
+                                       "with no upper bound (1e-6 asks for 21 subdivisions, 9e13 triangles)")
+def test_tiny_edge_length_is_refused(tmp_path, run_cli, monkeypatch):
+    guarded_icosphere(monkeypatch)
+    case = tmp_path / "case.toml"
+    case.write_text(BASE.replace("subdivisions = 1", "edge_length = 1e-6"), encoding="utf-8")
+
+    result = run_cli("run", case, "--out", tmp_path / "results")
+
+    assert result.status == 2, result.stderr
+    _check_message(result.stderr, case, Bad(None, "resolution.edge_length", ("1e-06",)))
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["case.toml"]
+
+
+def test_small_edge_length_within_the_limit_runs(tmp_path, run_cli, monkeypatch):
+    """The guard itself lets ordinary refinement through (so the test above can only fail on the bug)."""
+    guarded_icosphere(monkeypatch)
+    case = tmp_path / "case.toml"
+    case.write_text(BASE.replace("subdivisions = 1", "edge_length = 0.3"), encoding="utf-8")
+
+    result = run_cli("run", case, "--out", tmp_path / "results", "--quiet")
+
+    assert result.status == 0, result.stderr
+
+
+@pytest.mark.xfail(strict=True, reason="shapes/torus.py Torus._grid makes round(n_minor * R / r) cells around "
+                                       "the axis with no bound: R/r = 1e7 asks for 1.3e9 triangles")
+def test_needle_thin_torus_is_refused(tmp_path, run_cli, monkeypatch):
+    guarded_torus_grid(monkeypatch)
+    case = tmp_path / "case.toml"
+    case.write_text(torus(1.0, 1e-7)(tmp_path), encoding="utf-8")
+
+    result = run_cli("run", case, "--out", tmp_path / "results")
+
+    assert result.status == 2, result.stderr
+    _check_message(result.stderr, case, Bad(None, None, ("minor_radius",)))
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["case.toml"]
+
+
+@pytest.mark.xfail(strict=True, reason="an --out path that is an existing file fails late in "
+                                       "outputs.atomic_directory with NotADirectoryError: exit 1, not 2")
+def test_out_path_that_is_a_file_is_bad_input(tmp_path, run_cli):
+    case = tmp_path / "case.toml"
+    case.write_text(BASE, encoding="utf-8")
+    occupied = tmp_path / "results"
+    occupied.write_text("someone's file\n")
+
+    result = run_cli("run", case, "--out", occupied)
+
+    assert result.status == 2, result.stderr
+    _check_message(result.stderr, occupied, Bad(None, None, ()))
+    assert occupied.read_text() == "someone's file\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["case.toml", "results"]
