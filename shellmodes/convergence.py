@@ -34,7 +34,7 @@ import logging
 import math
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -152,7 +152,7 @@ def shared_groups(boundaries: list[list[int]], lengths: list[int]) -> list[tuple
     return list(zip(cuts[:-1], cuts[1:]))
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Refinement:
     """One solve of the study (eigenvalues lam in 1/length^2, ascending)."""
 
@@ -206,7 +206,7 @@ class ConvergenceRow:
                 "reached_at": self.reached_at}
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class ConvergenceStudy:
     """A case solved at successive refinements, with per-multiplet error bars.
 
@@ -380,7 +380,8 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
     shape = build_shape(case)
     s0, key = _start_subdivisions(case, shape)
     if s0 + refinements - 1 > max_subdivisions:
-        raise CaseError(f"value {s0}: {refinements} refinements from subdivisions {s0} need "
+        given = case.resolution.edge_length if key == "resolution.edge_length" else s0
+        raise CaseError(f"value {given!r}: {refinements} refinements from subdivisions {s0} need "
                         f"{s0 + refinements - 1}, more than the allowed {max_subdivisions}; start coarser or "
                         "ask for fewer refinements", source, key)
     e0, _ = energy_scale(case, shape)
@@ -440,8 +441,6 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
 
 
 def _with_reached(row: ConvergenceRow, at) -> ConvergenceRow:
-    from dataclasses import replace
-
     return replace(row, reached_at=at)
 
 

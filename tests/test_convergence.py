@@ -194,6 +194,15 @@ def test_edge_length_starts_at_the_shapes_subdivisions():
     assert [r.dofs for r in study.refinements] == sorted({r.dofs for r in study.refinements})  # refining
 
 
+def test_counts_that_differ_between_refinements_keep_the_common_multiplets():
+    case = case_from_dict({"surface": {"shape": "sphere"}, "resolution": {"degree": 1, "subdivisions": 1},
+                           "modes": {"below": 7.0}}, "<test>")
+    study = convergence_study(case)
+    # at subdivisions 1 the l = 2 level sits at 7.17 (above 7), later at 6.28 and 6.07
+    assert [len(r.eigenvalues) for r in study.refinements] == [4, 9, 9]
+    assert [r.size for r in study.rows] == [1, 3]
+
+
 def test_energies_are_in_the_case_unit():
     study = convergence_study(sphere_case(1, 1, count=4, units={"length": "nm", "energy": "meV"}))
     e0 = constants.hbar**2 / (2 * constants.m_e * constants.nano**2) / ENERGY_UNITS["meV"]  # scipy.constants
@@ -224,6 +233,14 @@ def test_bad_requests_raise_case_errors_before_solving(kwargs, key):
     with pytest.raises(CaseError) as info:
         convergence_study(sphere_case(1, 1, count=4), **kwargs)
     assert info.value.key == key and info.value.source == "<test>"
+
+
+def test_too_fine_an_edge_length_names_that_key_and_value():
+    case = case_from_dict({"surface": {"shape": "sphere"}, "resolution": {"degree": 1, "edge_length": 0.01},
+                           "modes": {"count": 4}}, "<test>")
+    with pytest.raises(CaseError, match="value 0.01") as info:
+        convergence_study(case)
+    assert info.value.key == "resolution.edge_length"
 
 
 # ----------------------------------------------------------------------------- command line
