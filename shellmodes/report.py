@@ -365,6 +365,11 @@ def _convergence_section(path: Path) -> str:
         data = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         return f'<p class="quiet">{_e(path)} could not be read ({_e(type(exc).__name__)}: {_e(exc)}).</p>'
+    if isinstance(data, dict) and isinstance(data.get("rows"), list) and isinstance(data.get("refinements"), list):
+        try:
+            return _study_section(path, data)
+        except (KeyError, TypeError, ValueError, AttributeError):
+            pass  # not the layout of shellmodes.convergence after all: show it generically
     key, records = _records(data)
     scalars = ([(k, _cell(v)) for k, v in data.items() if not isinstance(v, (dict, list)) and v is not None]
                if isinstance(data, dict) else [])
@@ -380,6 +385,41 @@ def _convergence_section(path: Path) -> str:
     else:
         parts.append('<p class="quiet">No table of estimates in the file.</p>')
     return "".join(parts)
+
+
+def _study_section(path: Path, data: dict) -> str:
+    """The ``convergence.json`` of :mod:`shellmodes.convergence`: refinements and per-group estimates."""
+    unit = (data.get("units") or {}).get("energy") or "1"
+    bounds = data.get("order_range")
+    facts = [("case", _e(data.get("source", "–"))), ("element degree", _num(data.get("degree"))),
+             ("geometry degree", _num(data.get("geometry_degree"))),
+             ("expected order", _num(data.get("expected_order"), 3)),
+             ("order range", _e(f"{bounds[0]:.3g} to {bounds[1]:.3g}") if bounds else "–")]
+    if data.get("tolerance") is not None:
+        reached = data.get("reached")
+        facts += [("tolerance", _sci(data["tolerance"])),
+                  ("reached at", _num(reached) if reached is not None else "not reached")]
+    refinements = _table(["subdivisions", "h", "dofs", "modes", "time"],
+                         [[_num(r.get("subdivisions")), _num(r.get("h"), 4), _num(r.get("dofs")),
+                           _num(r.get("modes")), f"{float(r.get('seconds', 0.0)):.2f} s"]
+                          for r in data["refinements"]])
+    rows = []
+    for r in data["rows"]:
+        ok = r.get("asymptotic")
+        rows.append([_num(r["index"]), _e(_member_span(r.get("modes") or [])), _num(r.get("size")),
+                     _num(r.get("l")), _num(r.get("energy")), _num(r.get("energy_extrapolated")),
+                     _sci(r.get("energy_error")), _sci(r.get("relative_error")), _num(r.get("order"), 3),
+                     '<span class="tag pass">yes</span>' if ok else '<span class="tag">no</span>',
+                     _num(r.get("reached_at"))])
+    head = ["#", "modes", "size", "l", f"finest [{unit}]", f"extrapolated [{unit}]", f"error [{unit}]",
+            "rel. error", "order", "asymptotic", "reached at"]
+    warn = "".join(f"<li>{_e(w)}</li>" for w in data.get("warnings") or [])
+    return (f'<p class="quiet">From {_e(path)}: each row is a group of modes shared by every refinement; '
+            "the error estimates |extrapolated − finest| for the finest mesh (Richardson).</p>"
+            f'<div class="cards"><div class="card"><h3>Study</h3>{_dl(facts)}</div>'
+            f'<div class="card"><h3>Refinements</h3>{refinements}</div></div>'
+            + (f'<ul class="notes">{warn}</ul>' if warn else "")
+            + f'<div class="scroll">{_table(head, rows)}</div>')
 
 
 def _checks_section(results) -> str:

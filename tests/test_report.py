@@ -342,3 +342,19 @@ def test_load_run_errors_are_case_errors(tmp_path):
     (tmp_path / "spectrum.json").write_text("[]")
     with pytest.raises(CaseError, match="not a shellmodes spectrum"):
         load_run(tmp_path)
+
+
+def test_a_real_convergence_study_is_tabled(run_dir):
+    convergence = pytest.importorskip("shellmodes.convergence")
+    case = case_from_dict({"title": "squashed test shell", "surface": SQUASHED["surface"],
+                           "resolution": {"degree": 2, "subdivisions": 1}, "modes": {"count": 9}}, "<test>")
+    study = convergence.convergence_study(case, refinements=3)
+    convergence.write_study(study, run_dir.parent / "shell-convergence")
+    text = write_report(run_dir, modes=0).read_text(encoding="utf-8")
+    page = _Page()
+    page.feed(text)
+    assert "Refinements" in text and "asymptotic" in text
+    # tables: multiplets, refinements, estimates, modes
+    assert page.tables[1:3] == [len(study.refinements), len(study.rows)]
+    for row in study.rows:
+        assert f"{row.energy_error:.1e}" in text
