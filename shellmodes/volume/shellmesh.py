@@ -121,6 +121,11 @@ class ShellMesh:
         """Exact map (d, q) -> x for (K, 3) unit directions and (K,) parameters."""
         directions = np.asarray(directions, dtype=float)
         radial = np.asarray(radial, dtype=float)
+        # the centre of a ball has no direction; walls are never evaluated there
+        centre = np.linalg.norm(directions, axis=1) == 0
+        if np.any(centre):
+            directions = directions.copy()
+            directions[centre] = (0.0, 0.0, 1.0)
         r = np.zeros(len(radial))
         region = np.clip(np.floor(radial).astype(int), 0, self.nregions - 1)
         for i in range(self.nregions):
@@ -134,6 +139,7 @@ class ShellMesh:
             else:
                 inner = _radii(self.walls[i], d, i)
                 r[sel] = inner + (q - i) * (outer - inner)
+        r[centre] = 0.0
         return r[:, None] * directions
 
     def edge_midpoints(self, edges: np.ndarray) -> np.ndarray:
