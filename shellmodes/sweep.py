@@ -357,8 +357,9 @@ def _dask(todo, address, timeout):
                               "check the address, or drop sweep.scheduler to use the local cores") from None
     try:
         futures = {client.submit(_solve_step, step.case, pure=False): step for step in todo}
-        for future in as_completed(list(futures)):
-            yield futures[future], future.result()
+        with client.as_current():  # as_completed looks for a current client; this one is not the default
+            for future in as_completed(list(futures)):
+                yield futures[future], future.result()
     finally:
         client.close()
 
