@@ -163,6 +163,21 @@ def test_export_cells_follow_vtk_tetra10_order():
     assert p1[1][0][0] == "tetra" and p1[1][0][1].shape == (60, 4)
 
 
+def test_folded_curved_elements_raise_and_refinement_cures_them():
+    """A wall with a strong l = 6 ripple folds coarse quadratic tetrahedra (straight ones are fine)."""
+    def rippled(d):
+        theta = np.arccos(np.clip(d[:, 2], -1, 1))
+        phi = np.arctan2(d[:, 1], d[:, 0])
+        return 1.6 * (1 + 0.3 * real_sph_harm(6, 3, theta, phi))
+
+    coarse = shell_mesh([1.0, rippled], level=1, layers_per_region=1)
+    assert np.all(signed_volumes(coarse.points, coarse.tets) > 0)
+    with pytest.raises(MeshError, match=r"curved tetrahedron \d+ is inverted or flat \(Jacobian -"):
+        discretise(coarse, degree=2)
+    fine = discretise(shell_mesh([1.0, rippled], level=3, layers_per_region=1), degree=2)
+    assert fine.ndofs > 0
+
+
 def test_degree_three_is_refused():
     with pytest.raises(CaseError, match="degree 3"):
         discretise(shell_mesh([1.0, 2.0], 0, 1), degree=3)

@@ -336,14 +336,18 @@ def shell_mesh(
                      walls=walls, cartesian_edges=cartesian, level=int(level), layers=layers,
                      core_fraction=core_fraction if ball else None, _core_scale=core_scale)
     points = mesh.place(dirs, radial)
-    vol = signed_volumes(points, tets)
-    flip = vol < 0
+    # orientation from the reference configuration (nested unit-spaced spheres), where no
+    # tetrahedron can be inverted; the physical one must then agree everywhere
+    reference = dirs * (radial + (0.0 if ball else 1.0))[:, None]
+    flip = signed_volumes(reference, tets) < 0
     tets[flip] = tets[flip][:, [1, 0, 2, 3]]
-    scale = np.max(np.abs(vol)) if len(vol) else 1.0
-    tiny = np.nonzero(np.abs(vol) <= 1e-12 * scale)[0]
-    if len(tiny):
-        centre = points[tets[tiny[0]]].mean(axis=0)
-        raise MeshError(f"tetrahedron {tiny[0]} has zero volume at {_fmt(centre)}")
+    vol = signed_volumes(points, tets)
+    bad = np.nonzero(vol <= 1e-12 * np.max(np.abs(vol)))[0]
+    if len(bad):
+        k = bad[np.argmin(vol[bad])]
+        raise MeshError(f"tetrahedron {k} of region {regions[k]} is inverted or flat "
+                        f"(volume {vol[k] / 6:.3g}) at {_fmt(points[tets[k]].mean(axis=0))}: the walls "
+                        f"vary too fast for level {level}; raise the level")
     object.__setattr__(mesh, "points", points)
     return mesh
 
