@@ -79,13 +79,16 @@ def test_case_spectrum_is_sane(path):
             first = spectrum.multiplets[0]
             assert first.size == 1
             assert abs(first.eigenvalue) < 1e-9 * scale
-            assert lam[1] > 0.1 * scale
+            # and the next level is clearly not zero (a needle-like shape may bring it well below
+            # 4 pi / area, so the bound is loose on purpose)
+            assert lam[1] > 1e-3 * scale
             u = spectrum.vectors[:, 0]
             assert np.ptp(u) <= 1e-8 * np.max(np.abs(u))
         else:
-            # a hard or free rim: with a hard rim the lowest mode is strictly positive
+            # with a hard rim the lowest mode is strictly positive (it tends to zero only as the
+            # rim shrinks to a point, so no fixed fraction of 4 pi / area would be safe)
             if getattr(case.surface, "rim", None) == "dirichlet":
-                assert lam[0] > 0.1 * scale
+                assert lam[0] > 1e-9 * scale
     if closed and spectrum.info["mesh"]["exact_area"] is not None and case.surface.shape != "mesh":
         # the discrete area converges to the exact one; 1e-3 is far above the error of any case here
         assert spectrum.info["mesh"]["area"] == pytest.approx(spectrum.info["mesh"]["exact_area"], rel=1e-3)
