@@ -45,7 +45,7 @@ from .errors import CaseError, DoubtfulResultWarning
 from .run import build_shape, energy_scale, run_case
 
 __all__ = ["ConvergenceStudy", "ConvergenceRow", "Refinement", "convergence_study", "expected_order",
-           "order_range", "observed_order_three", "shared_groups", "write_study", "add_command"]
+           "order_range", "observed_order_three", "extrapolate", "shared_groups", "write_study", "add_command"]
 
 log = logging.getLogger(__name__)
 
@@ -150,6 +150,26 @@ def shared_groups(boundaries: list[list[int]], lengths: list[int]) -> list[tuple
     common = set.intersection(*({*b, n} for b, n in zip(boundaries, lengths)))
     cuts = sorted(c for c in common if c <= min(lengths))
     return list(zip(cuts[:-1], cuts[1:]))
+
+
+def extrapolate(lam, h, p: float) -> float:
+    """Richardson value lam_inf = l3 + (l3 - l2) / ((h2/h3)^p - 1) from the last two of ``lam``.
+
+    Exact when lam_j = lam_inf + C h_j^p.
+
+    References
+    ----------
+    Richardson, Phil. Trans. R. Soc. A 210 (1911) 307.
+
+    Examples
+    --------
+    >>> h = [0.4, 0.2]
+    >>> round(extrapolate([5 + 0.3 * x**2 for x in h], h, 2.0), 12)
+    5.0
+    """
+    l2, l3 = (float(v) for v in lam[-2:])
+    h2, h3 = (float(v) for v in h[-2:])
+    return l3 + (l3 - l2) / ((h2 / h3) ** p - 1.0)
 
 
 @dataclass(frozen=True, eq=False)
@@ -309,12 +329,12 @@ def _estimate(lam, h, p_expected, bounds, window, scale):
     p = observed_order_three((l1, l2, l3), (h1, h2, h3))
     asymptotic = math.isfinite(p) and (bounds is None or (1 - window) * bounds[0] <= p <= (1 + window) * bounds[1])
     if asymptotic:
-        extrapolated = l3 + (l3 - l2) / ((h2 / h3) ** p - 1.0)
+        extrapolated = extrapolate(lam, h, p)
         return extrapolated, abs(extrapolated - l3), p, True
     # not yet asymptotic: extrapolate at the theoretical rate, but claim only the
     # last change as the error (more than the Richardson correction 1/(r^p - 1))
     rate = p_expected if p_expected is not None else 1.0
-    extrapolated = l3 + (l3 - l2) / ((h2 / h3) ** rate - 1.0)
+    extrapolated = extrapolate(lam, h, rate)
     return extrapolated, max(abs(d23), abs(extrapolated - l3)), p, False
 
 
