@@ -395,8 +395,8 @@ def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename):
         plotter.add_mesh(surface, scalars="u", cmap=cmap, clim=(-limit, limit), smooth_shading=True,
                          ambient=0.4, diffuse=0.7, specular=0.05, show_scalar_bar=False)
         plotter.add_scalar_bar(title=title, n_labels=5, fmt="%.2g", color="#1d2a3a", vertical=False,
-                               position_x=0.18, position_y=0.04, width=0.64, height=0.09, title_font_size=15,
-                               label_font_size=11)
+                               position_x=0.18, position_y=0.04, width=0.64, height=0.09, title_font_size=22,
+                               label_font_size=16)
         if volume:
             # look at the cut face: the plane x = centre bounds the kept half x <= centre
             plotter.camera_position = "yz"

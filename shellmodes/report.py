@@ -360,14 +360,14 @@ def _cell(value) -> str:
     return _num(value)
 
 
-def _convergence_section(path: Path) -> str:
+def _convergence_section(path: Path, run: dict | None = None) -> str:
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         return f'<p class="quiet">{_e(path)} could not be read ({_e(type(exc).__name__)}: {_e(exc)}).</p>'
     if isinstance(data, dict) and isinstance(data.get("rows"), list) and isinstance(data.get("refinements"), list):
         try:
-            return _study_section(path, data)
+            return _study_section(path, data, run)
         except (KeyError, TypeError, ValueError, AttributeError):
             pass  # not the layout of shellmodes.convergence after all: show it generically
     key, records = _records(data)
@@ -387,7 +387,38 @@ def _convergence_section(path: Path) -> str:
     return "".join(parts)
 
 
-def _study_section(path: Path, data: dict) -> str:
+def _run_values(study: dict, run: dict | None) -> dict | None:
+    """This run's energy of each study row, when the run's mesh is one of the study's refinements.
+
+    The run must have the same number of degrees of freedom as a refinement
+    and agree with that refinement's group means to 1e-9 (relative), so its
+    mode numbering is the study's; otherwise None.
+    """
+    if not run:
+        return None
+    dofs = (run.get("mesh") or {}).get("dofs")
+    level = [k for k, r in enumerate(study["refinements"]) if r.get("dofs") == dofs]
+    if not level:
+        return None
+    k = level[0]
+    e0 = (run.get("units") or {}).get("energy_per_lambda")
+    e0 = 1.0 if e0 is None else float(e0)
+    energy = {int(m["index"]): float(m["energy"]) for m in run["modes"]}
+    out = {}
+    for row in study["rows"]:
+        members = [int(i) for i in row.get("modes") or []]
+        values = row.get("eigenvalues") or []
+        if not members or any(i not in energy for i in members) or len(values) <= k:
+            return None
+        mine = sum(energy[i] for i in members) / len(members)
+        theirs = float(values[k]) * e0
+        if abs(mine - theirs) > 1e-9 * max(abs(theirs), max(abs(e) for e in energy.values()) or 1.0):
+            return None
+        out[int(row["index"])] = mine
+    return out
+
+
+def _study_section(path: Path, data: dict, run: dict | None = None) -> str:
     """The ``convergence.json`` of :mod:`shellmodes.convergence`: refinements and per-group estimates."""
     unit = (data.get("units") or {}).get("energy") or "1"
     bounds = data.get("order_range")
@@ -403,19 +434,31 @@ def _study_section(path: Path, data: dict) -> str:
                          [[_num(r.get("subdivisions")), _num(r.get("h"), 4), _num(r.get("dofs")),
                            _num(r.get("modes")), f"{float(r.get('seconds', 0.0)):.2f} s"]
                           for r in data["refinements"]])
+    mine = _run_values(data, run)
     rows = []
     for r in data["rows"]:
         ok = r.get("asymptotic")
+        extra = []
+        if mine is not None:
+            extra = [_sci(abs(float(r["energy_extrapolated"]) - mine[int(r["index"])]))]
         rows.append([_num(r["index"]), _e(_member_span(r.get("modes") or [])), _num(r.get("size")),
                      _num(r.get("l")), _num(r.get("energy")), _num(r.get("energy_extrapolated")),
                      _sci(r.get("energy_error")), _sci(r.get("relative_error")), _num(r.get("order"), 3),
                      '<span class="tag pass">yes</span>' if ok else '<span class="tag">no</span>',
-                     _num(r.get("reached_at"))])
+                     _num(r.get("reached_at")), *extra])
     head = ["#", "modes", "size", "l", f"finest [{unit}]", f"extrapolated [{unit}]", f"error [{unit}]",
             "rel. error", "order", "asymptotic", "reached at"]
+    if mine is not None:
+        head.append(f"this run's error [{unit}]")
+        whose = ("The last column estimates the error of this run's own levels: |extrapolated − this run|; "
+                 "this run's mesh is one of the study's refinements.")
+    else:
+        whose = ("This run's mesh is not one of the study's refinements: the errors are those of the "
+                 "study's finest mesh, not of this run's numbers.")
     warn = "".join(f"<li>{_e(w)}</li>" for w in data.get("warnings") or [])
     return (f'<p class="quiet">From {_e(path)}: each row is a group of modes shared by every refinement; '
-            "the error estimates |extrapolated − finest| for the finest mesh (Richardson).</p>"
+            "the error estimates |extrapolated − finest| for the finest mesh (Richardson). "
+            f"{_e(whose)}</p>"
             f'<div class="cards"><div class="card"><h3>Study</h3>{_dl(facts)}</div>'
             f'<div class="card"><h3>Refinements</h3>{refinements}</div></div>'
             + (f'<ul class="notes">{warn}</ul>' if warn else "")
@@ -492,7 +535,7 @@ def report_html(data: dict, *, folder: Path | None = None, levels_png: bytes | N
     if convergence is not None or checks is not None:
         body.append("<h2>Error estimates</h2>")
         if convergence is not None:
-            body.append("<h3>Convergence study</h3>" + _convergence_section(convergence))
+            body.append("<h3>Convergence study</h3>" + _convergence_section(convergence, data))
         if checks is not None:
             body.append("<h3>Validation set</h3>" + _checks_section(checks))
     body.append("<h2>Mode table</h2>" + _mode_table(data))

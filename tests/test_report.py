@@ -358,3 +358,17 @@ def test_a_real_convergence_study_is_tabled(run_dir):
     assert page.tables[1:3] == [len(study.refinements), len(study.rows)]
     for row in study.rows:
         assert f"{row.energy_error:.1e}" in text
+    # the run (subdivisions 2) is the study's middle refinement: its own levels get error estimates
+    assert 2 in study.subdivisions and "The last column estimates the error of this run" in text
+    energy = {m["index"]: m["energy"] for m in load_run(run_dir)["modes"]}
+    for row in study.rows:
+        mine = np.mean([energy[i] for i in row.modes])
+        assert f"<td>{abs(row.energy_extrapolated - mine):.1e}</td></tr>" in text
+    # a study on other meshes says so, and claims no error for this run's own numbers
+    path = run_dir.parent / "shell-convergence" / "convergence.json"
+    other = json.loads(path.read_text())
+    for r in other["refinements"]:
+        r["dofs"] += 1
+    path.write_text(json.dumps(other))
+    text = write_report(run_dir, modes=0).read_text(encoding="utf-8")
+    assert "is not one of the study" in text and "The last column" not in text
