@@ -246,6 +246,8 @@ class ConvergenceStudy:
     tolerance: float | None = None
     reached: int | None = None
     warnings: tuple[str, ...] = ()
+    #: the case as given (its coarsest resolution), for the record and to match run folders
+    case: dict = field(default_factory=dict, repr=False)
 
     @property
     def tolerance_reached(self) -> bool | None:
@@ -262,7 +264,7 @@ class ConvergenceStudy:
                 "units": {"energy": self.energy_unit, "energy_per_lambda": self.energy_per_lambda},
                 "tolerance": self.tolerance, "tolerance_reached": self.tolerance_reached, "reached": self.reached,
                 "refinements": [r.as_dict() for r in self.refinements], "rows": [r.as_dict() for r in self.rows],
-                "warnings": list(self.warnings)}
+                "warnings": list(self.warnings), "case": self.case}
 
     def table(self, max_rows: int = 40) -> str:
         """A compact terminal table, one line per row."""
@@ -457,7 +459,7 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
                             geometry_degree=case.resolution.geometry_degree or case.resolution.degree,
                             expected_order=p_expected, order_range=bounds, refinements=tuple(done), rows=tuple(rows),
                             energy_unit=case.units.energy, energy_per_lambda=e0, tolerance=tolerance,
-                            reached=reached, warnings=tuple(notes))
+                            reached=reached, warnings=tuple(notes), case=case.model_dump(mode="json"))
 
 
 def _with_reached(row: ConvergenceRow, at) -> ConvergenceRow:
