@@ -11,14 +11,10 @@ import subprocess
 import sys
 import warnings
 from dataclasses import dataclass
-from pathlib import Path
 
 import pytest
 
 from shellmodes.cli import main
-
-REPO = Path(__file__).resolve().parent.parent
-CASES_DIR = REPO / "cases"
 
 
 @dataclass(frozen=True)
@@ -60,15 +56,3 @@ def run_module():
         return CliResult(done.returncode, done.stdout, done.stderr)
 
     return call
-
-
-@pytest.fixture
-def write_case(tmp_path):
-    """Write TOML text into ``tmp_path/name`` and return the path."""
-
-    def write(text: str, name: str = "case.toml") -> Path:
-        path = tmp_path / name
-        path.write_text(text, encoding="utf-8")
-        return path
-
-    return write

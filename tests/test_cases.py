@@ -12,15 +12,18 @@ in SLOW.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
-from conftest import CASES_DIR
 from scipy import constants
 from scipy.optimize import brentq
 from scipy.special import lpmv
 
 from shellmodes.case import load_case
 from shellmodes.run import run_case
+
+CASES_DIR = Path(__file__).resolve().parent.parent / "cases"
 
 # Measured on this 2-core machine: unit-sphere.toml (100 modes, 10,242 P4 DOFs) 18-24 s;
 # every other case under 1 s.

@@ -23,7 +23,6 @@ from pathlib import Path
 import meshio
 import numpy as np
 import pytest
-from conftest import CASES_DIR
 from scipy import constants
 
 from shellmodes import outputs
@@ -39,6 +38,8 @@ else:  # pragma: no cover
 MODE_FIELDS = {"index", "energy", "eigenvalue", "multiplet", "l", "residual"}
 MULTIPLET_FIELDS = {"index", "energy", "size", "l", "expected_size", "spread"}
 CSV_COLUMNS = ["index", "energy", "eigenvalue", "multiplet", "l", "residual"]
+
+CASES_DIR = Path(__file__).resolve().parent.parent / "cases"
 
 RADIUS = 2.0
 
@@ -557,3 +558,23 @@ def test_spectrum_with_no_modes_is_written_and_read_back(tmp_path):
                                        "ValueError for a spectrum with no modes")
 def test_spectrum_with_no_modes_has_a_repr():
     assert "modes=0" in repr(empty_spectrum())
+
+
+def test_doubtful_result_is_written_with_a_warning(tmp_path, run_module):
+    """A residual above the case's limit is a result to doubt, not bad input: exit 0, files, a warning.
+
+    Through a fresh interpreter, because the test suite turns DoubtfulResultWarning into an error.
+    """
+    case = tmp_path / "case.toml"
+    # no residual is below 1e-300: round-off alone (~1e-14) exceeds the limit
+    case.write_text(sphere_case(1, count=4, extra="residual_limit = 1e-300\n"), encoding="utf-8")
+
+    result = run_module("run", case, "--out", tmp_path / "out", "--quiet", cwd=tmp_path)
+
+    assert result.status == 0, result.stderr
+    lines = result.stderr.splitlines()
+    assert len(lines) == 1 and lines[0].startswith("warning: largest relative residual"), result.stderr
+    data = read_json(tmp_path / "out")
+    assert len(data["modes"]) == 4
+    assert len(data["warnings"]) == 1 and "residual" in data["warnings"][0]
+    assert "warning: largest relative residual" in (tmp_path / "out" / "run.log").read_text()
