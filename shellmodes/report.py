@@ -612,7 +612,7 @@ def write_report(folder, checks=False, *, modes: int = DEFAULT_RENDERS, keep_ima
     unit = (data.get("units") or {}).get("energy")
     by_index = {int(m["index"]): m for m in data["multiplets"]}
     mode_to_mult = {int(i): by_index[int(m["index"])] for m in data["multiplets"] for i in (m.get("modes") or [])}
-    with tempfile.TemporaryDirectory(prefix=".report.", dir=folder) as scratch:
+    with tempfile.TemporaryDirectory(prefix="shellmodes-report-") as scratch:
         where = folder if keep_images else Path(scratch)
         levels = spectrum_picture(data, where / "report-levels.png")
         chosen = _chosen_modes(data, modes)
@@ -625,7 +625,10 @@ def write_report(folder, checks=False, *, modes: int = DEFAULT_RENDERS, keep_ima
             pictures = [(i, mode_to_mult.get(i, {"index": "?"}), p.read_bytes()) for i, p in zip(chosen, paths)]
         page = report_html(data, folder=folder, levels_png=levels.path.read_bytes(), mode_pngs=pictures,
                            convergence=convergence, checks=results, notes=notes)
-    return _write_text_atomic(folder / "report.html", page)
+    try:
+        return _write_text_atomic(folder / "report.html", page)
+    except OSError as exc:
+        raise CaseError(f"cannot write report.html ({exc.strerror or exc})", str(folder)) from None
 
 
 # ---------------------------------------------------------------------------
