@@ -357,10 +357,11 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
     refinements : int
         Number of refinements s0, s0 + 1, ... (at least 3: an order needs three).
     tolerance : float, optional
-        Relative error wanted (estimate <= tolerance * |lam| for every row).
-        Refinement continues past ``refinements`` until it is met or
-        ``max_subdivisions`` is reached; then a :class:`DoubtfulResultWarning`
-        says so and the finest estimates are reported.
+        Relative error wanted: every row asymptotic with estimate <= tolerance
+        * |lam| (zero modes: tolerance * the largest |lam|).  Refinement
+        continues past ``refinements`` until it is met or ``max_subdivisions``
+        is reached; then a :class:`DoubtfulResultWarning` says so and the
+        finest estimates are reported.
     max_subdivisions : int
         Finest subdivisions the study may solve (at most 9, the schema's limit).
     progress : callable, optional
@@ -449,6 +450,11 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
                     f"(the limit); {missing} of {len(rows)} rows short, reporting the finest estimates")
             notes.append(text)
             warnings.warn(text, DoubtfulResultWarning, stacklevel=2)
+    if not rows:
+        text = (f"{source}: no multiplet is complete at every refinement, so nothing can be estimated; "
+                "ask for more modes (modes.count)")
+        notes.append(text)
+        warnings.warn(text, DoubtfulResultWarning, stacklevel=2)
     doubtful = [r.index for r in rows if not r.asymptotic]
     if doubtful:
         text = (f"{source}: rows {doubtful} are not in the asymptotic range (order far from "
