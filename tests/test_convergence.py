@@ -267,8 +267,14 @@ count = 4
 """
 
 
-def test_cli_writes_table_json_and_csv(run_cli, write_case, tmp_path):
-    path = write_case(CASE)
+def write_case(folder):
+    path = folder / "case.toml"
+    path.write_text(CASE, encoding="utf-8")
+    return path
+
+
+def test_cli_writes_table_json_and_csv(run_cli, tmp_path):
+    path = write_case(tmp_path)
     done = run_cli("converge", path)
     assert done.status == 0, done.stderr
     out = tmp_path / "case-convergence"  # the run folder's name + "-convergence", beside the case
@@ -287,8 +293,8 @@ def test_cli_writes_table_json_and_csv(run_cli, write_case, tmp_path):
     assert "wrote" in done.stdout
 
 
-def test_cli_quiet_and_out(run_cli, write_case, tmp_path):
-    done = run_cli("converge", write_case(CASE), "--out", tmp_path / "here", "--tolerance", "1e-2", "-q")
+def test_cli_quiet_and_out(run_cli, tmp_path):
+    done = run_cli("converge", write_case(tmp_path), "--out", tmp_path / "here", "--tolerance", "1e-2", "-q")
     assert done.status == 0 and done.stdout == ""
     data = json.loads((tmp_path / "here" / "convergence.json").read_text())
     assert data["tolerance"] == 1e-2 and data["tolerance_reached"] is True
@@ -296,9 +302,9 @@ def test_cli_quiet_and_out(run_cli, write_case, tmp_path):
 
 @pytest.mark.parametrize("argv", [["--refinements", "2"], ["--tolerance", "0"], ["--tolerance", "-1"],
                                   ["--refinements", "9"]])
-def test_cli_bad_input_exits_2_with_one_line_and_writes_nothing(run_cli, write_case, tmp_path, argv):
+def test_cli_bad_input_exits_2_with_one_line_and_writes_nothing(run_cli, tmp_path, argv):
     out = tmp_path / "never"
-    done = run_cli("converge", write_case(CASE), "--out", out, *argv)
+    done = run_cli("converge", write_case(tmp_path), "--out", out, *argv)
     assert done.status == 2
     lines = done.stderr.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("shellmodes: error:") and "case.toml" in lines[0]
