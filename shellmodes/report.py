@@ -191,9 +191,9 @@ dl { margin: 0; display: grid; grid-template-columns: minmax(110px, max-content)
 dt { color: var(--soft); } dd { margin: 0; font-variant-numeric: tabular-nums; word-break: break-word; }
 table { border-collapse: collapse; width: 100%; font: 13px system-ui, sans-serif;
         font-variant-numeric: tabular-nums; background: var(--card); }
-th, td { padding: 3px 9px; border-bottom: 1px solid #ece8df; text-align: right; }
+th, td { padding: 3px 9px; border-bottom: 1px solid #ece8df; text-align: right; white-space: nowrap; }
 th { background: #f1ede4; color: var(--ink); font-weight: 600; position: sticky; top: 0; }
-td.text, th.text { text-align: left; }
+td.text, th.text { text-align: left; white-space: normal; }
 tr.split td:first-child { box-shadow: inset 3px 0 0 var(--warm); }
 .tag { display: inline-block; font-size: 11px; padding: 0 6px; border-radius: 8px; margin-left: 4px;
        background: #f4e1d5; color: var(--warm); }
@@ -472,7 +472,9 @@ def _checks_section(results) -> str:
     passed = sum(r.passed for r in results)
     table = _table(["check", "result", "value", "reference", "error", "tolerance", "time", "source"], rows,
                    text_columns=(0, 1, 7))
-    return f'<p class="quiet">{passed} passed, {len(results) - passed} failed.</p><div class="scroll">{table}</div>'
+    return (f'<p class="quiet">{passed} passed, {len(results) - passed} failed. These checks solve problems with '
+            "exact answers through the same code; they vouch for the method, not for this run's mesh, whose "
+            f'own error needs a convergence study.</p><div class="scroll">{table}</div>')
 
 
 def _chosen_modes(data: dict, count: int) -> list[int]:
