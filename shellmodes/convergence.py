@@ -393,12 +393,12 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
     """
     source = case.source
     if isinstance(refinements, bool) or not isinstance(refinements, int) or refinements < 3:
-        raise CaseError(f"refinements {refinements!r}: need an integer of at least 3 (an order needs three "
+        raise CaseError(f"value {refinements!r}: need an integer of at least 3 (an order needs three "
                         "solves)", source, "refinements")
     if tolerance is not None and not (math.isfinite(tolerance) and tolerance > 0):
-        raise CaseError(f"tolerance {tolerance!r}: need a relative error > 0, e.g. 1e-6", source, "tolerance")
+        raise CaseError(f"value {tolerance!r}: need a relative error > 0, e.g. 1e-6", source, "tolerance")
     if not isinstance(max_subdivisions, int) or not 0 <= max_subdivisions <= SCHEMA_MAX_SUBDIVISIONS:
-        raise CaseError(f"max_subdivisions {max_subdivisions!r}: allowed 0..{SCHEMA_MAX_SUBDIVISIONS}", source,
+        raise CaseError(f"value {max_subdivisions!r}: allowed 0..{SCHEMA_MAX_SUBDIVISIONS}", source,
                         "max_subdivisions")
     shape = build_shape(case)
     s0, key = _start_subdivisions(case, shape)
