@@ -255,6 +255,22 @@ def test_write_then_read_tetra10_keeps_geometry_and_regions(tmp_path):
     assert len(back.wall_dofs("inner")) == len(back.wall_dofs("outer")) == 162
 
 
+def test_gmsh_tetra10_round_trip_keeps_curved_nodes(tmp_path):
+    """meshio reorders gmsh's tetra10 nodes to VTK's on write and read; the curved geometry survives."""
+    disc = discretise(shell_mesh([1.0, 2.0], 1, 1), degree=2)
+    points, cells, data = export_cells(disc)
+    path = tmp_path / "shell.msh"
+    meshio.write(path, meshio.Mesh(points, cells, cell_data={"gmsh:physical": data["region"],
+                                                            "gmsh:geometrical": data["region"]}),
+                 file_format="gmsh22", binary=False)
+    back = read_volume_mesh(path, require_regions=True)
+    assert back.degree == 2 and back.ndofs == disc.ndofs
+    # tolerance: the ASCII file keeps about 16 significant digits
+    assert volume_of(back) == pytest.approx(volume_of(disc), rel=1e-12)
+    r = np.linalg.norm(back.nodes[back.wall_dofs("outer")], axis=1)
+    np.testing.assert_allclose(r, 2.0, rtol=1e-12)
+
+
 def test_gmsh_physical_tags_are_regions(tmp_path):
     m = skfem.MeshTet.init_tensor(np.linspace(0, 1, 3), np.linspace(0, 1, 3), np.linspace(0, 1, 3))
     m = m.oriented() if hasattr(m, "oriented") else m
