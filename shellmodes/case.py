@@ -89,17 +89,39 @@ class CapSurface(_Table):
     rim: Rim = Field("dirichlet", description="hard rim (dirichlet) or free rim (neumann)")
 
 
+_SNAP_KEYS = {  # shape -> (required keys, optional keys)
+    "sphere": ((), ("radius",)),
+    "ellipsoid": (("axes",), ()),
+    "spheroid": (("equatorial_radius", "polar_radius"), ()),
+    "star": ((), ("radius", "deformation")),
+    "torus": (("major_radius", "minor_radius"), ()),
+}
+
+
 class SnapTarget(_Table):
-    """An analytic shape to snap an imported mesh's geometry nodes onto."""
+    """An analytic shape to snap an imported mesh's geometry nodes onto (keys as for that shape)."""
 
     shape: Literal["sphere", "ellipsoid", "spheroid", "star", "torus"]
     radius: Positive | None = None
     axes: tuple[Positive, Positive, Positive] | None = None
     equatorial_radius: Positive | None = None
     polar_radius: Positive | None = None
-    deformation: tuple[DeformationTerm, ...] = ()
+    deformation: tuple[DeformationTerm, ...] | None = None
     major_radius: Positive | None = None
     minor_radius: Positive | None = None
+
+    @model_validator(mode="after")
+    def _keys_of_shape(self):
+        required, optional = _SNAP_KEYS[self.shape]
+        given = {k for k in type(self).model_fields if k != "shape" and getattr(self, k) is not None}
+        extra = sorted(given - set(required) - set(optional))
+        if extra:
+            allowed = ", ".join(required + optional) or "none"
+            raise ValueError(f"key {extra[0]!r} does not belong to a {self.shape} snap target; allowed: {allowed}")
+        missing = [k for k in required if getattr(self, k) is None]
+        if missing:
+            raise ValueError(f"a {self.shape} snap target needs {', '.join(missing)}")
+        return self
 
 
 class MeshSurface(_Table):
@@ -335,7 +357,10 @@ def _format_error(error: dict) -> tuple[str, str]:
         return key, f"unknown key; {hint}allowed: {', '.join(allowed)}"
     if kind == "missing":
         return key, "required key is missing"
-    if kind in ("union_tag_invalid", "union_tag_not_found"):
+    if kind == "union_tag_not_found":
+        return (key + ".shape" if not key.endswith("shape") else key,
+                f"required key is missing; allowed: {', '.join(sorted(_TAGS))}")
+    if kind == "union_tag_invalid":
         return key + ".shape" if not key.endswith("shape") else key, (
             f"unknown shape {error.get('ctx', {}).get('tag', value)!r}; allowed: {', '.join(sorted(_TAGS))}")
     msg = error["msg"].replace("Value error, ", "")

@@ -17,25 +17,29 @@ from pathlib import Path
 
 from .errors import ShellmodesError
 
-__all__ = ["main"]
+__all__ = ["main", "default_out"]
 
 #: modules that add a sub-command: each defines ``add_command(subparsers)``,
 #: which creates its parser and sets ``func`` to a function(args) -> exit code
 _PLUGIN_COMMANDS = ("convergence", "sweep", "report")
 
 
-def _default_out(case_path: Path) -> Path:
+def default_out(case_path: Path) -> Path:
+    """The output folder of a case file: its name without the suffix, beside it."""
     return case_path.with_suffix("") if case_path.suffix else case_path.parent / (case_path.name + "-out")
 
 
 def _cmd_run(args) -> int:
     from .case import load_case
+    from .errors import CaseError
     from .outputs import write_outputs
     from .run import run_case
 
     case_path = Path(args.case)
     case = load_case(case_path)
-    out = Path(args.out) if args.out else _default_out(case_path)
+    out = Path(args.out) if args.out else default_out(case_path)
+    if out.exists() and not out.is_dir():
+        raise CaseError(f"--out {str(out)!r} is an existing file; give a folder", str(case_path))
     spectrum = run_case(case)
     files = None if case.output.vtu else ["spectrum.json", "spectrum.csv", "run.log"]
     write_outputs(spectrum, out, files)

@@ -306,12 +306,12 @@ def _finite(x):
 
 def _start_subdivisions(case: Case, shape) -> tuple[int, str]:
     # the same choice as run.discretise makes for a single solve
+    from .run import subdivision_level
+
     res = case.resolution
-    if res.edge_length is not None:
-        return shape.subdivisions_for(res.edge_length), "resolution.edge_length"
-    if res.subdivisions is not None:
-        return res.subdivisions, "resolution.subdivisions"
-    return (0 if shape.name == "mesh" else 3), "resolution"
+    key = ("resolution.edge_length" if res.edge_length is not None else
+           "resolution.subdivisions" if res.subdivisions is not None else "resolution")
+    return subdivision_level(case, shape), key
 
 
 def _at_subdivisions(case: Case, subdivisions: int) -> Case:
@@ -519,12 +519,12 @@ def _cmd_converge(args) -> int:
     import sys
 
     from .case import load_case
-    from .cli import _default_out
+    from .cli import default_out
 
     case_path = Path(args.case)
     case = load_case(case_path)
-    out = Path(args.out) if args.out else _default_out(case_path).with_name(
-        _default_out(case_path).name + "-convergence")
+    out = Path(args.out) if args.out else default_out(case_path).with_name(
+        default_out(case_path).name + "-convergence")
     bar = None
     if not args.quiet and sys.stderr.isatty():
         from tqdm import tqdm

@@ -98,13 +98,25 @@ class atomic_directory:
     each is moved with an atomic rename.
     """
 
-    def __init__(self, target):
+    def __init__(self, target, stale=()):
         self.target = Path(target)
+        #: names to remove from an existing target once the new files are in place
+        self.stale = tuple(stale)
 
     def __enter__(self) -> Path:
         parent = self.target.parent
+        # remember which ancestors we create, to remove them again if the block fails
+        self.created = []
+        missing = parent
+        while not missing.exists():
+            self.created.append(missing)
+            missing = missing.parent
         parent.mkdir(parents=True, exist_ok=True)
         self.tmp = Path(tempfile.mkdtemp(prefix=f".{self.target.name}.", dir=parent))
+        # mkdtemp makes the folder private (0700); the finished folder gets ordinary permissions
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(self.tmp, 0o777 & ~umask)
         return self.tmp
 
     def __exit__(self, kind, value, tb):
@@ -115,8 +127,16 @@ class atomic_directory:
                     return False
                 for item in self.tmp.iterdir():
                     os.replace(item, self.target / item.name)
+                for name in self.stale:
+                    (self.target / name).unlink(missing_ok=True)
         finally:
             shutil.rmtree(self.tmp, ignore_errors=True)
+            if kind is not None:
+                for folder in self.created:  # innermost first
+                    try:
+                        folder.rmdir()
+                    except OSError:
+                        break
         return False
 
 
@@ -126,7 +146,9 @@ def write_outputs(spectrum, folder, files=None) -> Path:
     unknown = set(names) - set(EXPORTERS)
     if unknown:
         raise ValueError(f"unknown outputs {sorted(unknown)}; allowed: {', '.join(EXPORTERS)}")
-    with atomic_directory(folder) as tmp:
+    # files an earlier run wrote that this one does not (e.g. modes.vtu with output.vtu = false)
+    stale = [n for n in EXPORTERS if n not in names]
+    with atomic_directory(folder, stale=stale) as tmp:
         for name in names:
             EXPORTERS[name](spectrum, tmp)
     return Path(folder)

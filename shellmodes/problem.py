@@ -105,7 +105,7 @@ def assemble_surface(surface: CurvedSurface, potential=None, rim: str | None = N
     M = skfem.asm(mass, basis)
     lower = 0.0
     if potential is not None:
-        values = potential_at(potential, basis.global_coordinates().value)
+        values = potential_at(potential, np.asarray(basis.global_coordinates()))
         if not np.all(np.isfinite(values)):
             raise ValueError("the potential is not finite everywhere on the surface")
         K = K + skfem.asm(potential_form, basis, pot=values)

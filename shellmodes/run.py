@@ -25,7 +25,8 @@ from .spectrum import Spectrum, build_multiplets
 from .surface import curved_surface, lagrange_element, lattice_cells
 from .units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS, joule_to, kinetic_scale_joule
 
-__all__ = ["run_case", "build_shape", "discretise", "energy_scale", "versions"]
+__all__ = ["run_case", "build_shape", "discretise", "energy_scale", "versions", "subdivision_level",
+           "DEFAULT_SUBDIVISIONS", "MAX_SUBDIVISIONS"]
 
 log = logging.getLogger(__name__)
 
@@ -55,10 +56,10 @@ def build_shape(case: Case):
             target = None
             if snap is not None:
                 snap_name = snap.pop("shape")
-                params = {k: v for k, v in snap.items() if v not in (None, ())}
+                params = {k: v for k, v in snap.items() if v is not None}
                 if snap_name == "star":
-                    params["radius"] = params.get("radius", 1.0)
-                    params["deformation"] = [(d["l"], d["m"], d["amplitude"]) for d in snap.get("deformation", ())]
+                    params["deformation"] = [(d["l"], d["m"], d["amplitude"])
+                                             for d in snap.get("deformation") or ()]
                 target = make_shape(snap_name, **params)
             return make_shape("mesh", file=path, snap=target)
         return make_shape(name, **spec)
@@ -74,12 +75,7 @@ def discretise(case: Case, shape=None):
     """Curved Lagrange surface of the case's degree and refinement."""
     shape = build_shape(case) if shape is None else shape
     res = case.resolution
-    if res.edge_length is not None:
-        level = shape.subdivisions_for(res.edge_length)
-    elif res.subdivisions is not None:
-        level = res.subdivisions
-    else:
-        level = 0 if shape.name == "mesh" else 3
+    level = subdivision_level(case, shape)
     points, triangles = shape.reference(level)
     element_nodes = getattr(shape, "quadratic_nodes", None) if level == 0 else None
     if shape.name == "mesh" and shape.snap_shape is None and res.degree > 1 and (
@@ -90,6 +86,27 @@ def discretise(case: Case, shape=None):
     return curved_surface(points, triangles, res.degree, project=shape.project,
                           quadrature_order=res.quadrature_order, element_nodes=element_nodes,
                           unwrap=shape.unwrap, geometry_degree=res.geometry_degree)
+
+
+#: subdivisions when a case gives neither subdivisions nor edge_length
+DEFAULT_SUBDIVISIONS = 3
+#: most halvings of a reference mesh (the icosahedron at 9 has 5.2 million triangles)
+MAX_SUBDIVISIONS = 9
+
+
+def subdivision_level(case: Case, shape) -> int:
+    """Halvings of the shape's reference mesh that the case's resolution asks for."""
+    res = case.resolution
+    if res.edge_length is not None:
+        level = shape.subdivisions_for(res.edge_length)
+        if level > MAX_SUBDIVISIONS:
+            raise CaseError(f"value {res.edge_length!r}: needs {level} subdivisions of the reference mesh, "
+                            f"at most {MAX_SUBDIVISIONS} are allowed (base edge {shape.base_edge:.4g}); "
+                            "use a larger edge_length", case.source, "resolution.edge_length")
+        return level
+    if res.subdivisions is not None:
+        return res.subdivisions
+    return 0 if shape.name == "mesh" else DEFAULT_SUBDIVISIONS
 
 
 def energy_scale(case: Case, shape=None) -> tuple[float | None, str]:

@@ -140,6 +140,7 @@ class Spectrum:
     def __repr__(self):
         low = ", ".join(f"{v:.6g}" for v in self.eigenvalues[:4])
         mesh = self.info.get("mesh", {})
+        worst = f"{np.max(self.residuals):.1e}" if len(self.residuals) else "n/a"
         return (f"Spectrum(modes={len(self.eigenvalues)}, multiplets={len(self.multiplets)}, "
-                f"lambda=[{low}, ...], max_residual={np.max(self.residuals):.1e}, "
+                f"lambda=[{low}, ...], max_residual={worst}, "
                 f"dofs={mesh.get('dofs')}, degree={mesh.get('degree')}, h={mesh.get('h', float('nan')):.3g})")

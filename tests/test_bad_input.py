@@ -371,16 +371,7 @@ def _check_message(err: str, culprit: Path, bad: Bad) -> None:
 
 
 # Known library bugs, reported to the owner; strict, so a fix shows up as XPASS.
-KNOWN_BUGS = {
-    "shape-missing": "case.py _format_error reports a missing surface.shape as \"unknown shape {'radius': 1.0}\" "
-                     "(pydantic's union_tag_not_found) instead of 'required key is missing'",
-    "snap-parameter-of-another-shape": "run.py build_shape passes every SnapTarget value to make_shape; a "
-                                       "parameter the snap shape lacks comes out as \"surface: incomplete "
-                                       "parameters for shape 'mesh' (...unexpected keyword argument...)\"",
-    "snap-torus-without-radii": "SnapTarget leaves major_radius/minor_radius optional and Torus() fills in "
-                                "hidden defaults 2 and 1: the mesh is silently snapped onto a torus nobody "
-                                "asked for",
-}
+KNOWN_BUGS: dict[str, str] = {}  # case name -> reason, for bugs not yet fixed (strict xfail)
 
 
 @pytest.mark.parametrize("name", [pytest.param(n, marks=pytest.mark.xfail(strict=True, reason=KNOWN_BUGS[n]))
@@ -479,8 +470,6 @@ def guarded_torus_grid(monkeypatch):
     monkeypatch.setattr(torus, "torus_grid", torus_grid)
 
 
-@pytest.mark.xfail(strict=True, reason="run.discretise turns any edge_length into subdivisions_for(edge_length) "
-                                       "with no upper bound (1e-6 asks for 21 subdivisions, 9e13 triangles)")
 def test_tiny_edge_length_is_refused(tmp_path, run_cli, monkeypatch):
     guarded_icosphere(monkeypatch)
     case = tmp_path / "case.toml"
@@ -504,8 +493,6 @@ def test_small_edge_length_within_the_limit_runs(tmp_path, run_cli, monkeypatch)
     assert result.status == 0, result.stderr
 
 
-@pytest.mark.xfail(strict=True, reason="shapes/torus.py Torus._grid makes round(n_minor * R / r) cells around "
-                                       "the axis with no bound: R/r = 1e7 asks for 1.3e9 triangles")
 def test_needle_thin_torus_is_refused(tmp_path, run_cli, monkeypatch):
     guarded_torus_grid(monkeypatch)
     case = tmp_path / "case.toml"
@@ -518,8 +505,6 @@ def test_needle_thin_torus_is_refused(tmp_path, run_cli, monkeypatch):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["case.toml"]
 
 
-@pytest.mark.xfail(strict=True, reason="an --out path that is an existing file fails late in "
-                                       "outputs.atomic_directory with NotADirectoryError: exit 1, not 2")
 def test_out_path_that_is_a_file_is_bad_input(tmp_path, run_cli):
     case = tmp_path / "case.toml"
     case.write_text(BASE, encoding="utf-8")

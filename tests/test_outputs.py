@@ -431,8 +431,6 @@ def test_write_outputs_into_a_new_folder(spectrum, tmp_path):
     np.testing.assert_array_equal(U, spectrum.vectors)  # float64 written and read bit for bit
 
 
-@pytest.mark.xfail(strict=True, reason="outputs.atomic_directory renames a tempfile.mkdtemp folder "
-                                       "(mode 0700) into place: a new output folder is unreadable to others")
 def test_new_output_folder_has_ordinary_permissions(spectrum, tmp_path):
     reference = tmp_path / "made-by-mkdir"
     reference.mkdir()  # mode 0777 less the umask
@@ -499,8 +497,6 @@ def test_a_writer_that_raises_creates_no_folder(spectrum, tmp_path, monkeypatch)
     assert list(tmp_path.iterdir()) == []
 
 
-@pytest.mark.xfail(strict=True, reason="outputs.atomic_directory.__enter__ creates missing parent folders "
-                                       "(mkdir parents=True) and leaves them behind when a writer fails")
 def test_a_writer_that_raises_creates_no_parent_folders(spectrum, tmp_path, monkeypatch):
     def broken(spectrum, folder):
         raise RuntimeError("exporter bug")
@@ -567,8 +563,6 @@ def test_spectrum_with_no_modes_is_written_and_read_back(tmp_path):
     assert [n for n in mesh.point_data if n.startswith("mode")] == []
 
 
-@pytest.mark.xfail(strict=True, reason="spectrum.py Spectrum.__repr__ calls np.max(self.residuals), which raises "
-                                       "ValueError for a spectrum with no modes")
 def test_spectrum_with_no_modes_has_a_repr():
     assert "modes=0" in repr(empty_spectrum())
 

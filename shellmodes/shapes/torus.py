@@ -24,6 +24,9 @@ class Torus(Shape):
         self.r = float(minor_radius)
         if not self.r < self.R:
             raise GeometryError(f"minor_radius {self.r} must be smaller than major_radius {self.R}")
+        if self.R / self.r > 1000:
+            raise GeometryError(f"minor_radius {self.r} is more than 1000 times smaller than major_radius "
+                                f"{self.R}; such a needle-thin tube needs a ring model, not a surface mesh")
         self.base_edge = 2 * np.pi * self.r / 4
 
     def _grid(self, subdivisions):
