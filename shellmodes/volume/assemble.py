@@ -50,11 +50,11 @@ def _per_element(values, disc: VolumeDiscretisation, key: str, default: float | 
         if missing:
             raise CaseError(f"no value for region(s) {missing}; given for {sorted(values)}, "
                             f"the mesh has regions {ids}", key=key)
+        if min(ids) < 0:
+            raise CaseError(f"region ids must be non-negative, got {min(ids)}", key=key)
         table = np.zeros(max(ids) + 1)
         for r in ids:
             table[r] = float(values[r])
-        if min(ids) < 0:
-            raise CaseError(f"region ids must be non-negative, got {min(ids)}", key=key)
         out = table[disc.regions]
     else:
         out = np.full(len(disc.regions), float(values))

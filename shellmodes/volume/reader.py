@@ -82,5 +82,7 @@ def read_volume_mesh(
         degree = 2 if kind == "tetra10" else 1
     if kind == "tetra10" and degree == 1:
         cells = cells[:, :4]
-    return discretise_tetrahedra(data.points[:, :3] if data.points.shape[1] >= 3 else data.points,
-                                 cells, regions, degree, source=source, quadrature_order=quadrature_order)
+    if data.points.ndim != 2 or data.points.shape[1] != 3:
+        raise MeshError(f"points have shape {data.points.shape}; a volume mesh needs 3-D points", source)
+    return discretise_tetrahedra(data.points, cells, regions, degree, source=source,
+                                 quadrature_order=quadrature_order)
