@@ -195,14 +195,17 @@ def test_convergence_orders_on_curved_shell():
     assert np.all(np.diff(e1) < 0) and np.all(np.diff(e2) < 0)
     # theory: 2k for degree k.  Measured slopes 2.3 (P1) and 4.7 (P2): the coarsest P2 mesh (the
     # bare icosahedron, 12 directions) is not yet asymptotic and steepens the fit; the slow test
-    # on levels 1..3 measures 3.9.  Allow 1.7..2.6 and 3.5..5.0.
+    # on levels 1..3 measures 4.2.  Allow 1.7..2.6 and 3.5..5.0.
     assert 1.7 < observed_order(h1, e1) < 2.6
     assert 3.5 < observed_order(h2, e2) < 5.0
 
 
 @pytest.mark.slow
 def test_convergence_orders_fine():
-    """P1 on levels 2..4 (up to 43,554 DOFs) and P2 on levels 1..3 (up to 43,554 DOFs); ~2 min."""
+    """P1 on levels 2..4 and P2 on levels 1..3 (up to 43,554 DOFs each); 1-4 min.
+
+    Measured: P1 errors 0.179, 0.0426, 0.0106 (slope 2.13); P2 0.0269, 1.9e-3, 1.23e-4 (slope 4.19).
+    """
     h1, e1 = shell_errors(1, (2, 3, 4))
     h2, e2 = shell_errors(2, (1, 2, 3))
     assert observed_order(h1, e1) == pytest.approx(2.0, abs=0.2)
