@@ -276,3 +276,12 @@ def test_factor_memory_estimate_is_close_to_a_real_factor():
         assert est.bytes == 8 * est.nnz
         # the ordering differs (nested dissection vs minimum degree): measured ratios 1.0-1.6; allow 0.5-2.5
         assert 0.5 < est.nnz / lu.L.nnz < 2.5
+
+
+def test_path_choice_follows_the_memory_budget():
+    from shellmodes.backends.lobpcg_amg import choose_eigen_path
+
+    disc, K, _, free = small_shell_problem()
+    path, estimate = choose_eigen_path(K, 10, disc.nodes[free], memory_budget=2**30)
+    assert path == "shift-invert" and estimate.bytes < 2**30
+    assert choose_eigen_path(K, 10, disc.nodes[free], memory_budget=estimate.bytes // 2)[0] == "lobpcg-amg"

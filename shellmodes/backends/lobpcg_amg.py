@@ -35,7 +35,8 @@ from scipy.sparse.csgraph import dijkstra
 from ..errors import SolverError
 from . import register
 
-__all__ = ["factorize", "lobpcg_lowest", "estimate_factor_memory", "FactorEstimate", "BYTES_PER_ENTRY"]
+__all__ = ["factorize", "lobpcg_lowest", "estimate_factor_memory", "FactorEstimate", "BYTES_PER_ENTRY",
+           "choose_eigen_path", "available_memory"]
 
 #: bytes per stored entry of a supernodal Cholesky factor (float64 value; the
 #: supernodal index overhead is small by comparison)
@@ -271,3 +272,30 @@ def estimate_factor_memory(A, points: np.ndarray | None = None, leaf_size: int =
     return FactorEstimate(nnz=nnz_int, bytes=BYTES_PER_ENTRY * nnz_int,
                           ordering="coordinate nested dissection" if points is not None
                           else "graph-distance nested dissection")
+
+
+def available_memory() -> int:
+    """Bytes the system reports as available (``MemAvailable``), or 4 GiB if it cannot tell."""
+    try:
+        with open("/proc/meminfo") as f:
+            for line in f:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return 4 * 2**30
+
+
+def choose_eigen_path(A, count: int, points: np.ndarray | None = None,
+                      memory_budget: int | None = None) -> tuple[str, FactorEstimate]:
+    """``"shift-invert"`` if a Cholesky factor of ``A`` fits the budget, else ``"lobpcg-amg"``.
+
+    The need is the estimated factor (:func:`estimate_factor_memory`) plus the
+    Lanczos basis of about ``2 count + 32`` vectors; the budget defaults to
+    half the available memory.
+    """
+    estimate = estimate_factor_memory(A, points)
+    n = A.shape[0]
+    need = estimate.bytes + 8 * n * (2 * count + 32)
+    budget = available_memory() // 2 if memory_budget is None else int(memory_budget)
+    return ("shift-invert" if need <= budget else "lobpcg-amg"), estimate
