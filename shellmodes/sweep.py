@@ -165,6 +165,16 @@ def _set(data, path, value):
     target[path[-1]] = value
 
 
+def _clear_leftovers(steps_dir: Path) -> None:
+    """Remove hidden temporary step folders a killed run left behind (never complete, never read).
+
+    One sweep at a time may write into a folder.
+    """
+    for item in steps_dir.iterdir():
+        if item.is_dir() and re.match(r"\.(stale-)?step-\d{4}", item.name):
+            shutil.rmtree(item, ignore_errors=True)
+
+
 def _resolve_keys(case: Case) -> list[tuple[str, list, tuple[float, ...]]]:
     base = case.model_dump(mode="json")
     base.pop("sweep")
@@ -209,7 +219,9 @@ def plan_steps(case: Case) -> tuple[list[SweepStep], CaseError | None]:
         raise CaseError("the case has no [sweep] table; add sweep.parameters to sweep a key", case.source,
                         "sweep")
     keys = _resolve_keys(case)
-    base = case.model_dump(mode="json")
+    # unset (None) entries are left out, so that an absent table stays absent when the step is
+    # validated again; a swept key that was unset is created by _set
+    base = case.model_dump(mode="json", exclude_none=True)
     base.pop("sweep")
     steps = []
     for index in range(len(keys[0][2])):
@@ -426,6 +438,7 @@ def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | N
     out = Path(out)
     steps_dir = out / "steps"
     steps_dir.mkdir(parents=True, exist_ok=True)
+    _clear_leftovers(steps_dir)
     workers = case.sweep.workers if workers is None else int(workers)
     scheduler = case.sweep.scheduler if scheduler is None else scheduler
     if workers < 1:
