@@ -137,6 +137,72 @@ Surface = Annotated[
 ]
 
 
+class Wall(_Table):
+    """A closed wall of a shell: sphere, ellipsoid, spheroid or star-shaped surface about the origin."""
+
+    shape: Literal["sphere", "ellipsoid", "spheroid", "star"]
+    radius: Positive | None = Field(None, description="sphere or star: radius R")
+    axes: tuple[Positive, Positive, Positive] | None = Field(None, description="ellipsoid: semi-axes")
+    equatorial_radius: Positive | None = Field(None, description="spheroid: semi-axis in the x-y plane")
+    polar_radius: Positive | None = Field(None, description="spheroid: semi-axis along z")
+    deformation: tuple[DeformationTerm, ...] | None = Field(None, description="star: r = R(1 + sum a_lm Y_lm)")
+
+    @model_validator(mode="after")
+    def _keys_of_shape(self):
+        required, optional = {"sphere": (("radius",), ()), "ellipsoid": (("axes",), ()),
+                              "spheroid": (("equatorial_radius", "polar_radius"), ()),
+                              "star": (("radius",), ("deformation",))}[self.shape]
+        given = {k for k in type(self).model_fields if k != "shape" and getattr(self, k) is not None}
+        extra = sorted(given - set(required) - set(optional))
+        if extra:
+            raise ValueError(f"key {extra[0]!r} does not belong to a {self.shape} wall; allowed: "
+                             f"{', '.join(required + optional)}")
+        missing = [k for k in required if getattr(self, k) is None]
+        if missing:
+            raise ValueError(f"a {self.shape} wall needs {', '.join(missing)}")
+        return self
+
+
+class Region(_Table):
+    """One medium of a shell (core, shell, outer medium): its effective mass and band offset."""
+
+    name: str = Field("", description="label used in reports")
+    tag: int | None = Field(None, ge=0, description="region id in a mesh file (default: position, inside out)")
+    effective_mass: Positive | None = Field(None, description="mass as a multiple of particle.mass "
+                                                              "(default: particle.effective_mass)")
+    offset: float = Field(0.0, description="potential offset (band offset), in potential.unit or units.energy")
+
+
+class Shell(_Table):
+    """A 3-D region between closed walls (or a ball), possibly layered into several media."""
+
+    inner: Wall | None = Field(None, description="innermost wall; omit for a ball")
+    interfaces: tuple[Wall, ...] = Field((), description="walls between media, inside out")
+    outer: Wall | None = Field(None, description="outermost wall")
+    file: str | None = Field(None, description="tetrahedral mesh file instead of walls (tetra or tetra10)")
+    inner_condition: Rim = Field("dirichlet", description="condition on the inner wall")
+    outer_condition: Rim = Field("dirichlet", description="condition on the outer wall")
+    layers: int | tuple[int, ...] = Field(4, description="radial element layers per medium (one number for all)")
+    regions: tuple[Region, ...] = Field((), description="media inside out; default: one medium per layer gap")
+
+    @model_validator(mode="after")
+    def _walls_or_file(self):
+        if self.file is None and self.outer is None:
+            raise ValueError("give outer (and inner, interfaces) walls, or a mesh file")
+        if self.file is not None and (self.outer is not None or self.inner is not None or self.interfaces):
+            raise ValueError("give walls or a mesh file, not both")
+        layers = (self.layers,) if isinstance(self.layers, int) else self.layers
+        if any(n < 1 for n in layers):
+            raise ValueError(f"layers {self.layers!r}: every medium needs at least one layer")
+        if self.file is None:
+            media = len(self.interfaces) + 1
+            if not isinstance(self.layers, int) and len(self.layers) != media:
+                raise ValueError(f"layers has {len(self.layers)} entries for {media} media")
+            if self.regions and len(self.regions) != media:
+                raise ValueError(f"regions has {len(self.regions)} entries but the walls make {media} media")
+        return self
+
+
 class Resolution(_Table):
     """Element degree and mesh refinement (give subdivisions or edge_length, not both)."""
 
@@ -266,7 +332,8 @@ class Case(_Table):
     """A whole case file."""
 
     title: str = Field("", description="free text shown in reports")
-    surface: Surface
+    surface: Surface | None = Field(None, description="a curved surface (give surface or shell)")
+    shell: Shell | None = Field(None, description="a 3-D shell or ball (give surface or shell)")
     resolution: Resolution = Resolution()
     particle: Particle = Particle()
     units: Units = Units()
@@ -278,13 +345,20 @@ class Case(_Table):
 
     @model_validator(mode="after")
     def _consistent(self):
+        if (self.surface is None) == (self.shell is None):
+            raise ValueError("give exactly one of the tables [surface] and [shell]")
+        if self.shell is not None:
+            if self.resolution.degree > 2:
+                raise ValueError(f"resolution.degree {self.resolution.degree}: shells support degrees 1 and 2")
+            if self.particle.moment_of_inertia is not None:
+                raise ValueError("particle.moment_of_inertia describes a rotor on a sphere, not a shell")
         rotor = self.particle.moment_of_inertia is not None
         if self.units.length == "1" and self.units.energy != "1" and not rotor:
             raise ValueError("units.energy needs a physical units.length (m, um, nm, angstrom, bohr) "
                              "or a rotor's particle.moment_of_inertia")
         if self.potential is not None and (self.potential.unit == "1") != (self.units.energy == "1"):
             raise ValueError("potential.unit and units.energy must both be physical or both be '1'")
-        if self.particle.moment_of_inertia is not None and self.surface.shape not in ("sphere",):
+        if rotor and self.surface is not None and self.surface.shape != "sphere":
             raise ValueError("particle.moment_of_inertia describes a rigid rotor: use surface.shape = 'sphere'")
         return self
 
@@ -293,7 +367,7 @@ class Case(_Table):
         return Path(self.source).parent if self.source != "<case>" else Path.cwd()
 
 
-CASE_TABLES = {"surface": Surface, "resolution": Resolution, "particle": Particle, "units": Units,
+CASE_TABLES = {"surface": Surface, "shell": Shell, "resolution": Resolution, "particle": Particle, "units": Units,
                "potential": Potential, "modes": Modes, "output": Output, "sweep": Sweep}
 
 
@@ -391,6 +465,11 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
         raise CaseError("a case must be a table of tables", source)
     if "source" in data:
         raise CaseError("unknown key; 'source' is reserved", source, "source")
+    if "surface" not in data and "shell" not in data:
+        raise CaseError("required table is missing; give [surface] (a curved surface) or [shell] "
+                        "(a 3-D shell or ball)", source, "surface")
+    if "surface" in data and "shell" in data:
+        raise CaseError("give [surface] or [shell], not both", source, "shell")
     try:
         return Case.model_validate({**data, "source": source})
     except ValidationError as exc:
@@ -429,5 +508,8 @@ def case_schema() -> dict:
     schema = Case.model_json_schema(mode="validation")
     schema.get("properties", {}).pop("source", None)
     schema["title"] = "shellmodes case file"
+    # exactly one geometry table (the model validator's rule, in schema form)
+    schema["oneOf"] = [{"required": ["surface"], "not": {"required": ["shell"]}},
+                       {"required": ["shell"], "not": {"required": ["surface"]}}]
     schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
     return schema

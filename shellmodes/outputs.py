@@ -57,6 +57,7 @@ def _write_csv(spectrum, folder: Path):
     buf = io.StringIO()
     names = ["index", "energy", "eigenvalue", "multiplet", "l", "residual"]
     names += [k for k in ("dominant_l", "l_weight", "mean_L2", "abs_m") if rows and k in rows[0]]
+    names += [k for k in spectrum.mode_columns if k not in names]
     writer = csv.DictWriter(buf, fieldnames=names, lineterminator="\n")
     writer.writeheader()
     for row in rows:

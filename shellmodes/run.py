@@ -13,6 +13,7 @@ import warnings
 from pathlib import Path
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from . import _version
 from .case import Case
@@ -26,6 +27,7 @@ from .surface import curved_surface, lagrange_element, lattice_cells
 from .units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS, joule_to, kinetic_scale_joule
 
 __all__ = ["run_case", "build_shape", "discretise", "energy_scale", "versions", "subdivision_level",
+           "solve_case_modes", "finish_spectrum",
            "DEFAULT_SUBDIVISIONS", "MAX_SUBDIVISIONS"]
 
 log = logging.getLogger(__name__)
@@ -154,8 +156,60 @@ def _export_cells(surface):
     return [("triangle", cells.transpose(2, 1, 0).reshape(-1, 3))]
 
 
+def solve_case_modes(case: Case, K, M, lower_bound: float, scale: float, e0):
+    """The lowest modes of an assembled case (count or energy window), warnings collected.
+
+    Returns ``(pairs, warning_messages)``; warnings are re-issued to the caller.
+    """
+    modes = case.modes
+    below = None if modes.below is None else (modes.below / e0 if e0 is not None else modes.below)
+    # BLAS threads: ARPACK's Lanczos is single-vector work, and OpenBLAS threads spin when the cores
+    # are shared; measured on this 2-core machine under load, 1 thread was 4-6x faster than 2.
+    with warnings.catch_warnings(record=True) as caught, threadpool_limits(limits=1):
+        warnings.simplefilter("always")
+        try:
+            pairs = lowest_modes(K, M, count=modes.count, below=below, lower_bound=lower_bound, scale=scale,
+                                 backend=modes.backend, multiplet_tolerance=modes.multiplet_tolerance,
+                                 residual_limit=modes.residual_limit, method=modes.method)
+        except ValueError as exc:
+            raise CaseError(str(exc), case.source, "modes.backend") from None
+        except ShellmodesError as exc:
+            raise CaseError(str(exc), case.source, "modes.count" if modes.count else "modes.below") from None
+    for w in caught:
+        warnings.warn(w.message, w.category, stacklevel=3)
+    return pairs, [str(w.message) for w in caught]
+
+
+def finish_spectrum(case: Case, pairs, e0, origin, multiplets, vectors, nodes, mesh_info, timings, lines,
+                    warn_text, export, angular=None, mode_columns=None) -> Spectrum:
+    """Package solved modes with their units, mesh, solver and timing records."""
+    modes = case.modes
+    lam = pairs.lam
+    energies = lam * e0 if e0 is not None else lam.copy()
+    solver_info = {"backend": pairs.backend, "method": getattr(pairs, "method", None), "shift": pairs.shift,
+                   "requested": modes.count, "below": modes.below, "returned": int(len(lam)),
+                   "orthogonality_error": pairs.orthogonality, "multiplet_tolerance": modes.multiplet_tolerance,
+                   "max_residual": float(np.max(pairs.residuals)) if len(lam) else None,
+                   "residual_definition": "||K u - lam M u|| / (max(|lam|, |shift|) ||M u||)"}
+    units = {"length": case.units.length, "energy": case.units.energy, "energy_per_lambda": e0,
+             "energy_scale": origin, "eigenvalue": f"1/{case.units.length}^2" if case.units.length != "1" else "1"}
+    lines = [f"case: {case.source}", *lines,
+             f"solver: {pairs.backend} ({solver_info['method']}), shift {pairs.shift:.4g}, {len(lam)} modes "
+             f"(requested {modes.count if modes.count else 'below ' + str(modes.below)})",
+             "timings [s]: " + ", ".join(f"{k} {v:.3f}" for k, v in timings.items()),
+             "versions: " + ", ".join(f"{k} {v}" for k, v in versions().items())]
+    lines += [f"warning: {w}" for w in warn_text]
+    info = {"units": units, "mesh": mesh_info, "solver": solver_info, "versions": versions(),
+            "case": case.model_dump(mode="json"), "timings": timings, "warnings": warn_text,
+            "log": "\n".join(lines)}
+    log.info("%s", lines[1] if len(lines) > 1 else "")
+    return Spectrum(eigenvalues=lam, energies=energies, residuals=pairs.residuals, vectors=vectors,
+                    nodes=nodes, multiplets=multiplets, info=info, export=export, angular=angular,
+                    mode_columns=mode_columns or {})
+
+
 def run_case(case: Case) -> Spectrum:
-    """Solve one case and return its :class:`Spectrum`.
+    """Solve one case (a surface or a shell) and return its :class:`Spectrum`.
 
     Raises
     ------
@@ -170,7 +224,10 @@ def run_case(case: Case) -> Spectrum:
     >>> [m.size for m in s.multiplets]
     [1, 3]
     """
-    lines = []
+    if case.shell is not None:
+        from .shellrun import run_shell
+
+        return run_shell(case)
     t_start = time.perf_counter()
     shape = build_shape(case)
     surface = discretise(case, shape)
@@ -181,57 +238,28 @@ def run_case(case: Case) -> Spectrum:
         problem = assemble_surface(surface, _potential(case, e0), rim=rim if not shape.closed else None)
     except ValueError as exc:
         raise CaseError(str(exc), case.source, "potential.expression") from None
-    modes = case.modes
-    below = None if modes.below is None else (modes.below / e0 if e0 is not None else modes.below)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            pairs = lowest_modes(problem.K, problem.M, count=modes.count, below=below,
-                                 lower_bound=problem.lower_bound, scale=problem.spectral_scale,
-                                 backend=modes.backend, multiplet_tolerance=modes.multiplet_tolerance,
-                                 residual_limit=modes.residual_limit)
-        except ValueError as exc:
-            raise CaseError(str(exc), case.source, "modes.backend") from None
-        except ShellmodesError as exc:
-            raise CaseError(str(exc), case.source, "modes.count" if modes.count else "modes.below") from None
-    for w in caught:
-        warnings.warn(w.message, w.category, stacklevel=2)
+    pairs, warn_text = solve_case_modes(case, problem.K, problem.M, problem.lower_bound, problem.spectral_scale,
+                                        e0)
     lam = pairs.lam
     energies = lam * e0 if e0 is not None else lam.copy()
     radius_eq2 = problem.area / (4 * np.pi) if (shape.closed and shape.sphere_like) else None
-    multiplets = build_multiplets(lam, energies, modes.multiplet_tolerance, problem.spectral_scale, radius_eq2)
+    multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, problem.spectral_scale,
+                                  radius_eq2)
     vectors = problem.expand(pairs.vectors)
     angular = _angular(shape, surface, problem, vectors, multiplets)
-    mesh_info = {"shape": shape.parameters(), "degree": surface.degree,
+    mesh_info = {"kind": "surface", "shape": shape.parameters(), "degree": surface.degree,
                  "geometry_degree": surface.geometry_degree, "elements": int(surface.mesh.nelements),
                  "dofs": int(surface.ndofs), "free_dofs": int(problem.ndofs), "h": surface.h,
                  "area": problem.area, "exact_area": shape.exact_area(), "closed": bool(shape.closed),
                  "rim": problem.rim}
-    solver_info = {"backend": pairs.backend, "shift": pairs.shift, "requested": modes.count,
-                   "below": modes.below, "returned": int(len(lam)), "orthogonality_error": pairs.orthogonality,
-                   "multiplet_tolerance": modes.multiplet_tolerance, "max_residual": float(np.max(pairs.residuals))
-                   if len(lam) else None, "residual_definition": "||K u - lam M u|| / (max(|lam|, |shift|) ||M u||)"}
     timings = {"mesh": t_mesh, "assembly": problem.timings["assembly"], "eigensolve": pairs.timings["eigensolve"],
                "total": time.perf_counter() - t_start}
-    units = {"length": case.units.length, "energy": case.units.energy, "energy_per_lambda": e0,
-             "energy_scale": origin, "eigenvalue": f"1/{case.units.length}^2" if case.units.length != "1" else "1"}
-    lines.append(f"case: {case.source}")
-    lines.append(f"shape: {shape!r}")
-    lines.append(f"mesh: degree {surface.degree}, {surface.mesh.nelements} elements, {surface.ndofs} dofs, "
-                 f"h = {surface.h:.4g}, area = {problem.area:.10g}")
-    lines.append(f"solver: {pairs.backend}, shift {pairs.shift:.4g}, {len(lam)} modes "
-                 f"(requested {modes.count if modes.count else 'below ' + str(modes.below)})")
-    lines.append("timings [s]: " + ", ".join(f"{k} {v:.3f}" for k, v in timings.items()))
-    lines.append("versions: " + ", ".join(f"{k} {v}" for k, v in versions().items()))
-    warn_text = [str(w.message) for w in caught]
-    lines += [f"warning: {w}" for w in warn_text]
-    info = {"units": units, "mesh": mesh_info, "solver": solver_info, "versions": versions(),
-            "case": case.model_dump(mode="json"), "timings": timings, "warnings": warn_text,
-            "log": "\n".join(lines)}
+    lines = [f"shape: {shape!r}",
+             f"mesh: degree {surface.degree}, {surface.mesh.nelements} elements, {surface.ndofs} dofs, "
+             f"h = {surface.h:.4g}, area = {problem.area:.10g}"]
     export = {"points": surface.nodes, "cells": _export_cells(surface)}
-    log.info("%s", lines[2])
-    return Spectrum(eigenvalues=lam, energies=energies, residuals=pairs.residuals, vectors=vectors,
-                    nodes=surface.nodes, multiplets=multiplets, info=info, export=export, angular=angular)
+    return finish_spectrum(case, pairs, e0, origin, multiplets, vectors, surface.nodes, mesh_info, timings, lines,
+                           warn_text, export, angular)
 
 
 def _angular(shape, surface, problem, vectors, multiplets):

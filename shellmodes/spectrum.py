@@ -89,6 +89,8 @@ class Spectrum:
     info: dict = field(default_factory=dict)
     export: dict = field(default_factory=dict, repr=False)
     angular: object | None = field(default=None, repr=False)
+    #: extra per-mode columns for the tables (e.g. radial order n of shell modes)
+    mode_columns: dict = field(default_factory=dict, repr=False)
 
     @property
     def mode_multiplet(self) -> np.ndarray:
@@ -119,6 +121,9 @@ class Spectrum:
                 row["mean_L2"] = float(a.mean_L2[i])
                 if a.abs_m is not None:
                     row["abs_m"] = int(a.abs_m[i])
+        for name, values in self.mode_columns.items():
+            for row, value in zip(rows, values):
+                row[name] = value.item() if hasattr(value, "item") else value
         return rows
 
     def summary(self, max_rows: int = 40) -> str:

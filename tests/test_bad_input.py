@@ -325,7 +325,7 @@ BAD = {
     "deformation-not-a-list": Bad(edited('shape = "sphere"\nradius = 1.0', 'shape = "star"\ndeformation = 0.1'),
                                   "surface.deformation", ("0.1",)),
     "surface-not-a-table": Bad(literal("surface = 3\n"), "surface", ("3", "dictionary")),
-    "empty-case-file": Bad(literal(""), "surface", ("required key is missing",)),
+    "empty-case-file": Bad(literal(""), "surface", ("required table is missing", "[shell]")),
     "shape-missing": Bad(edited('shape = "sphere"\n', ""), "surface.shape", ("missing", "allowed:")),
     "snap-parameter-of-another-shape": Bad(mesh_case("octa.vtu", mesh_writer(meshdata.octahedron),
                                                      snap='{ shape = "ellipsoid", radius = 2.0 }'),

@@ -1,0 +1,230 @@
+"""The pipeline for a shell or ball case: walls -> layered tetrahedra -> K, M -> modes -> spectrum.
+
+The same case file, solver, spectrum and outputs as surfaces; only the
+discretisation differs (:mod:`shellmodes.volume`).  Media carry their own
+effective mass (the kinetic form (m0/m) grad u . grad v gives the
+BenDaniel-Duke flux condition at interfaces) and potential offset.  For
+spherically symmetric geometries each mode gets (n, l) from its angular
+content; deformed ones get the parent (n, l) of the dominant harmonic.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import numpy as np
+
+from .case import Case, Wall
+from .errors import CaseError, GeometryError, MeshError
+from .harmonics import angles, real_sph_harm
+from .run import _potential, energy_scale, finish_spectrum, solve_case_modes, subdivision_level
+from .spectrum import Multiplet
+from .solve import group_multiplets
+
+__all__ = ["run_shell", "wall_function", "build_volume"]
+
+
+def wall_function(wall: Wall):
+    """Radius of the wall along unit directions (N, 3) -> (N,)."""
+    if wall.shape == "sphere":
+        radius = float(wall.radius)
+        return lambda d: np.full(len(d), radius)
+    if wall.shape in ("ellipsoid", "spheroid"):
+        axes = np.array(wall.axes if wall.shape == "ellipsoid" else
+                        (wall.equatorial_radius, wall.equatorial_radius, wall.polar_radius), dtype=float)
+        # the point t d lies on x^2/a^2 + y^2/b^2 + z^2/c^2 = 1 for t = 1/sqrt(sum (d_i/a_i)^2)
+        return lambda d: 1.0 / np.sqrt(np.sum((d / axes) ** 2, axis=1))
+    terms = [(t.l, t.m, t.amplitude) for t in (wall.deformation or ())]
+    radius = float(wall.radius)
+
+    def star(d):
+        theta, phi = angles(d)
+        factor = np.ones(len(d))
+        for l, m, a in terms:
+            factor = factor + a * real_sph_harm(l, m, theta, phi)
+        return radius * factor
+
+    return star
+
+
+def _spherical(case: Case) -> bool:
+    shell = case.shell
+    if shell.file is not None or case.potential is not None:
+        return False
+    walls = [w for w in (shell.inner, *shell.interfaces, shell.outer) if w is not None]
+    return all(w.shape == "sphere" or (w.shape == "star" and not w.deformation) for w in walls)
+
+
+def build_volume(case: Case):
+    """The curved volume discretisation a shell case describes."""
+    from .volume import discretise, read_volume_mesh, shell_mesh
+
+    shell = case.shell
+    res = case.resolution
+    if shell.file is not None:
+        path = Path(shell.file)
+        if not path.is_absolute():
+            path = case.base_dir / path
+        try:
+            return read_volume_mesh(path, degree=res.degree, require_regions=bool(shell.regions),
+                                    quadrature_order=res.quadrature_order)
+        except MeshError as exc:
+            raise CaseError(exc.reason, exc.source or case.source, "shell.file") from None
+    walls = [shell.inner, *shell.interfaces, shell.outer]
+    functions = [None if w is None else wall_function(w) for w in walls]
+    level = res.subdivisions if res.subdivisions is not None else 2
+    if res.edge_length is not None:
+        outer = float(np.max(functions[-1](np.eye(3))))
+        level = max(0, int(np.ceil(np.log2(1.05 * outer / res.edge_length))))
+        if level > 7:
+            raise CaseError(f"value {res.edge_length!r}: needs {level} subdivisions of the directions, at most 7 "
+                            "are allowed for shells; use a larger edge_length", case.source,
+                            "resolution.edge_length")
+    layers = shell.layers if isinstance(shell.layers, int) else list(shell.layers)
+    try:
+        mesh = shell_mesh(functions, level=level, layers_per_region=layers)
+        return discretise(mesh, res.degree, quadrature_order=res.quadrature_order)
+    except GeometryError as exc:
+        raise CaseError(str(exc), case.source, "shell") from None
+    except MeshError as exc:
+        raise CaseError(exc.reason, case.source, "shell") from None
+
+
+def _media(case: Case, disc, e0):
+    """Per-region inverse mass m0/m and potential offset (lambda units), checked against the mesh."""
+    shell, particle = case.shell, case.particle
+    ids = disc.region_ids
+    entries = list(shell.regions)
+    if not entries:
+        entries_by_id = {}
+    else:
+        entries_by_id = {}
+        for i, region in enumerate(entries):
+            tag = region.tag if region.tag is not None else (ids[i] if shell.file is not None and i < len(ids)
+                                                             else i)
+            if tag not in ids:
+                raise CaseError(f"value {tag!r}: no such region in the mesh; regions present: "
+                                f"{', '.join(map(str, ids))}", case.source, f"shell.regions[{i}].tag")
+            entries_by_id[tag] = region
+        missing = [r for r in ids if r not in entries_by_id]
+        if missing:
+            raise CaseError(f"the mesh has regions {', '.join(map(str, missing))} that shell.regions does not "
+                            "describe; list every region", case.source, "shell.regions")
+    offset_scale = _offset_scale(case, e0)
+    inverse_mass, offsets, names = {}, {}, {}
+    for r in ids:
+        region = entries_by_id.get(r)
+        mass = particle.effective_mass if region is None or region.effective_mass is None else region.effective_mass
+        inverse_mass[r] = particle.effective_mass / mass
+        offsets[r] = 0.0 if region is None else region.offset * offset_scale
+        names[r] = (region.name if region is not None and region.name else f"region {r}")
+    return inverse_mass, offsets, names
+
+
+def _offset_scale(case: Case, e0) -> float:
+    """Factor turning an offset in the potential's (or the case's) energy unit into lambda units."""
+    from .units import ENERGY_UNITS
+
+    unit = case.potential.unit if case.potential is not None else case.units.energy
+    if unit == "1" or e0 is None:
+        return 1.0
+    return ENERGY_UNITS[unit] / (e0 * ENERGY_UNITS[case.units.energy])
+
+
+def _labels(case, disc, vectors, M, lam):
+    """(n, l) per mode, or None when there is no centre to expand about."""
+    from .volume import radial_angular_labels
+
+    if vectors.shape[1] == 0:
+        return None
+    radial_degree = 6
+    # (l_max + 1)^2 (radial_degree + 1) fitting functions must stay below 1/8 of the nodes to be resolved,
+    # and the count of modes bounds the degrees present (l <= sqrt(count) for a ladder of 2l+1 multiplets)
+    resolvable = int(np.sqrt(disc.ndofs / (8.0 * (radial_degree + 1)))) - 1
+    l_max = max(1, min(12, resolvable, int(np.sqrt(vectors.shape[1])) + 2))
+    try:
+        return radial_angular_labels(disc.nodes, vectors, M, l_max, radial_degree=radial_degree)
+    except (ValueError, np.linalg.LinAlgError):
+        return None
+
+
+def _volume_multiplets(lam, energies, tolerance, scale, labels, symmetric) -> list[Multiplet]:
+    out = []
+    for i, members in enumerate(group_multiplets(lam, tolerance, scale)):
+        e = energies[members]
+        l = None
+        if labels is not None:
+            values, counts = np.unique(labels.l[members], return_counts=True)
+            l = int(values[np.argmax(counts)])
+        spread = float(np.max(e) - np.min(e))
+        mean = float(np.mean(e))
+        out.append(Multiplet(index=i, members=tuple(int(m) for m in members), eigenvalue=float(np.mean(lam[members])),
+                             energy=mean, size=len(members), l=l,
+                             expected_size=None if l is None else 2 * l + 1,
+                             spread=spread, relative_spread=spread / abs(mean) if mean else 0.0))
+    return out
+
+
+def run_shell(case: Case):
+    """Solve a shell or ball case and return its :class:`~shellmodes.spectrum.Spectrum`."""
+    from .volume import assemble_volume, export_cells, free_dofs, restricted
+
+    t_start = time.perf_counter()
+    disc = build_volume(case)
+    t_mesh = time.perf_counter() - t_start
+    e0, origin = energy_scale(case)
+    inverse_mass, offsets, names = _media(case, disc, e0)
+    expression = _potential(case, e0)
+    function = None
+    if expression is not None:
+        def function(x, y, z):
+            points = np.column_stack([np.ravel(x), np.ravel(y), np.ravel(z)])
+            theta, phi = angles(points)
+            values = expression(x=points[:, 0], y=points[:, 1], z=points[:, 2], r=np.linalg.norm(points, axis=1),
+                                theta=theta, phi=phi)
+            return values.reshape(np.shape(x))
+    t0 = time.perf_counter()
+    K, M = assemble_volume(disc, inverse_mass, offsets, function)
+    shell = case.shell
+    dirichlet = [w for w, c in (("inner", shell.inner_condition), ("outer", shell.outer_condition)) if c == "dirichlet"]
+    if shell.file is None and shell.inner is None:
+        dirichlet = [w for w in dirichlet if w != "inner"]
+    free = free_dofs(disc, dirichlet) if dirichlet else np.arange(disc.ndofs)
+    Kf, Mf = (restricted(K, free), restricted(M, free)) if len(free) < disc.ndofs else (K, M)
+    t_assembly = time.perf_counter() - t0
+    lower = min([0.0, *offsets.values()])
+    if function is not None:
+        lower = min(lower, float(np.min(function(*disc.nodes.T))))
+    outer_radius = float(np.max(np.linalg.norm(disc.nodes, axis=1)))
+    scale = 1.0 / outer_radius**2
+    pairs, warn_text = solve_case_modes(case, Kf, Mf, lower, scale, e0)
+    lam = pairs.lam
+    vectors = np.zeros((disc.ndofs, len(lam)))
+    vectors[free] = pairs.vectors
+    energies = lam * e0 if e0 is not None else lam.copy()
+    symmetric = _spherical(case)
+    labels = _labels(case, disc, vectors, M, lam)
+    multiplets = _volume_multiplets(lam, energies, case.modes.multiplet_tolerance, scale, labels, symmetric)
+    volume = float(np.ones(disc.ndofs) @ (M @ np.ones(disc.ndofs)))
+    mesh_info = {"kind": "shell", "source": disc.source, "degree": disc.degree, "elements": int(disc.mesh.nelements),
+                 "dofs": int(disc.ndofs), "free_dofs": int(len(free)), "h": disc.h, "volume": volume,
+                 "regions": {str(r): {"name": names[r], "inverse_mass": inverse_mass[r], "offset": offsets[r]}
+                             for r in disc.region_ids},
+                 "dirichlet_walls": dirichlet, "spherically_symmetric": symmetric}
+    if labels is not None:
+        mesh_info["labels"] = "(n, l) from angular content" + ("" if symmetric else " (parent labels, deformed)")
+    timings = {"mesh": t_mesh, "assembly": t_assembly, "eigensolve": pairs.timings["eigensolve"],
+               "total": time.perf_counter() - t_start}
+    lines = [f"shell: {disc!r}", f"mesh: degree {disc.degree}, {disc.mesh.nelements} tetrahedra, {disc.ndofs} dofs "
+             f"({len(free)} free), h = {disc.h:.4g}, volume = {volume:.10g}",
+             f"path: {pairs.backend} factorization, {getattr(pairs, 'method', 'lanczos')} iteration for "
+             f"{len(free)} unknowns"]
+    points, cells, cell_data = export_cells(disc)
+    export = {"points": points, "cells": cells, "cell_data": cell_data}
+    columns = {}
+    if labels is not None:
+        columns = {"n": [int(v) for v in labels.n], "dominant_l": [int(v) for v in labels.l],
+                   "l_weight": [float(labels.content[i, labels.l[i]]) for i in range(len(lam))]}
+    return finish_spectrum(case, pairs, e0, origin, multiplets, vectors, disc.nodes, mesh_info, timings, lines,
+                           warn_text, export, mode_columns=columns)
