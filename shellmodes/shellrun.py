@@ -18,9 +18,9 @@ import numpy as np
 from .case import Case, Wall
 from .errors import CaseError, GeometryError, MeshError
 from .harmonics import angles, real_sph_harm
-from .run import _potential, energy_scale, finish_spectrum, solve_case_modes, subdivision_level
-from .spectrum import Multiplet
+from .run import _potential, energy_scale, finish_spectrum, solve_case_modes
 from .solve import group_multiplets
+from .spectrum import Multiplet
 
 __all__ = ["run_shell", "wall_function", "build_volume"]
 
