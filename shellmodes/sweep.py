@@ -488,7 +488,8 @@ def _collect(case, out, steps, solved, reused, stopped, min_overlap) -> SweepRes
         spectrum, groups, vectors, _ = load_step(out / "steps" / step.folder_name)
         modes = spectrum["modes"]
         M = _mass_matrix(step.case) if step.index != steps[0].index else None
-        triples = tracker.add(StepModes(vectors=vectors, groups=groups, labels=[m["l"] for m in modes], M=M))
+        triples = tracker.add(StepModes(vectors=vectors, eigenvalues=np.array([m["eigenvalue"] for m in modes]),
+                                        groups=groups, labels=[m["l"] for m in modes], M=M))
         for j, track, overlap in triples:
             mode = modes[j]
             rows.append({"step": step.index, **dict(step.values), "track": track, "mode": j,

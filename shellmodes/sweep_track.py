@@ -7,6 +7,14 @@ from step a to step b by how much of its state lies in each multiplet of b.
 
 Method (one transition a -> b)
 ------------------------------
+0. Tracks that have shared one multiplet at every step since they began (a
+   *cohort*: e.g. the whole 7-fold l = 3 level of a sphere at the first step)
+   have no individual identity yet, only a common subspace.  Inside it each
+   cohort's basis is turned to the zeroth-order states of degenerate
+   perturbation theory for step b: the eigenvectors of b's operator
+   restricted to the cohort's span, A = C^T diag(lam_b) C + lam_top (I - C^T C)
+   with C = U_b^T M_b T_cohort (the part outside b's window counted at the top
+   of it).  A cohort splits when its tracks enter different multiplets.
 1. The tracked states T_a (N, n_a) of step a are made orthonormal in the mass
    matrix M_b of step b by the symmetric (Loewdin) choice
    T_a (T_a^T M_b T_a)^{-1/2}, which moves each column least.  M_b is the
@@ -66,6 +74,8 @@ class StepModes:
     ----------
     vectors
         (N, n) nodal eigenvectors, M-orthonormal on this step's surface.
+    eigenvalues
+        (n,) their eigenvalues, ascending.
     groups
         Multiplets: lists of mode indices (0..n-1), each mode in exactly one.
     labels
@@ -75,6 +85,7 @@ class StepModes:
     """
 
     vectors: np.ndarray
+    eigenvalues: np.ndarray
     groups: list
     labels: list
     M: object
@@ -95,6 +106,7 @@ class LevelTracker:
     first_step: list = field(default_factory=list)
     _states: np.ndarray | None = None
     _ids: list = field(default_factory=list)
+    _cohorts: list = field(default_factory=list)
 
     def _new_track(self, label, step) -> int:
         self.parent_l.append(label)
@@ -106,30 +118,48 @@ class LevelTracker:
         s = len(self.assignments)
         U = np.asarray(step.vectors, dtype=float)
         n = U.shape[1]
-        if self._states is None:
-            out = [(j, self._new_track(step.labels[j], s), float("nan")) for j in range(n)]
-            states, ids = U, [t for _, t, _ in out]
-        elif self._states.shape[0] != U.shape[0]:
-            warnings.warn(f"step {s} has {U.shape[0]} degrees of freedom, step {s - 1} had "
-                          f"{self._states.shape[0]}: levels matched in energy order, not by overlap",
-                          TrackingWarning, stacklevel=2)
+        group_of = np.zeros(n, dtype=int)
+        for h, g in enumerate(step.groups):
+            group_of[list(g)] = h
+        if self._states is None or self._states.shape[0] != U.shape[0]:
+            if self._states is not None:
+                warnings.warn(f"step {s} has {U.shape[0]} degrees of freedom, step {s - 1} had "
+                              f"{self._states.shape[0]}: levels matched in energy order, not by overlap",
+                              TrackingWarning, stacklevel=2)
             out = []
             for j in range(n):
                 track = self._ids[j] if j < len(self._ids) else self._new_track(step.labels[j], s)
                 out.append((j, track, float("nan")))
-            states, ids = U, [t for _, t, _ in out]
+            states, ids, cohorts = U, [t for _, t, _ in out], [("step", s, h) for h in group_of]
         else:
-            out, states, ids = self._follow(step, s)
+            out, states, ids, cohorts = self._follow(step, s)
         self.assignments.append(sorted(out))
-        self._states, self._ids = states, ids
+        self._states, self._ids, self._cohorts = states, ids, cohorts
         return self.assignments[-1]
+
+    @staticmethod
+    def _zeroth_order(T, U, MT, lam, cohorts):
+        """Turn each cohort's basis to step b's zeroth-order states (step 0 of the method)."""
+        T = T.copy()
+        top = float(np.max(lam)) if len(lam) else 0.0
+        for label in set(cohorts):
+            ks = [k for k, c in enumerate(cohorts) if c == label]
+            if len(ks) < 2:
+                continue
+            C = U.T @ MT[:, ks]
+            A = C.T @ (lam[:, None] * C) + top * (np.eye(len(ks)) - C.T @ C)
+            _, V = eigh(0.5 * (A + A.T))
+            T[:, ks] = T[:, ks] @ V
+        return T
 
     def _follow(self, step: StepModes, s: int):
         U, M = np.asarray(step.vectors, dtype=float), step.M
+        lam = np.asarray(step.eigenvalues, dtype=float)
         T = self._states
         G = T.T @ (M @ T)
         d, V = eigh(0.5 * (G + G.T))
         T = T @ (V * (1.0 / np.sqrt(np.maximum(d, 1e-300)))) @ V.T
+        T = self._zeroth_order(T, U, M @ T, lam, self._cohorts)
         O = U.T @ (M @ T)  # (n_b, n_a)
         groups = [np.asarray(g, dtype=int) for g in step.groups]
         w = np.array([np.sum(O[g] ** 2, axis=0) for g in groups])  # (groups, n_a)
@@ -140,7 +170,7 @@ class LevelTracker:
             h = slot_group[slot]
             if w[h, k] >= self.min_overlap:
                 sent[h].append(k)
-        out, new_states, new_ids = [], [], []
+        out, new_states, new_ids, new_cohorts = [], [], [], []
         for h, g in enumerate(groups):
             ks = sent[h]
             R = np.zeros((len(g), 0))
@@ -158,9 +188,15 @@ class LevelTracker:
                 j = int(g[r])
                 if owners[c] is None:
                     track, overlap = self._new_track(step.labels[j], s), float("nan")
+                    cohort = ("step", s, h)
                 else:
                     track, overlap = self._ids[owners[c]], float(w[h, owners[c]])
+                    cohort = (self._cohorts[owners[c]], h)
                 out.append((j, track, overlap))
                 new_states.append(U[:, g] @ R[:, c])
                 new_ids.append(track)
-        return out, np.column_stack(new_states), new_ids
+                new_cohorts.append(cohort)
+        # relabel cohorts with small tuples so that labels do not nest deeper at every step
+        names = {}
+        new_cohorts = [names.setdefault(c, ("cohort", s, len(names))) for c in new_cohorts]
+        return out, np.column_stack(new_states), new_ids, new_cohorts

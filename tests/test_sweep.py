@@ -125,6 +125,15 @@ def test_levels_keep_identity_through_the_l2_crossing(tmp_path, values):
     assert len(overlaps) == len(result.rows) - 9 and min(overlaps) > 0.99
 
 
+def test_a_sweep_starting_at_the_sphere_keeps_every_track(tmp_path):
+    """From the exact sphere (5-fold l = 2) into the deformed star: 9 levels in, the same 9 tracks out."""
+    result = run_sweep(star_case((0.0, 0.05, 0.1), subdivisions=1), tmp_path)
+    assert len(result.rows) == 3 * 9
+    assert len(result.tracks) == 9 and all(t["last_step"] == 2 for t in result.tracks)
+    overlaps = [r["overlap"] for r in result.rows if r["overlap"] is not None]
+    assert len(overlaps) == 2 * 9 and min(overlaps) > 0.95
+
+
 def test_tracker_follows_permuted_and_rotated_states():
     """Synthetic steps (identity mass matrix): order changes, a degenerate pair is re-based, a state leaves."""
     import scipy.sparse as sp
@@ -133,12 +142,14 @@ def test_tracker_follows_permuted_and_rotated_states():
     Q, _ = np.linalg.qr(rng.standard_normal((30, 6)))
     M = sp.identity(30, format="csr")
     tracker = LevelTracker(min_overlap=0.5)
-    tracker.add(StepModes(vectors=Q[:, :4], groups=[[0], [1], [2, 3]], labels=[0, 1, 2, 2], M=None))
+    tracker.add(StepModes(vectors=Q[:, :4], eigenvalues=np.array([0.0, 1.0, 2.0, 2.0]),
+                          groups=[[0], [1], [2, 3]], labels=[0, 1, 2, 2], M=None))
     c, s = np.cos(0.7), np.sin(0.7)
     pair = Q[:, 2:4] @ np.array([[c, -s], [s, c]])  # the same degenerate level in another basis
     # new order: the old mode 1 is now highest; old mode 0 is gone, a new state Q4 entered
     step_b = np.column_stack([pair[:, 0], pair[:, 1], Q[:, 4], Q[:, 1]])
-    triples = tracker.add(StepModes(vectors=step_b, groups=[[0, 1], [2], [3]], labels=[2, 2, 3, 1], M=M))
+    triples = tracker.add(StepModes(vectors=step_b, eigenvalues=np.array([2.0, 2.0, 3.0, 3.5]),
+                                    groups=[[0, 1], [2], [3]], labels=[2, 2, 3, 1], M=M))
     assert len(triples) == 4
     track_of = {mode: track for mode, track, _ in triples}
     assert track_of[3] == 1  # old mode 1 followed to the top
@@ -147,7 +158,37 @@ def test_tracker_follows_permuted_and_rotated_states():
     overlap = {mode: o for mode, _, o in triples}
     assert overlap[3] == pytest.approx(1.0, abs=1e-12) and np.isnan(overlap[2])
     with pytest.warns(TrackingWarning, match="energy order"):
-        tracker.add(StepModes(vectors=np.eye(31)[:, :4], groups=[[0], [1], [2], [3]], labels=[0, 1, 1, 1], M=None))
+        tracker.add(StepModes(vectors=np.eye(31)[:, :4], eigenvalues=np.arange(4.0), groups=[[0], [1], [2], [3]],
+                              labels=[0, 1, 1, 1], M=None))
+
+
+def test_tracker_starting_on_a_degenerate_level_adopts_the_split_states():
+    """A 3-fold level in an arbitrary basis at the first step, split into singlets at the next.
+
+    The first step's basis carries no identity; the tracks must take the split
+    states (degenerate perturbation theory's zeroth-order states), each with
+    overlap 1, instead of ending because each old vector is spread over all three.
+    """
+    import scipy.sparse as sp
+
+    rng = np.random.default_rng(11)
+    Q, _ = np.linalg.qr(rng.standard_normal((20, 4)))
+    mix, _ = np.linalg.qr(rng.standard_normal((3, 3)))  # a random basis of the degenerate level
+    first = np.column_stack([Q[:, 0], Q[:, 1:4] @ mix])
+    tracker = LevelTracker(min_overlap=0.5)
+    tracker.add(StepModes(vectors=first, eigenvalues=np.array([0.0, 2.0, 2.0, 2.0]), groups=[[0], [1, 2, 3]],
+                          labels=[0, 1, 1, 1], M=None))
+    triples = tracker.add(StepModes(vectors=Q, eigenvalues=np.array([0.0, 1.9, 2.0, 2.1]),
+                                    groups=[[0], [1], [2], [3]], labels=[0, 1, 1, 1],
+                                    M=sp.identity(20, format="csr")))
+    assert len(triples) == 4 and len(tracker.parent_l) == 4  # no track ended, none was born
+    assert all(o == pytest.approx(1.0, abs=1e-10) for _, _, o in triples)
+    # and once split they keep their identity when the order of two of them reverses
+    again = tracker.add(StepModes(vectors=Q[:, [0, 2, 1, 3]], eigenvalues=np.array([0.0, 1.9, 2.0, 2.1]),
+                                  groups=[[0], [1], [2], [3]], labels=[0, 1, 1, 1],
+                                  M=sp.identity(20, format="csr")))
+    before, after = dict((t, m) for m, t, _ in triples), dict((t, m) for m, t, _ in again)
+    assert [after[t] for t in range(4)] == [[0, 2, 1, 3].index(before[t]) for t in range(4)]
 
 
 # -- validation --------------------------------------------------------------------------------------
