@@ -518,22 +518,21 @@ def _cmd_sweep(args) -> int:
     case = load_case(case_path)
     out = Path(args.out) if args.out else case_path.with_suffix("") if case_path.suffix else \
         case_path.parent / (case_path.name + "-out")
-    bar = None
-    if not args.quiet:
-        from tqdm import tqdm
-
-        bar = tqdm(total=0, file=sys.stderr, unit="step", desc="sweep", leave=True)
+    bars = []  # made at the first report, when the number of steps is known
 
     def progress(done, total):
-        if bar is not None:
-            bar.total = total
-            bar.n = done
-            bar.refresh()
+        if args.quiet:
+            return
+        if not bars:
+            from tqdm import tqdm
+
+            bars.append(tqdm(total=total, initial=done, file=sys.stderr, unit="step", desc="sweep"))
+        bars[0].update(done - bars[0].n)
 
     try:
         result = run_sweep(case, out, workers=args.workers, scheduler=args.scheduler, progress=progress)
     finally:
-        if bar is not None:
+        for bar in bars:
             bar.close()
     if not args.quiet:
         print(f"{case.title or case_path.name}: {len(result.steps)} steps ({len(result.solved)} solved, "
