@@ -21,7 +21,7 @@ __all__ = ["main", "default_out"]
 
 #: modules that add a sub-command: each defines ``add_command(subparsers)``,
 #: which creates its parser and sets ``func`` to a function(args) -> exit code
-_PLUGIN_COMMANDS = ("convergence", "sweep", "report")
+_PLUGIN_COMMANDS = ("convergence", "sweep", "report", "bridge")
 
 
 def default_out(case_path: Path) -> Path:
