@@ -213,3 +213,66 @@ def format_table(results: list[CheckResult]) -> str:
     passed = sum(r.passed for r in results)
     lines.append(f"{passed} passed, {len(results) - passed} failed")
     return "\n".join(lines)
+
+
+def _shell_case(inner, outer, count, degree=2, subdivisions=2, layers=6, **shell):
+    walls = {"outer": {"shape": "sphere", "radius": outer}, "layers": layers, **shell}
+    if inner is not None:
+        walls["inner"] = {"shape": "sphere", "radius": inner}
+    data = {"shell": walls, "resolution": {"degree": degree, "subdivisions": subdivisions},
+            "modes": {"count": count}}
+    return run_case(case_from_dict(data, "<check>"))
+
+
+def _by_l(spectrum, l, count):
+    """Eigenvalues of the modes labelled with degree l (multiplet means), lowest first."""
+    means = [m.eigenvalue for m in spectrum.multiplets if m.l == l]
+    return np.array(means[:count])
+
+
+@check("hard-wall shell 1 < r < 2: l = 0, k = n pi", "exact: k = n pi / (b - a) (j_0, y_0 cross product)", 5e-4)
+def _shell_l0():
+    s = _shell_case(1.0, 2.0, 30)
+    got = _by_l(s, 0, 2)
+    exact = np.array([np.pi**2, (2 * np.pi) ** 2])
+    return float(got[0]), float(exact[0]), _max_rel(got, exact[:len(got)])
+
+
+# tolerance: degree 2 on 162 directions (subdivisions 2); the angular error grows like l^4 h^4, 2e-3 at l = 3
+@check("hard-wall shell 1 < r < 2: l = 1, 2, 3", "roots of j_l(ka) y_l(kb) - j_l(kb) y_l(ka), "
+       "scipy.special.spherical_jn/yn", 3e-3)
+def _shell_l123():
+    s = _shell_case(1.0, 2.0, 30)
+    got = np.array([_by_l(s, l, 1)[0] for l in (1, 2, 3)])
+    exact = np.array([ref.shell_dirichlet(l, 1, 1.0, 2.0)[0] ** 2 for l in (1, 2, 3)])
+    return float(got[0]), float(exact[0]), _max_rel(got, exact)
+
+
+@check("hard-wall ball r < 1: l = 0, 1, 2", "zeros of j_l (Abramowitz and Stegun Table 10.6; "
+       "scipy.special.spherical_jn)", 1e-3)
+def _ball():
+    s = _shell_case(None, 1.0, 16, subdivisions=2, layers=4)
+    got = np.array([_by_l(s, l, 1)[0] for l in (0, 1, 2)])
+    exact = np.array([ref.ball_dirichlet(l, 1, 1.0)[0] ** 2 for l in (0, 1, 2)])
+    return float(got[0]), float(exact[0]), _max_rel(got, exact)
+
+
+@check("free-wall shell 1 < r < 2: zero mode and l = 1", "roots with j_l', y_l' (scipy.special)", 5e-4)
+def _shell_neumann():
+    s = _shell_case(1.0, 2.0, 6, inner_condition="neumann", outer_condition="neumann")
+    zero = abs(float(s.eigenvalues[0]))
+    got = _by_l(s, 1, 1)[0]
+    exact = float(ref.shell_neumann(1, 1, 1.0, 2.0)[0] ** 2)
+    return float(got), exact, max(abs(got - exact) / exact, zero)
+
+
+@check("finite spherical well with a mass jump: ground state", "j_l inside, k_l outside, continuity of psi and "
+       "(1/m) dpsi/dr (BenDaniel and Duke 1966)", 5e-3)
+def _finite_well():
+    data = {"shell": {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 2.5},
+                      "layers": [6, 6], "regions": [{"effective_mass": 1.0}, {"effective_mass": 2.0, "offset": 30.0}]},
+            "resolution": {"degree": 2, "subdivisions": 2}, "modes": {"count": 1}}
+    s = run_case(case_from_dict(data, "<check>"))
+    exact = float(ref.finite_spherical_well(0, 30.0, 1.0, 1.0, 2.0)[0])
+    got = float(s.eigenvalues[0])
+    return got, exact, abs(got - exact) / exact
