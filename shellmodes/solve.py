@@ -172,6 +172,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     if method == "auto":
         method = "block" if n >= BLOCK_THRESHOLD else "lanczos"
     solve = None  # the block path factorizes once and keeps the factor across extensions
+    extra: dict = {}
     rng = np.random.default_rng(20261202)
     v0 = rng.standard_normal(n)
     t0 = time.perf_counter()
@@ -183,9 +184,12 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
             name_used, method_used = "dense", "dense"
         elif method == "block" and 4 * k < n:
             if solve is None:
+                t_factor = time.perf_counter()
                 solve = factorize((K - sigma * M).tocsc())
+                extra["factorization"] = time.perf_counter() - t_factor
             found = block_lowest(K, M, k, sigma, solve, gap=multiplet_tolerance, scale=scale)
             lam, U = found.lam, found.vectors
+            extra["block"] = found.stats
             name_used, method_used = name, "block"
         else:
             lam, U = _shift_invert(K, M, k, sigma, factorize, v0)
@@ -221,4 +225,4 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
                       f"(mode {int(np.argmax(residuals))}); do not trust these modes without checking",
                       DoubtfulResultWarning, stacklevel=2)
     return Eigenpairs(lam=lam, vectors=U, residuals=residuals, orthogonality=orth, shift=sigma,
-                      backend=name_used, requested=count, timings={"eigensolve": elapsed}, method=method_used)
+                      backend=name_used, requested=count, timings={"eigensolve": elapsed, **extra}, method=method_used)
