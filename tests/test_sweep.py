@@ -408,3 +408,15 @@ def test_saved_vectors_are_orthonormal_in_the_reassembled_mass_matrix(tmp_path):
         G = U.T @ (_mass_matrix(step.case) @ U)
         assert G.shape == (4, 4)
         assert np.max(np.abs(G - np.eye(4))) < 1e-10
+
+
+def test_a_step_that_cannot_be_solved_is_named_and_the_others_are_kept(tmp_path):
+    """50 modes fit on the level-1 mesh (162 nodes) but not on level 0 (42 nodes)."""
+    case = case_from_dict({"surface": {"shape": "sphere"}, "resolution": {"degree": 2, "subdivisions": 1},
+                           "modes": {"count": 50},
+                           "sweep": {"workers": 1,
+                                     "parameters": [{"key": "resolution.subdivisions", "values": [1, 0]}]}})
+    with pytest.raises(ShellmodesError, match="sweep step 1: .*only 42 degrees of freedom") as info:
+        run_sweep(case, tmp_path)
+    assert "\n" not in str(info.value)
+    assert sorted(p.name for p in (tmp_path / "steps").iterdir()) == ["step-0000"]
