@@ -28,6 +28,8 @@ if __name__ == "__main__":
         os.environ.setdefault(_name, "1")
 
 import argparse
+import json
+import shutil
 import tempfile
 import time
 from pathlib import Path
@@ -74,9 +76,9 @@ def main(argv=None) -> int:
     args = p.parse_args(argv)
     case = sweep_case(args.steps, args.modes, args.degree, args.subdivisions)
     load_before = os.getloadavg()
-    with tempfile.TemporaryDirectory(prefix="bench-sweep-") as tmp:
-        serial, serial_solve, serial_total = timed_sweep(case, Path(tmp) / "serial", 1)
-        pooled, pooled_solve, pooled_total = timed_sweep(case, Path(tmp) / "pool", args.workers)
+    tmp = tempfile.mkdtemp(prefix="bench-sweep-")
+    serial, serial_solve, serial_total = timed_sweep(case, Path(tmp) / "serial", 1)
+    pooled, pooled_solve, pooled_total = timed_sweep(case, Path(tmp) / "pool", args.workers)
     load_after = os.getloadavg()
 
     # compare by (step, track): inside an exactly degenerate multiplet which eigenvector a track is
@@ -91,6 +93,10 @@ def main(argv=None) -> int:
     exact = sphere_eigenvalues(len(lam_mid) + 1)[1:]
     sphere_error = float(np.max(np.abs(lam_mid - exact) / exact))
     modes = sorted({sum(1 for r in serial.rows if r["step"] == s.index) for s in serial.steps})
+    per_step = {name: float(np.mean([json.loads((folder / "steps" / s.folder_name / "spectrum.json").read_text())
+                                     ["timings"]["total"] for s in result.steps]))
+                for name, folder, result in (("serial", Path(tmp) / "serial", serial),
+                                             ("pool", Path(tmp) / "pool", pooled))}
 
     print(f"sweep: {args.steps} steps, {modes} modes per step, degree {args.degree}, "
           f"icosphere level {args.subdivisions}, {os.cpu_count()} cores")
@@ -100,6 +106,9 @@ def main(argv=None) -> int:
     print(f"{'1 worker':>14} {serial_solve:>16.1f} {serial_total:>16.1f}")
     print(f"{f'{args.workers} workers':>14} {pooled_solve:>16.1f} {pooled_total:>16.1f}")
     print(f"{'speed-up':>14} {serial_solve / pooled_solve:>16.2f} {serial_total / pooled_total:>16.2f}")
+    print(f"mean time of one step inside its worker: {per_step['serial']:.2f} s alone, {per_step['pool']:.2f} s "
+          f"with {args.workers} workers (equal on idle cores; larger when the cores are shared)")
+    shutil.rmtree(tmp, ignore_errors=True)
     print(f"BLAS threads in this process: {os.environ.get('OPENBLAS_NUM_THREADS', 'library default')}")
     print(f"same tracks at every step: {same_tracks}; max relative eigenvalue difference serial/parallel: "
           f"{float(np.nanmax(np.abs(lam_p - lam_s) / np.maximum(np.abs(lam_s), 1.0))):.1e}")
