@@ -77,8 +77,8 @@ def test_core_shell_mass_jump_against_matching_condition():
 
 
 def test_thin_shell_limit_trend():
-    case = case_from_dict({"surface": {"shape": "sphere", "radius": 1.0}, "resolution": {"degree": 2, "subdivisions": 2},
-                           "modes": {"count": 4}})
+    case = case_from_dict({"surface": {"shape": "sphere", "radius": 1.0},
+                           "resolution": {"degree": 2, "subdivisions": 2}, "modes": {"count": 4}})
     result = thin_shell_comparison(case, [0.4, 0.2], layers=4)
     assert set(result.shell) == {0.4, 0.2}
     # exact spherical shell: the band above its bottom tends to l(l+1)/R^2 like d^2 (measured 0.091, 0.022)
