@@ -11,7 +11,10 @@ Pipeline: case -> shape -> curved mesh -> problem -> solve -> spectrum -> output
 """
 
 from ._version import __version__
+from .angular import AngularContent, angular_content, multiplet_content
+from .bridge import ThinShellComparison, thin_shell_comparison
 from .case import Case, case_from_dict, case_schema, load_case
+from .convergence import ConvergenceStudy, convergence_study
 from .errors import (
                      CaseError,
                      DoubtfulResultWarning,
@@ -23,7 +26,9 @@ from .errors import (
                      SolverError,
 )
 from .harmonics import real_sph_harm
+from .meshfile import SurfaceMeshData, read_surface_mesh
 from .outputs import write_outputs
+from .perturbation import first_order_levels, splitting_table
 from .problem import SurfaceProblem, assemble_surface
 from .run import build_shape, discretise, run_case
 from .shapes import SHAPES, make_shape
@@ -40,4 +45,7 @@ __all__ = [
     "build_shape", "discretise", "run_case", "SHAPES", "make_shape",
     "Eigenpairs", "lowest_modes", "Multiplet", "Spectrum",
     "CurvedSurface", "SurfaceMapping", "curved_surface",
+    "AngularContent", "angular_content", "multiplet_content", "first_order_levels", "splitting_table",
+    "ConvergenceStudy", "convergence_study", "SurfaceMeshData", "read_surface_mesh",
+    "ThinShellComparison", "thin_shell_comparison",
 ]

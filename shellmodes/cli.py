@@ -43,6 +43,10 @@ def _cmd_run(args) -> int:
     spectrum = run_case(case)
     files = None if case.output.vtu else ["spectrum.json", "spectrum.csv", "run.log"]
     write_outputs(spectrum, out, files)
+    if args.report:
+        from .report import write_report
+
+        write_report(out)
     if not args.quiet:
         info = spectrum.info
         mesh = info["mesh"]
@@ -50,7 +54,7 @@ def _cmd_run(args) -> int:
               f"{len(spectrum.eigenvalues)} modes, {info['solver']['backend']}, "
               f"{info['timings']['total']:.2f} s")
         print(spectrum.summary())
-        print(f"wrote {out}/")
+        print(f"wrote {out}/" + (" (with report.html)" if args.report else ""))
     return 0
 
 
@@ -87,6 +91,7 @@ def _parser() -> argparse.ArgumentParser:
     r.add_argument("case", help="TOML case file")
     r.add_argument("--out", help="output folder (default: the case file's name beside it)")
     r.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
+    r.add_argument("--report", action="store_true", help="also write report.html (needs the plot extra)")
     r.set_defaults(func=_cmd_run)
     c = sub.add_parser("check", help="run the built-in validation set against exact results")
     c.add_argument("--only", help="run only checks whose name contains this text")
