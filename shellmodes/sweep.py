@@ -4,8 +4,15 @@
 together), validates them all before solving anything, solves the steps
 that are not already on disk (serially, in local worker processes, or on a
 running Dask distributed scheduler), saves each step as it finishes, follows
-the levels from step to step (:mod:`shellmodes.sweep_track`) and writes the
+the levels from step to step (:mod:`shellmodes.sweep_track`; in this process,
+in step order, while later steps are still being solved) and writes the
 sweep's table, level diagram and VTK collection (:mod:`shellmodes.sweep_files`).
+
+Threads: local worker processes are started (spawned) with the OpenMP and
+BLAS thread variables set to 1, so that two workers do not each start a
+thread per core.  Workers of a Dask scheduler keep their own settings
+(distributed's nanny sets these variables to 1 by default - recalled from
+its configuration, check yours).
 
 Layout of the output folder::
 
@@ -451,6 +458,8 @@ def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | N
     todo = [s for s in steps if s.index not in reused]
     log.info("sweep: %d steps, %d on disk, %d to solve", len(steps), len(reused), len(todo))
     done = len(reused)
+    collector = _Collector(out, steps, min_overlap)
+    collector.advance(reused)
     if progress is not None:
         progress(done, len(steps))
     if todo:
@@ -464,16 +473,18 @@ def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | N
             for step, (spectrum, caught) in runner:
                 _reemit(step, caught)
                 _save_step(spectrum, step, steps_dir)
+                del spectrum
                 done += 1
                 log.info("sweep: step %d saved (%d of %d)", step.index, done, len(steps))
                 if progress is not None:
                     progress(done, len(steps))
+                collector.advance([step.index])
         finally:
             close = getattr(runner, "close", None)
             if close is not None:
                 close()
     stopped = str(invalid) if invalid is not None else None
-    result = _collect(case, out, steps, tuple(s.index for s in todo), reused, stopped, min_overlap)
+    result = collector.result(case, tuple(s.index for s in todo), reused, stopped)
     write_sweep_files(result, case)
     if invalid is not None:
         kept = f"steps 0-{len(steps) - 1} are saved in {steps_dir}" if steps else "no step was solved"
@@ -481,32 +492,56 @@ def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | N
     return result
 
 
-def _collect(case, out, steps, solved, reused, stopped, min_overlap) -> SweepResult:
-    from .sweep_track import LevelTracker, StepModes
+class _Collector:
+    """Follows the levels step by step, in order, as soon as each step's folder is complete.
 
-    tracker = LevelTracker(min_overlap=min_overlap)
-    rows = []
-    for step in steps:
-        spectrum, groups, vectors, _ = load_step(out / "steps" / step.folder_name)
-        modes = spectrum["modes"]
-        M = _mass_matrix(step.case) if step.index != steps[0].index else None
-        triples = tracker.add(StepModes(vectors=vectors, eigenvalues=np.array([m["eigenvalue"] for m in modes]),
-                                        groups=groups, labels=[m["l"] for m in modes], M=M))
-        for j, track, overlap in triples:
-            mode = modes[j]
-            rows.append({"step": step.index, **dict(step.values), "track": track, "mode": j,
-                         "energy": mode["energy"], "eigenvalue": mode["eigenvalue"],
-                         "parent_l": tracker.parent_l[track], "overlap": None if math.isnan(overlap) else overlap,
-                         "residual": mode["residual"]})
-    tracks = []
-    for track, label in enumerate(tracker.parent_l):
-        present = [r["step"] for r in rows if r["track"] == track]
-        tracks.append({"track": track, "parent_l": label, "first_step": min(present), "last_step": max(present)})
-    keys = tuple(p.key for p in case.sweep.parameters)
-    if steps:
-        keys = tuple(k for k, _ in steps[0].values)
-    return SweepResult(folder=out, keys=keys, steps=tuple(steps), rows=rows, tracks=tracks, solved=solved,
-                       reused=reused, stopped=stopped)
+    Steps finish out of order in parallel; each one is tracked once all before
+    it are, so the tracking overlaps the solving and only one step's vectors
+    are held at a time.
+    """
+
+    def __init__(self, out: Path, steps, min_overlap: float):
+        from .sweep_track import LevelTracker
+
+        self.out, self.steps = out, list(steps)
+        self.tracker = LevelTracker(min_overlap=min_overlap)
+        self.rows, self.next, self.ready = [], 0, set()
+
+    def advance(self, finished=()):
+        from .sweep_track import StepModes
+
+        self.ready.update(finished)
+        while self.next < len(self.steps) and self.steps[self.next].index in self.ready:
+            step = self.steps[self.next]
+            spectrum, groups, vectors, _ = load_step(self.out / "steps" / step.folder_name)
+            modes = spectrum["modes"]
+            M = _mass_matrix(step.case) if self.next > 0 else None
+            triples = self.tracker.add(StepModes(
+                vectors=vectors, eigenvalues=np.array([m["eigenvalue"] for m in modes]), groups=groups,
+                labels=[m["l"] for m in modes], M=M))
+            for j, track, overlap in triples:
+                mode = modes[j]
+                self.rows.append({"step": step.index, **dict(step.values), "track": track, "mode": j,
+                                  "energy": mode["energy"], "eigenvalue": mode["eigenvalue"],
+                                  "parent_l": self.tracker.parent_l[track],
+                                  "overlap": None if math.isnan(overlap) else overlap,
+                                  "residual": mode["residual"]})
+            self.next += 1
+
+    def result(self, case, solved, reused, stopped) -> SweepResult:
+        self.advance()
+        if self.next != len(self.steps):
+            raise RuntimeError(f"sweep step {self.steps[self.next].index} was never saved")
+        first, last = {}, {}
+        for row in self.rows:
+            first.setdefault(row["track"], row["step"])
+            last[row["track"]] = row["step"]
+        tracks = [{"track": t, "parent_l": label, "first_step": first[t], "last_step": last[t]}
+                  for t, label in enumerate(self.tracker.parent_l)]
+        keys = tuple(k for k, _ in self.steps[0].values) if self.steps else \
+            tuple(p.key for p in case.sweep.parameters)
+        return SweepResult(folder=self.out, keys=keys, steps=tuple(self.steps), rows=self.rows, tracks=tracks,
+                           solved=solved, reused=reused, stopped=stopped)
 
 
 # -- command line ------------------------------------------------------------------------------------
