@@ -266,8 +266,9 @@ class Modes(_Table):
     below: float | None = Field(None, description="all modes with energy below this, in units.energy")
     multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
     backend: Literal["auto", "splu", "cholmod"] = Field("auto", description="factorization for shift-invert")
-    method: Literal["auto", "lanczos", "block"] = Field(
-        "auto", description="eigen-iteration: ARPACK Lanczos, or a blocked shift-invert iteration for large problems")
+    method: Literal["auto", "lanczos", "block", "lobpcg"] = Field(
+        "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, or "
+                            "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor")
     residual_limit: Positive = Field(1e-6, description="largest acceptable relative residual")
 
     @model_validator(mode="before")

@@ -166,6 +166,29 @@ def _volume_multiplets(lam, energies, tolerance, scale, labels, symmetric) -> li
     return out
 
 
+def _choose_path(case: Case, K, points):
+    """Factorize (shift-invert) if the estimated Cholesky factor fits in memory, else LOBPCG with AMG.
+
+    3-D factors fill in badly (DESIGN.md: 5.2 GB at 464k P2 unknowns), so the
+    factor's size is estimated by nested dissection before anything is factored.
+    """
+    from .backends.lobpcg_amg import choose_eigen_path
+
+    count = case.modes.count or 50
+    try:
+        path, estimate = choose_eigen_path(K, count, points=points)
+    except (MemoryError, ValueError):  # the estimate itself is optional information
+        return "shift-invert", None, "factor size not estimated"
+    gib = estimate.bytes / 2**30
+    if path == "shift-invert":
+        reason = f"estimated Cholesky factor {gib:.2f} GiB fits in memory: shift-invert"
+    else:
+        reason = f"estimated Cholesky factor {gib:.2f} GiB exceeds half the free memory: LOBPCG with AMG"
+    if case.modes.method != "auto":
+        reason += f" (case asks for method {case.modes.method!r})"
+    return path, estimate, reason
+
+
 def run_shell(case: Case):
     """Solve a shell or ball case and return its :class:`~shellmodes.spectrum.Spectrum`."""
     from .volume import assemble_volume, export_cells, free_dofs, restricted
@@ -198,6 +221,9 @@ def run_shell(case: Case):
         lower = min(lower, float(np.min(function(*disc.nodes.T))))
     outer_radius = float(np.max(np.linalg.norm(disc.nodes, axis=1)))
     scale = 1.0 / outer_radius**2
+    path, estimate, reason = _choose_path(case, Kf, disc.nodes[free])
+    if path == "lobpcg-amg" and case.modes.method == "auto":
+        case = case.model_copy(update={"modes": case.modes.model_copy(update={"method": "lobpcg"})})
     pairs, warn_text = solve_case_modes(case, Kf, Mf, lower, scale, e0)
     lam = pairs.lam
     vectors = np.zeros((disc.ndofs, len(lam)))
@@ -218,8 +244,9 @@ def run_shell(case: Case):
                "total": time.perf_counter() - t_start}
     lines = [f"shell: {disc!r}", f"mesh: degree {disc.degree}, {disc.mesh.nelements} tetrahedra, {disc.ndofs} dofs "
              f"({len(free)} free), h = {disc.h:.4g}, volume = {volume:.10g}",
-             f"path: {pairs.backend} factorization, {getattr(pairs, 'method', 'lanczos')} iteration for "
-             f"{len(free)} unknowns"]
+             f"path: {pairs.backend} / {getattr(pairs, 'method', 'lanczos')} for {len(free)} unknowns; {reason}"]
+    mesh_info["solver_path"] = {"path": path, "reason": reason,
+                                "estimated_factor_bytes": None if estimate is None else int(estimate.bytes)}
     points, cells, cell_data = export_cells(disc)
     export = {"points": points, "cells": cells, "cell_data": cell_data}
     columns = {}

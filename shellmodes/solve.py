@@ -35,7 +35,7 @@ log = logging.getLogger(__name__)
 DENSE_LIMIT = 600
 #: from this size on ``method="auto"`` uses the blocked iteration (measured: benchmarks/README.md)
 BLOCK_THRESHOLD = 200_000
-METHODS = ("auto", "lanczos", "block")
+METHODS = ("auto", "lanczos", "block", "lobpcg")
 
 
 @dataclass(frozen=True, eq=False)
@@ -168,7 +168,10 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     K = sp.csr_matrix(K)
     M = sp.csr_matrix(M)
     sigma = float(lower_bound - scale)
-    name, factorize = get_backend(backend) if n > DENSE_LIMIT else ("dense", None)
+    if method == "lobpcg":  # no factorization: LOBPCG preconditioned by algebraic multigrid
+        name, factorize = ("amg", None) if n > DENSE_LIMIT else ("dense", None)
+    else:
+        name, factorize = get_backend(backend) if n > DENSE_LIMIT else ("dense", None)
     if method == "auto":
         method = "block" if n >= BLOCK_THRESHOLD else "lanczos"
     solve = None  # the block path factorizes once and keeps the factor across extensions
@@ -191,6 +194,13 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
             lam, U = found.lam, found.vectors
             extra["block"] = found.stats
             name_used, method_used = name, "block"
+        elif method == "lobpcg":
+            from .backends.lobpcg_amg import lobpcg_lowest
+
+            lam, U = lobpcg_lowest(K, M, k, shift=sigma, tol=1e-9)
+            order = np.argsort(lam)
+            lam, U = lam[order], U[:, order]
+            name_used, method_used = "amg", "lobpcg"
         else:
             lam, U = _shift_invert(K, M, k, sigma, factorize, v0)
             name_used, method_used = name, "lanczos"
