@@ -35,6 +35,7 @@ from .shapes import SHAPES, make_shape
 from .solve import Eigenpairs, lowest_modes
 from .spectrum import Multiplet, Spectrum
 from .surface import CurvedSurface, SurfaceMapping, curved_surface
+from .sweep import SweepResult, run_sweep
 
 __all__ = [
     "__version__",
@@ -47,5 +48,5 @@ __all__ = [
     "CurvedSurface", "SurfaceMapping", "curved_surface",
     "AngularContent", "angular_content", "multiplet_content", "first_order_levels", "splitting_table",
     "ConvergenceStudy", "convergence_study", "SurfaceMeshData", "read_surface_mesh",
-    "ThinShellComparison", "thin_shell_comparison",
+    "ThinShellComparison", "thin_shell_comparison", "SweepResult", "run_sweep",
 ]

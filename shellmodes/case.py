@@ -466,6 +466,8 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
         raise CaseError("a case must be a table of tables", source)
     if "source" in data:
         raise CaseError("unknown key; 'source' is reserved", source, "source")
+    # a table given as None (e.g. from Case.model_dump) counts as absent
+    data = {k: v for k, v in data.items() if not (k in ("surface", "shell", "potential", "sweep") and v is None)}
     if "surface" not in data and "shell" not in data:
         raise CaseError("required table is missing; give [surface] (a curved surface) or [shell] "
                         "(a 3-D shell or ball)", source, "surface")

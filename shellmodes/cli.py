@@ -124,7 +124,8 @@ def main(argv=None) -> int:
     except BrokenPipeError:  # output piped into a pager or head that closed early
         return 0
     except KeyboardInterrupt:
-        print("shellmodes: interrupted; nothing was written", file=sys.stderr)
+        print("shellmodes: interrupted; no file was left half-written (finished sweep steps are kept)",
+              file=sys.stderr)
         return 130
     except Exception as exc:  # an internal failure, not the user's input
         print(f"shellmodes: internal error: {type(exc).__name__}: {exc} (please report this)", file=sys.stderr)

@@ -42,6 +42,19 @@ def case_params():
     return [pytest.param(p, id=p.name, marks=[pytest.mark.slow] if p.name in SLOW else []) for p in CASE_FILES]
 
 
+def _check_shell(case, spectrum):
+    """Shells: hard walls make every level positive; labels exist; regions are recorded."""
+    mesh = spectrum.info["mesh"]
+    assert mesh["dofs"] > mesh["free_dofs"] > 0  # hard walls remove their nodes
+    lam = spectrum.eigenvalues
+    if case.shell.outer_condition == "dirichlet":
+        assert lam[0] > 0  # a Dirichlet wall excludes the constant (min-max principle)
+    assert len(mesh["regions"]) == max(1, len(case.shell.regions))
+    assert all(m.l is not None for m in spectrum.multiplets)
+    assert "solver_path" in mesh
+
+
+
 @pytest.mark.parametrize("path", case_params())
 def test_case_spectrum_is_sane(path):
     case = load_case(path)
@@ -69,6 +82,10 @@ def test_case_spectrum_is_sane(path):
     # energies are E0 * lambda (E0 = hbar^2/(2 m L^2), or hbar^2 R^2/(2 I) for a rotor)
     e0 = spectrum.info["units"]["energy_per_lambda"]
     np.testing.assert_allclose(energy, lam if e0 is None else e0 * lam, rtol=1e-12, atol=0)
+
+    if spectrum.info["mesh"].get("kind") == "shell":
+        _check_shell(case, spectrum)
+        return
 
     # the smallest spacing 4 pi / area is the scale of "zero" (the solver's own spectral scale)
     scale = 4 * np.pi / spectrum.info["mesh"]["area"]
