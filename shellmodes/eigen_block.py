@@ -1,34 +1,36 @@
 """Blocked shift-invert eigen-iteration for large problems.
 
 The lowest eigenpairs of K u = lam M u from one Cholesky factor of
-A = K - sigma M (sigma strictly below the spectrum).  It is a block Davidson
-iteration whose correction equation is solved exactly: every step applies
-A^-1 to a block of residuals r = K x - theta M x of the current Ritz
-vectors, which adds x + (sigma - theta) A^-1 M x, so the search space grows
-as a block Krylov space of (A^-1 M) does, the operator of shift-invert
-Lanczos (Morgan and Scott, SIAM J. Sci. Stat. Comput. 7 (1986) 817; Saad,
-*Numerical Methods for Large Eigenvalue Problems*, 2nd ed., SIAM 2011,
-sections 8.3 and 11.2).  The residual of a nearly converged vector is small
-and A^-1 r is nearly orthogonal to the space, so adding it loses no digits,
-which adding A^-1 M x would.
+A = K - sigma M (sigma strictly below the spectrum): block Lanczos on the
+operator T = A^-1 M, which is self-adjoint in the M inner product, with full
+reorthogonalisation and Krylov-Schur thick restarts (Stewart, SIAM J. Matrix
+Anal. Appl. 23 (2001) 601; Saad, *Numerical Methods for Large Eigenvalue
+Problems*, 2nd ed., SIAM 2011, sections 6.3 and 7.2).  Every step applies
+A^-1 M to a whole block, so the factor solves many right-hand sides per pass,
+and every other operation on n-vectors is a matrix-matrix product:
 
-Everything but the triangular solves is BLAS-3 over blocks: block classical
-Gram-Schmidt in the M inner product with a second pass when the first one
-cancels (Kahan's "twice is enough", Parlett, *The Symmetric Eigenvalue
-Problem*, SIAM 1998, section 6.9), SVQB inside a block (Stathopoulos and Wu,
-SIAM J. Sci. Comput. 23 (2002) 2165), and Rayleigh-Ritz of (K, M) on the
-space.  Single-vector Lanczos (ARPACK) spends most of its time in
-matrix-vector Gram-Schmidt on large surfaces (DESIGN.md); blocking turns
-that work into matrix-matrix products and lets the factor solve many
-right-hand sides per pass.
+- Gram-Schmidt of the new block A^-1 M Q_j in the M inner product, first
+  against Q_(j-1) and Q_j (the only blocks it couples with in exact
+  arithmetic; after a restart, every kept vector), then once against the
+  whole space, then SVQB inside the block (Stathopoulos and Wu, SIAM J. Sci.
+  Comput. 23 (2002) 2165), with one more pass when the block is
+  ill-conditioned;
+- the projected matrix H = V^T M T V from those coefficients, its
+  eigenpairs (mu, y) giving lam = sigma + 1/mu, and the residual estimate
+  ||T x - mu x||_M = ||S^T y|| for free from the Krylov-Schur relation
+  T V = V H + Q S^T;
+- on a restart, the lowest Ritz vectors, cut at a gap between Ritz values so
+  a multiplet is never split, computed in place.
 
-The active block is the lowest Ritz vectors not yet converged and always ends
-at the widest gap between Ritz values near the nominal block size, so a
-multiplet is never split between two blocks.  Converged vectors are locked:
-they stay in the space (Rayleigh-Ritz keeps improving them) but are not
-expanded any more.  When the space is full it is restarted with the lowest
-Ritz vectors (thick restart).  The start block is random with a fixed seed,
-so results are reproducible.
+The iteration stops when every wanted pair meets ARPACK's criterion (as the
+Lanczos path in :mod:`shellmodes.solve` uses) and, checked once, the true
+residuals of K and M; a final Rayleigh-Ritz on (K, M) gives the eigenvalues.
+The set is extended past a multiplet cut by the count.  A block holds at most
+``block`` vectors of one exactly degenerate eigenvalue, so the block size
+follows the multiplets expected (:func:`default_block_size`).  Single-vector
+Lanczos (ARPACK) spends most of its time in matrix-vector Gram-Schmidt on
+large surfaces (DESIGN.md); here that work is matrix-matrix.  The start block
+is random with a fixed seed, so results are reproducible.
 """
 
 from __future__ import annotations
@@ -49,8 +51,13 @@ __all__ = ["BlockResult", "block_lowest", "default_block_size"]
 
 log = logging.getLogger(__name__)
 
-#: relative residual every returned pair reaches (or the rounding floor, whichever is larger)
-TOLERANCE = 1e-11
+#: relative residual every returned pair reaches (or the rounding floor, whichever is larger); the
+#: iteration stops on ARPACK's criterion (||A^-1 M x - mu x|| <= 1e-13 mu, as the Lanczos path) and
+#: tightens that only when a true residual is above this
+TOLERANCE = 1e-9
+#: SVQB scales errors along the space up by 1 / sqrt(this ratio of the block's Gram eigenvalues);
+#: below it another Gram-Schmidt pass follows
+_ILL_CONDITIONED = 1e-4
 #: directions of a new block whose Gram eigenvalue is below this, relative to the largest, are dependent
 _DEPENDENT = 1e-12
 #: rows per chunk of the in-place restart product
@@ -75,13 +82,16 @@ class BlockResult:
 
 
 def default_block_size(count: int) -> int:
-    """Nominal block size for ``count`` wanted modes: 1.5 sqrt(count), between 8 and 32.
+    """Nominal block size for ``count`` wanted modes: 1.1 sqrt(count), between 8 and 32.
 
-    Close to the largest multiplet of a sphere-like spectrum up to that count
-    (2l + 1 modes with l ~ sqrt(count)); smaller blocks need fewer solves in
-    all, larger ones make Gram-Schmidt more efficient (benchmarks/README.md).
+    About half the largest multiplet of a sphere-like spectrum up to that
+    count (2l + 1 modes with l ~ sqrt(count)); rounding feeds the missing
+    directions of a degenerate eigenvalue in, as it does for single-vector
+    Lanczos.  Measured at 100k unknowns and 115 modes: blocks of 12 need 588
+    solves and 14.1 s, blocks of 17 need 748 solves and 17.3 s
+    (benchmarks/README.md).
     """
-    return int(np.clip(np.ceil(1.5 * np.sqrt(count)), 8, 32))
+    return int(np.clip(np.ceil(1.1 * np.sqrt(count)), 8, 32))
 
 
 @contextlib.contextmanager
@@ -134,26 +144,26 @@ def _svqb(W, MW):
     d, P = np.linalg.eigh(0.5 * (G + G.T))
     keep = d > _DEPENDENT * max(float(d[-1]), 1e-300)
     S = P[:, keep] / np.sqrt(d[keep])
-    return W @ S, MW @ S
+    return W @ S, MW @ S, float(d[keep][0] / d[-1])
 
 
-def _orthonormal_basis(W, MW, V, M, rng):
+def _orthonormal_basis(W, MW, V, M, rng, again: bool = True):
     """An M-orthonormal basis Q of span(W), M-orthogonal to V, and R = Q^T M W (so W = Q R).
 
-    ``W`` is already projected once against V.  One classical Gram-Schmidt
-    pass leaves an error along V of about eps / (fraction of the norm kept),
-    and the SVQB normalisation scales it up, so a second pass always follows
-    it ("twice is enough", Parlett 1998, section 6.9), then SVQB again.
-    Measured: skipping the second pass when less than 1e3 was cancelled
-    stalls the Lanczos residual estimates above 1e-13 for good.  Directions
-    lost to rank deficiency are replaced by random ones so the block keeps
-    its size (their rows of R are zero).
+    ``W`` is already projected against V.  SVQB scales the error left along V
+    up by 1 / sqrt(conditioning of the block), so another Gram-Schmidt pass
+    and SVQB follow when ``again`` or when the block is ill-conditioned
+    ("twice is enough", Parlett 1998, section 6.9).  Measured: without that
+    pass, a 1-D problem with nearly dependent blocks stalls its Lanczos
+    residual estimates above 1e-13 for good.  Directions lost to rank
+    deficiency are replaced by random ones so the block keeps its size
+    (their rows of R are zero).
     """
     b = W.shape[1]
-    Q, MQ = _svqb(W, MW)
-    if V.shape[1] and Q.shape[1]:
+    Q, MQ, conditioning = _svqb(W, MW)
+    if (again or conditioning < _ILL_CONDITIONED) and V.shape[1] and Q.shape[1]:
         Q, MQ, _ = _project_out(Q, MQ, V, M)
-        Q, MQ = _svqb(Q, MQ)
+        Q, MQ, _ = _svqb(Q, MQ)
     if Q.shape[1] < b:
         basis = np.hstack([V, Q])
         filler = rng.standard_normal((W.shape[0], b - Q.shape[1]))
@@ -207,9 +217,11 @@ def block_lowest(K, M, count: int, sigma: float, solve: Callable, *, gap: float 
         Largest number of basis vectors before a thick restart
         (default about 2.2 count + 2 block, capped at n).
     tolerance
-        Relative residual ||K u - lam M u|| / (max(|lam|, |sigma|) ||M u||) every
-        returned pair must reach; raised to the rounding floor of the problem
-        (64 eps lam_max / max(|lam|, |sigma|)) when that is larger.
+        The iteration stops when every wanted pair meets ARPACK's criterion
+        ||A^-1 M x - mu x||_M <= 1e-13 mu (the Lanczos path's standard) and
+        its relative residual ||K u - lam M u|| / (max(|lam|, |sigma|) ||M u||)
+        is at most this or the rounding floor 64 eps lam_max / max(|lam|, |sigma|);
+        otherwise the first criterion is tightened, down to 1e-15.
     seed
         Seed of the random start block.
     max_solves
@@ -260,6 +272,7 @@ def _krylov_schur(K, M, count: int, sigma: float, solve: Callable, *, gap: float
     m = 0
     Q = rng.standard_normal((n, b))
     Q, MQ, _ = _orthonormal_basis(Q, M @ Q, V[:, :0], M, rng)
+    local = 0  # first column the next block is locally orthogonalised against
     tol_t = 1e-13  # ARPACK's tolerance on ||A^-1 M x - mu x||_M / mu, as in the Lanczos path
     while True:
         V[:, m:m + b] = Q
@@ -269,11 +282,19 @@ def _krylov_schur(K, M, count: int, sigma: float, solve: Callable, *, gap: float
         stats["time_solve"] += time.perf_counter() - ts
         stats["solves"] += b
         tg = time.perf_counter()
-        W, MW, C = _project_out(W, M @ W, V[:, :m], M)
+        # Local pass first: in exact arithmetic A^-1 M Q_j couples only with Q_(j-1) and Q_j (with
+        # every kept Ritz vector right after a restart), so the cancellation happens there; one full
+        # pass after it then removes what rounding left along the whole space at the size of the
+        # remainder, and normalising loses nothing (half the cost of two full passes).
+        W, MW, C = _project_out(W, M @ W, V[:, local:m], M)
+        W, MW, C_full = _project_out(W, MW, V[:, :m], M)
+        C_full[local:m] += C
+        C = C_full
         H[:m, m_old:m] = C
         H[m_old:m, :m] = C.T
         H[m_old:m, m_old:m] = 0.5 * (C[m_old:m] + C[m_old:m].T)
-        Q, MQ, R = _orthonormal_basis(W, MW, V[:, :m], M, rng)
+        Q, MQ, R = _orthonormal_basis(W, MW, V[:, :m], M, rng, again=False)
+        local = m_old
         S[:m] = 0.0
         S[m_old:m] = R.T
         stats["time_orthogonalise"] += time.perf_counter() - tg
@@ -298,7 +319,7 @@ def _krylov_schur(K, M, count: int, sigma: float, solve: Callable, *, gap: float
             U = U @ Z
             res = _residuals(K, M, U, lam_k, floor_scale)
             limit = np.maximum(tolerance, _FLOOR * lam_top / np.maximum(np.abs(lam_k), floor_scale))
-            if np.all(res <= limit) or tol_t <= 1e-16:
+            if np.all(res <= limit) or tol_t <= 1e-15:
                 break
             log.debug("block iteration: true residual %.1e above %.1e; tightening", res.max(), limit.min())
             tol_t *= 0.1
@@ -314,6 +335,7 @@ def _krylov_schur(K, M, count: int, sigma: float, solve: Callable, *, gap: float
             H[:keep, :keep] = np.diag(mu[:keep])
             S[:keep] = (S[:m].T @ Y[:, :keep]).T
             m = keep
+            local = 0  # the pending block couples with every kept vector
             stats["restarts"] += 1
             stats["time_restart"] += time.perf_counter() - tr
             H[:m, m:m + b] = S[:m]
