@@ -128,8 +128,8 @@ def _hemi_n():
     return np.nan, 0.0, _max_rel(s.eigenvalues[:16], ref.hemisphere_eigenvalues(16, "neumann"))
 
 
-@check("cap of 120 degrees, hard rim: 12 eigenvalues", "nu(nu+1), P_nu^-m(cos theta0) = 0 via "
-       "scipy.special.hyp2f1 (DLMF 14.3.1)", 1e-5)
+@check("cap of 120 degrees, hard rim: 12 eigenvalues", "nu(nu+1) with P_nu^-m(cos theta0) = 0 (Mehler-Dirichlet "
+       "integral and degree recurrence, DLMF 14.12.1, 14.10.3)", 1e-5)
 def _cap120():
     s = _solve({"shape": "cap", "half_angle": 120.0, "rim": "dirichlet"}, 4, 4, 12)
     return np.nan, 0.0, _max_rel(s.eigenvalues[:12], ref.cap_eigenvalues(np.radians(120.0), 12, "dirichlet"))
