@@ -10,7 +10,7 @@ QUICK = ("area of", "rigid rotor", "electron on", "hemisphere", "cap of 120")
 
 def test_every_check_names_a_source_and_tolerance():
     assert len(CHECKS) >= 18
-    for name, (fn, source, tolerance) in CHECKS.items():
+    for name, (_fn, source, tolerance) in CHECKS.items():
         assert source and tolerance >= 0, name
 
 
