@@ -175,9 +175,18 @@ def solve_case_modes(case: Case, K, M, lower_bound: float, scale: float, e0):
             raise CaseError(str(exc), case.source, "modes.backend") from None
         except ShellmodesError as exc:
             raise CaseError(str(exc), case.source, "modes.count" if modes.count else "modes.below") from None
+    messages = [str(w.message) for w in caught]
     for w in caught:
         warnings.warn(w.message, w.category, stacklevel=3)
-    return pairs, [str(w.message) for w in caught]
+    if len(pairs.lam) == 0:
+        with threadpool_limits(limits=1):
+            lowest = lowest_modes(K, M, count=1, lower_bound=lower_bound, scale=scale, backend=modes.backend).lam[0]
+        shown = lowest * e0 if e0 is not None else lowest
+        text = (f"{case.source}: no mode lies below modes.below = {modes.below!r}; the lowest is "
+                f"{shown:.6g} {case.units.energy}")
+        warnings.warn(text, UserWarning, stacklevel=3)
+        messages.append(text)
+    return pairs, messages
 
 
 def finish_spectrum(case: Case, pairs, e0, origin, multiplets, vectors, nodes, mesh_info, timings, lines,

@@ -88,3 +88,16 @@ def test_diagonal_problem_exact():
         warnings.simplefilter("error")
         e = lowest_modes(K, M, 10)
     np.testing.assert_allclose(e.lam, np.arange(1.0, 11.0), rtol=1e-12)
+
+
+def test_energy_window_with_no_mode_says_so(tmp_path):
+    from shellmodes.case import case_from_dict
+    from shellmodes.run import run_case
+
+    case = case_from_dict({"surface": {"shape": "cap", "half_angle": 90.0}, "resolution": {"degree": 2,
+                           "subdivisions": 2}, "modes": {"below": 1.0}})
+    # the hard-rim hemisphere's lowest eigenvalue is 2 (l = 1, m = 0): nothing lies below 1
+    with pytest.warns(UserWarning, match="no mode lies below"):
+        spectrum = run_case(case)
+    assert len(spectrum.eigenvalues) == 0
+    assert any("lowest is 2" in w for w in spectrum.info["warnings"])
