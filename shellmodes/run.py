@@ -183,7 +183,7 @@ def solve_case_modes(case: Case, K, M, lower_bound: float, scale: float, e0):
             lowest = lowest_modes(K, M, count=1, lower_bound=lower_bound, scale=scale, backend=modes.backend).lam[0]
         shown = lowest * e0 if e0 is not None else lowest
         text = (f"{case.source}: no mode lies below modes.below = {modes.below!r}; the lowest is "
-                f"{shown:.6g} {case.units.energy}")
+                f"{shown:.6g}" + ("" if case.units.energy == "1" else f" {case.units.energy}"))
         warnings.warn(text, UserWarning, stacklevel=3)
         messages.append(text)
     return pairs, messages
