@@ -48,6 +48,8 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
+from _problems import peak_memory_gib  # noqa: E402
+
 COUNT = 50
 INNER, OUTER = 1.0, 2.0
 TOLERANCES = (1e-4, 1e-6)
@@ -108,13 +110,18 @@ def build(degree: int, level: int, layers: int):
                                       "mesh": t1 - t0, "assembly": t2 - t1}
 
 
-def point(degree: int, level: int, layers: int, solver: str, estimate: bool, memory_limit: float | None) -> dict:
+def _phase(text: str, t0: float) -> None:
+    """Progress on stderr, so that a killed child still says how far it got."""
+    print(f"[{time.perf_counter() - t0:8.1f} s, VmHWM {peak_memory_gib():.2f} GiB] {text}", file=sys.stderr,
+          flush=True)
+
+
+def point(degree: int, level: int, layers: int, solver: str, estimate: bool, memory_limit: float | None,
+          estimate_only: bool = False) -> dict:
     """One child-process measurement; ``solver`` is cholmod, splu or lobpcg."""
     if memory_limit:
         limit = int(memory_limit * 2**30)
         resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
-    from _problems import peak_memory_gib
-
     from shellmodes.backends import get_backend
     from shellmodes.backends.lobpcg_amg import choose_eigen_path, lobpcg_lowest
     from shellmodes.solve import lowest_modes
@@ -122,6 +129,7 @@ def point(degree: int, level: int, layers: int, solver: str, estimate: bool, mem
     t_start = time.perf_counter()
     K, M, points, row = build(degree, level, layers)
     row.update(degree=degree, level=level, layers=layers, solver=solver)
+    _phase(f"built {row['free']} free of {row['dofs']} DOFs", t_start)
     scale = 1.0 / OUTER**2  # as run_shell: the shift is -1/R^2, below the spectrum (lambda_1 = pi^2)
     sigma = -scale
     if estimate:
@@ -129,6 +137,10 @@ def point(degree: int, level: int, layers: int, solver: str, estimate: bool, mem
         path, est = choose_eigen_path((K - sigma * M).tocsr(), COUNT, points)
         row.update(path=path, estimate_gib=est.bytes / 2**30, estimate_nnz=est.nnz,
                    estimate_seconds=time.perf_counter() - t0)
+        _phase(f"choose_eigen_path: {path}, factor estimate {est.bytes / 2**30:.2f} GiB ({est.nnz:.3g} entries)",
+               t_start)
+        if estimate_only:
+            return {**row, "peak_gib": peak_memory_gib(), "wall": time.perf_counter() - t_start}
     t_solve = time.perf_counter()
     if solver == "lobpcg":
         lam, U = lobpcg_lowest(K, M, COUNT, shift=sigma)
@@ -141,9 +153,11 @@ def point(degree: int, level: int, layers: int, solver: str, estimate: bool, mem
             t0 = time.perf_counter()
             solve = get_backend(solver)[1]((K - sigma * M).tocsc())
             row["factorization"] = time.perf_counter() - t0
+            _phase(f"separate factorization {row['factorization']:.1f} s", t_start)
             del solve
             gc.collect()
             t_solve = time.perf_counter()
+        _phase(f"lowest_modes({solver}, method=auto)", t_start)
         pairs = lowest_modes(K, M, COUNT, lower_bound=0.0, scale=scale, backend=solver, method="auto")
         lam, residual = pairs.lam, float(np.max(pairs.residuals))
         row.update(method=pairs.method, backend=pairs.backend)
@@ -160,11 +174,14 @@ def point(degree: int, level: int, layers: int, solver: str, estimate: bool, mem
     return row
 
 
-def run_child(degree, level, layers, solver, *, estimate=False, timeout=900.0, guard_gib=None) -> dict:
+def run_child(degree, level, layers, solver, *, estimate=False, timeout=900.0, guard_gib=None,
+              estimate_only=False) -> dict:
     """Run :func:`point` in a child; kill it on timeout, VmRSS above ``guard_gib`` or low MemAvailable."""
     cmd = [sys.executable, __file__, "child", str(degree), str(level), str(layers), solver]
     if estimate:
         cmd.append("--estimate")
+    if estimate_only:
+        cmd.append("--estimate-only")
     if guard_gib:
         cmd += ["--address-limit", str(guard_gib + 6.0)]  # address space runs ahead of RSS (threads, arenas)
     load = os.getloadavg()
@@ -323,10 +340,16 @@ def compare(args) -> int:
 def large(args) -> int:
     path = Path(args.out) / "bench_shell-large.json"
     row = run_child(2, args.level, args.layers, "cholmod", estimate=True, timeout=args.timeout,
-                    guard_gib=args.memory_guard)
+                    guard_gib=args.memory_guard, estimate_only=args.estimate_only)
     row.update(timeout=args.timeout, memory_guard_gib=args.memory_guard)
-    print(_fmt(row), flush=True)
-    if "failed" not in row:
+    if args.estimate_only:
+        path = path.with_name(f"bench_shell-estimate-L{args.level}-{args.layers}.json")
+        print(f"{row.get('free')} free DOFs: {row.get('path')}, factor estimate {row.get('estimate_gib', 0):.2f} GiB, "
+              f"build + estimate peak {row.get('peak_gib', 0):.2f} GiB")
+    else:
+        path = path.with_name(f"bench_shell-large-L{args.level}-{args.layers}.json")
+        print(_fmt(row), flush=True)
+    if "failed" not in row and not args.estimate_only:
         print(f"path {row['path']}: estimated factor {row['estimate_gib']:.2f} GiB, measured peak "
               f"{row['peak_gib']:.2f} GiB")
     _write(path, row)
@@ -355,6 +378,7 @@ def main(argv=None) -> int:
     p.add_argument("--layers", type=int, default=13)
     p.add_argument("--timeout", type=float, default=1500.0)
     p.add_argument("--memory-guard", type=float, default=18.0, help="GiB of VmRSS at which the child is killed")
+    p.add_argument("--estimate-only", action="store_true", help="build and run choose_eigen_path only")
     p = sub.add_parser("child")  # one measurement, JSON on stdout
     p.add_argument("degree", type=int)
     p.add_argument("level", type=int)
@@ -362,10 +386,11 @@ def main(argv=None) -> int:
     p.add_argument("solver", choices=["cholmod", "splu", "lobpcg"])
     p.add_argument("--estimate", action="store_true")
     p.add_argument("--address-limit", type=float)
+    p.add_argument("--estimate-only", action="store_true")
     args = parser.parse_args(argv)
     if args.study == "child":
         print(json.dumps(point(args.degree, args.level, args.layers, args.solver, args.estimate,
-                               args.address_limit)))
+                               args.address_limit, args.estimate_only)))
         return 0
     return {"ladder": ladder, "compare": compare, "large": large}[args.study](args)
 
