@@ -210,7 +210,7 @@ def run_child(degree, level, layers, solver, *, estimate=False, timeout=900.0, g
     out, err = proc.communicate()
     watcher.join()
     base = {"degree": degree, "level": level, "layers": layers, "solver": solver, "load_before": load[0],
-            "max_rss_seen_gib": seen["rss"]}
+            "max_rss_seen_gib": seen["rss"], "threads": {k: v for k, v in os.environ.items() if "THREADS" in k}}
     if why or proc.returncode:
         return {**base, "failed": why[0] if why else err.strip().splitlines()[-1] if err.strip() else
                 f"exit {proc.returncode}", "stderr_tail": err[-1500:]}
@@ -242,7 +242,7 @@ def _fit(x, y) -> tuple[float, float]:
 
 
 def summarise(rows: list[dict]) -> list[dict]:
-    """Per degree: error and time fits (finest three sizes) and the time to each tolerance."""
+    """Per degree: error and time fits (finest two sizes) and the time to each tolerance."""
     out = []
     for degree in sorted({r["degree"] for r in rows}):
         done = [r for r in rows if r["degree"] == degree and "failed" not in r]
@@ -253,7 +253,9 @@ def summarise(rows: list[dict]) -> list[dict]:
                for n in sizes}
         spread = {n: [min(r["total"] for r in done if r["free"] == n), max(r["total"] for r in done if r["free"] == n)]
                   for n in sizes}
-        use = sizes[-3:]
+        # the finest two sizes: the local rates (the error is not yet asymptotic at coarse sizes, and the
+        # factorization's share of the time grows with size)
+        use = sizes[-2:]
         e_slope, e_icpt = _fit(use, [med[n]["error"] for n in use])
         t_slope, t_icpt = _fit(use, [med[n]["total"] for n in use])
         entry = {"degree": degree, "sizes": sizes, "median": {str(n): med[n] for n in sizes},
@@ -282,8 +284,14 @@ def _print_summary(summary: list[dict]) -> None:
 
 
 def ladder(args) -> int:
-    rows: list[dict] = []
     path = Path(args.out) / "bench_shell-ladder.json"
+    if args.summarise:
+        data = json.loads(path.read_text())
+        data["summary"] = summarise(data["rows"])
+        _print_summary(data["summary"])
+        _write(path, data)
+        return 0
+    rows: list[dict] = []
     chain = [(1, int(L)) for L in args.p1_levels.split(",")] + [(2, int(L)) for L in args.p2_levels.split(",")]
     for degree, level in chain:
         layers = 2 ** (level - 1)
@@ -304,11 +312,11 @@ def ladder(args) -> int:
 
 def compare(args) -> int:
     rows: list[dict] = []
-    path = Path(args.out) / "bench_shell-compare.json"
+    path = Path(args.out) / f"bench_shell-compare{args.tag}.json"
     solvers = args.solvers.split(",")
     for spec in args.points.split(","):
-        degree, level = (int(v) for v in spec.split(":"))
-        layers = 2 ** (level - 1)
+        degree, level, *rest = (int(v) for v in spec.split(":"))
+        layers = rest[0] if rest else 2 ** (level - 1)
         for _ in range(args.repeat):
             for solver in solvers:  # interleaved, so load drifts hit every solver alike
                 row = run_child(degree, level, layers, solver, timeout=args.timeout)
@@ -316,21 +324,22 @@ def compare(args) -> int:
                 print(_fmt(row), flush=True)
                 _write(path, {"rows": rows, "cpus": os.cpu_count()})
     ratios = []
-    for degree, level in sorted({(r["degree"], r["level"]) for r in rows}):
-        same = [r for r in rows if (r["degree"], r["level"]) == (degree, level) and "failed" not in r]
+    for degree, level, layers in sorted({(r["degree"], r["level"], r["layers"]) for r in rows}):
+        same = [r for r in rows if (r["degree"], r["level"], r["layers"]) == (degree, level, layers)
+                and "failed" not in r]
         base = [r["eigensolve"] for r in same if r["solver"] == "cholmod"]
         if not base:
             continue
         for solver in solvers:
             times = [r["eigensolve"] for r in same if r["solver"] == solver]
             if times and solver != "cholmod":
-                entry = {"degree": degree, "level": level, "free": same[0]["free"], "solver": solver,
+                entry = {"degree": degree, "level": level, "layers": layers, "free": same[0]["free"], "solver": solver,
                          "eigensolve": times, "cholmod": base, "ratio_to_cholmod": float(np.median(times) /
                                                                                          np.median(base)),
                          "peak_gib": [r["peak_gib"] for r in same if r["solver"] == solver],
                          "cholmod_peak_gib": [r["peak_gib"] for r in same if r["solver"] == "cholmod"]}
                 ratios.append(entry)
-                print(f"P{degree} L{level} {entry['free']} dofs: {solver} / cholmod eigen-solve time = "
+                print(f"P{degree} L{level}/{layers} {entry['free']} dofs: {solver} / cholmod eigen-solve time = "
                       f"{entry['ratio_to_cholmod']:.2f} ({times} vs {base})")
     _write(path, {"rows": rows, "ratios": ratios, "cpus": os.cpu_count()})
     print(f"wrote {path}")
@@ -368,9 +377,11 @@ def main(argv=None) -> int:
     p.add_argument("--large-repeat", type=int, default=1, help="repeats of P1 level 5 and P2 level 4")
     p.add_argument("--estimate", action="store_true", help="also run choose_eigen_path (not in the times)")
     p.add_argument("--timeout", type=float, default=900.0)
+    p.add_argument("--summarise", action="store_true", help="refit the rows of an earlier run, run nothing")
     p = sub.add_parser("compare")
-    p.add_argument("--points", default="1:4,2:3", help="degree:level pairs (layers 2^(level-1))")
+    p.add_argument("--points", default="1:4,2:3", help="degree:level[:layers] (layers 2^(level-1) if omitted)")
     p.add_argument("--solvers", default="cholmod,splu,lobpcg")
+    p.add_argument("--tag", default="", help="suffix of the JSON file name")
     p.add_argument("--repeat", type=int, default=2)
     p.add_argument("--timeout", type=float, default=900.0)
     p = sub.add_parser("large")
