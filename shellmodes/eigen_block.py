@@ -153,9 +153,8 @@ def _orthonormal_basis(W, MW, V, M, rng, again: bool = True):
     ``W`` is already projected against V.  SVQB scales the error left along V
     up by 1 / sqrt(conditioning of the block), so another Gram-Schmidt pass
     and SVQB follow when ``again`` or when the block is ill-conditioned
-    ("twice is enough", Parlett 1998, section 6.9).  Measured: without that
-    pass, a 1-D problem with nearly dependent blocks stalls its Lanczos
-    residual estimates above 1e-13 for good.  Directions lost to rank
+    ("twice is enough", Parlett 1998, section 6.9); a precaution, not seen
+    to be needed in the measured runs.  Directions lost to rank
     deficiency are replaced by random ones so the block keeps its size
     (their rows of R are zero).
     """

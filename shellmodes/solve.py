@@ -34,7 +34,7 @@ log = logging.getLogger(__name__)
 #: below this size a dense generalized eigensolver is cheaper and exact
 DENSE_LIMIT = 600
 #: from this size on ``method="auto"`` uses the blocked iteration (measured: benchmarks/README.md)
-BLOCK_THRESHOLD = 200_000
+BLOCK_THRESHOLD = 50_000
 METHODS = ("auto", "lanczos", "block", "lobpcg")
 
 
