@@ -112,3 +112,12 @@ def test_too_small_a_basis_is_refused():
     solve = get_backend("splu")[1]((K + M).tocsc())
     with pytest.raises(SolverError, match="cannot hold"):
         block_lowest(K, M, 40, -1.0, solve, block=8, basis=44)
+
+
+def test_block_finds_all_modes_below_a_value(sphere_p2):
+    K, M = sphere_p2
+    # below 15: l <= 3, 16 modes (the l = 4 multiplet sits near 20)
+    block = lowest_modes(K, M, below=15.0, scale=1.0, method="block")
+    lanczos = lowest_modes(K, M, below=15.0, scale=1.0, method="lanczos")
+    assert len(block.lam) == len(lanczos.lam) == 16
+    assert np.max(np.abs(block.lam - lanczos.lam) / np.maximum(np.abs(lanczos.lam), 1.0)) < 1e-10
