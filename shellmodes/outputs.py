@@ -43,6 +43,7 @@ def spectrum_json(spectrum) -> dict:
         "multiplets": [m.as_dict() for m in spectrum.multiplets],
         **{k: spectrum.info.get(k) for k in ("units", "mesh", "solver", "versions", "case", "timings",
                                               "warnings")},
+        **({"perturbation": spectrum.info["perturbation"]} if "perturbation" in spectrum.info else {}),
     }
 
 

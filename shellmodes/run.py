@@ -267,8 +267,43 @@ def run_case(case: Case) -> Spectrum:
              f"mesh: degree {surface.degree}, {surface.mesh.nelements} elements, {surface.ndofs} dofs, "
              f"h = {surface.h:.4g}, area = {problem.area:.10g}"]
     export = {"points": surface.nodes, "cells": _export_cells(surface)}
-    return finish_spectrum(case, pairs, e0, origin, multiplets, vectors, surface.nodes, mesh_info, timings, lines,
-                           warn_text, export, angular)
+    spectrum = finish_spectrum(case, pairs, e0, origin, multiplets, vectors, surface.nodes, mesh_info, timings,
+                               lines, warn_text, export, angular)
+    rows = perturbation_rows(shape, spectrum)
+    if rows:
+        spectrum.info["perturbation"] = rows
+    return spectrum
+
+
+def perturbation_rows(shape, spectrum) -> list[dict]:
+    """First-order perturbation theory beside the finite-element splitting, one row per parent l.
+
+    For a star-shaped surface r = R (1 + sum a_lm Y_lm) the modes of parent l
+    (those whose multiplets carry label l, when there are exactly 2l+1 of them)
+    are compared, sorted, with the 2l+1 first-order levels of
+    :func:`shellmodes.perturbation.first_order_levels` (eps = 1, the amplitudes
+    as given).  ``ratio`` is the finite-element splitting over the first-order
+    one; it tends to 1 as the amplitudes shrink (differences O(a^2)).
+    """
+    if shape.name != "star" or not shape.deformation:
+        return []
+    from .perturbation import first_order_levels
+
+    e0 = spectrum.info["units"]["energy_per_lambda"] or 1.0
+    rows = []
+    labels = np.array([-1 if l is None else l for l in spectrum.mode_l])
+    for l in sorted(set(labels[labels > 0].tolist())):
+        members = np.flatnonzero(labels == l)
+        if len(members) != 2 * l + 1:
+            continue
+        fe = np.sort(spectrum.eigenvalues[members])
+        pt = first_order_levels([tuple(t) for t in shape.deformation], 1.0, shape.radius, l)
+        fe_split, pt_split = float(fe[-1] - fe[0]), float(pt[-1] - pt[0])
+        rows.append({"l": int(l), "fe_eigenvalues": fe.tolist(), "first_order_eigenvalues": pt.tolist(),
+                     "fe_splitting": fe_split * e0, "first_order_splitting": pt_split * e0,
+                     "ratio": fe_split / pt_split if pt_split else None,
+                     "max_difference": float(np.max(np.abs(fe - pt))) * e0})
+    return rows
 
 
 def _angular(shape, surface, problem, vectors, multiplets):

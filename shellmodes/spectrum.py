@@ -140,6 +140,15 @@ class Spectrum:
                          f"{m.relative_spread:>10.2e} {res:>10.1e}{mark}")
         if len(self.multiplets) > max_rows:
             lines.append(f"... {len(self.multiplets) - max_rows} more multiplets in spectrum.csv")
+        rows = self.info.get("perturbation") or []
+        if rows:
+            lines.append("")
+            lines.append(f"splitting of each parent l [{unit}]: finite elements vs first-order perturbation theory")
+            lines.append(f"{'l':>4} {'FE':>14} {'1st order':>14} {'ratio':>8} {'max |FE - 1st|':>16}")
+            for r in rows:
+                ratio = "-" if r["ratio"] is None else f"{r['ratio']:.4f}"
+                lines.append(f"{r['l']:>4} {r['fe_splitting']:>14.6g} {r['first_order_splitting']:>14.6g} "
+                             f"{ratio:>8} {r['max_difference']:>16.3g}")
         return "\n".join(lines)
 
     def __repr__(self):
