@@ -327,6 +327,9 @@ class Output(_Table):
     """Which files to write besides spectrum.json, spectrum.csv and run.log."""
 
     vtu: bool = Field(True, description="write modes.vtu with every mode as a point field")
+    pictures: bool = Field(False, description="also write levels.png and off-screen renders mode-NNNN.png "
+                                              "(cut views for shells; needs the plot extra and vtu = true)")
+    picture_modes: int = Field(4, ge=1, le=100, description="how many multiplets to render (one mode each)")
 
 
 class Case(_Table):

@@ -80,6 +80,20 @@ def _write_vtu(spectrum, folder: Path):
     mesh.write(folder / "modes.vtu", binary=True)
 
 
+def _write_pictures(spectrum, folder: Path):
+    """levels.png and one render per multiplet (first ``output.picture_modes``), when the case asks."""
+    output = (spectrum.info.get("case") or {}).get("output") or {}
+    if not output.get("pictures") or not (folder / "modes.vtu").exists():
+        return
+    from .pictures import render_modes, spectrum_picture
+
+    data = spectrum_json(spectrum)
+    spectrum_picture(data, folder / "levels.png", title=(spectrum.info.get("case") or {}).get("title") or None)
+    chosen = [m.members[0] for m in spectrum.multiplets[: output.get("picture_modes", 4)]]
+    render_modes(folder / "modes.vtu", chosen, str(folder / "mode-{index:04d}.png"),
+                 unit=spectrum.info["units"]["energy"])
+
+
 @register("run.log")
 def _write_log(spectrum, folder: Path):
     (folder / "run.log").write_text(spectrum.info.get("log", "") + "\n")
@@ -149,8 +163,9 @@ def write_outputs(spectrum, folder, files=None) -> Path:
     if unknown:
         raise ValueError(f"unknown outputs {sorted(unknown)}; allowed: {', '.join(EXPORTERS)}")
     # files an earlier run wrote that this one does not (e.g. modes.vtu with output.vtu = false)
-    stale = [n for n in EXPORTERS if n not in names]
+    stale = [n for n in EXPORTERS if n not in names and "." in n]
     with atomic_directory(folder, stale=stale) as tmp:
         for name in names:
             EXPORTERS[name](spectrum, tmp)
+        _write_pictures(spectrum, tmp)  # only when the case's [output] asks for pictures
     return Path(folder)

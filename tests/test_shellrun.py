@@ -134,3 +134,16 @@ def test_lobpcg_path_agrees_with_shift_invert():
     # same discrete problem, two solvers: agreement to the LOBPCG tolerance (1e-9 residual -> ~1e-12 relative)
     np.testing.assert_allclose(iterative.eigenvalues, direct.eigenvalues, rtol=1e-8)
     assert "fits in memory" in direct.info["log"]
+
+
+def test_pictures_output_for_a_shell(tmp_path):
+    pytest.importorskip("pyvista")
+    case = tmp_path / "shell.toml"
+    case.write_text('[shell]\ninner = { shape = "sphere", radius = 1.0 }\nouter = { shape = "sphere", radius = 2.0 }\n'
+                    'layers = 2\n[resolution]\ndegree = 2\nsubdivisions = 0\n[modes]\ncount = 4\n'
+                    '[output]\npictures = true\npicture_modes = 2\n')
+    assert main(["run", str(case), "--out", str(tmp_path / "out"), "-q"]) == 0
+    pngs = sorted(p.name for p in (tmp_path / "out").glob("*.png"))
+    assert "levels.png" in pngs and len(pngs) == 3  # the diagram and one render per multiplet asked for
+    for name in pngs:
+        assert (tmp_path / "out" / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
