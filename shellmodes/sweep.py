@@ -317,8 +317,14 @@ def _mass_matrix(case: Case):
 
 # -- solving -----------------------------------------------------------------------------------------
 
-def _solve_step(case: Case, index: int):
-    """Worker task: solve one step; warnings come back as (category name, text) pairs."""
+def _solve_step(case: Case, index: int, step: SweepStep | None = None, steps_dir: Path | None = None):
+    """Worker task: solve one step; warnings come back as (category name, text) pairs.
+
+    With ``step`` and ``steps_dir`` (local workers, which share the disk) the worker also saves
+    the step and assembles the mass matrix the tracker needs, and returns ``(None, warnings, M)``:
+    that work then runs in parallel instead of in the collecting process.  Remote (Dask) workers
+    return the spectrum for the client to save: ``(spectrum, warnings, None)``.
+    """
     from .run import run_case
 
     with warnings.catch_warnings(record=True) as caught:
@@ -328,7 +334,12 @@ def _solve_step(case: Case, index: int):
         except ShellmodesError as exc:
             # a plain message: it must survive pickling back from a worker process
             raise ShellmodesError(f"sweep step {index}: {exc}") from None
-    return spectrum, [(w.category.__name__, str(w.message)) for w in caught]
+        mass = None
+        if step is not None and steps_dir is not None:
+            _save_step(spectrum, step, steps_dir)
+            spectrum = None
+            mass = _mass_matrix(case) if index > 0 else None
+    return spectrum, [(w.category.__name__, str(w.message)) for w in caught], mass
 
 
 @contextlib.contextmanager
@@ -351,7 +362,7 @@ def _serial(todo):
         yield step, _solve_step(step.case, step.index)
 
 
-def _local_pool(todo, workers):
+def _local_pool(todo, workers, steps_dir):
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor, as_completed
 
@@ -359,7 +370,7 @@ def _local_pool(todo, workers):
     context = multiprocessing.get_context("spawn")
     with _single_threaded_children():
         pool = ProcessPoolExecutor(max_workers=workers, mp_context=context)
-        futures = {pool.submit(_solve_step, step.case, step.index): step for step in todo}
+        futures = {pool.submit(_solve_step, step.case, step.index, step, steps_dir): step for step in todo}
     try:
         for future in as_completed(futures):
             yield futures[future], future.result()
@@ -466,14 +477,17 @@ def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | N
         if scheduler:
             runner = _dask(todo, scheduler, connect_timeout)
         elif workers > 1 and len(todo) > 1:
-            runner = _local_pool(todo, min(workers, len(todo)))
+            runner = _local_pool(todo, min(workers, len(todo)), steps_dir)
         else:
             runner = _serial(todo)
         try:
-            for step, (spectrum, caught) in runner:
+            for step, (spectrum, caught, mass) in runner:
                 _reemit(step, caught)
-                _save_step(spectrum, step, steps_dir)
+                if spectrum is not None:
+                    _save_step(spectrum, step, steps_dir)
                 del spectrum
+                if mass is not None:
+                    collector.masses[step.index] = mass
                 done += 1
                 log.info("sweep: step %d saved (%d of %d)", step.index, done, len(steps))
                 if progress is not None:
@@ -506,6 +520,8 @@ class _Collector:
         self.out, self.steps = out, list(steps)
         self.tracker = LevelTracker(min_overlap=min_overlap)
         self.rows, self.next, self.ready = [], 0, set()
+        #: mass matrices assembled by local workers, by step index (else assembled here when needed)
+        self.masses = {}
 
     def advance(self, finished=()):
         from .sweep_track import StepModes
@@ -515,7 +531,9 @@ class _Collector:
             step = self.steps[self.next]
             spectrum, groups, vectors, _ = load_step(self.out / "steps" / step.folder_name)
             modes = spectrum["modes"]
-            M = _mass_matrix(step.case) if self.next > 0 else None
+            M = self.masses.pop(step.index, None)
+            if M is None and self.next > 0:
+                M = _mass_matrix(step.case)
             triples = self.tracker.add(StepModes(
                 vectors=vectors, eigenvalues=np.array([m["eigenvalue"] for m in modes]), groups=groups,
                 labels=[m["l"] for m in modes], M=M))
