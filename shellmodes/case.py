@@ -89,6 +89,23 @@ class CapSurface(_Table):
     rim: Rim = Field("dirichlet", description="hard rim (dirichlet) or free rim (neumann)")
 
 
+def _check_shape_keys(table, keys: dict, what: str):
+    """Refuse keys that do not belong to ``table.shape`` and require the ones it needs."""
+    required, optional = keys[table.shape]
+    given = {k for k in type(table).model_fields if k != "shape" and getattr(table, k) is not None}
+    extra = sorted(given - set(required) - set(optional))
+    if extra:
+        allowed = ", ".join(required + optional) or "none"
+        raise ValueError(f"key {extra[0]!r} does not belong to a {table.shape} {what}; allowed: {allowed}")
+    missing = [k for k in required if getattr(table, k) is None]
+    if missing:
+        raise ValueError(f"a {table.shape} {what} needs {', '.join(missing)}")
+    return table
+
+
+_WALL_KEYS = {"sphere": (("radius",), ()), "ellipsoid": (("axes",), ()),
+              "spheroid": (("equatorial_radius", "polar_radius"), ()), "star": (("radius",), ("deformation",))}
+
 _SNAP_KEYS = {  # shape -> (required keys, optional keys)
     "sphere": ((), ("radius",)),
     "ellipsoid": (("axes",), ()),
@@ -112,16 +129,7 @@ class SnapTarget(_Table):
 
     @model_validator(mode="after")
     def _keys_of_shape(self):
-        required, optional = _SNAP_KEYS[self.shape]
-        given = {k for k in type(self).model_fields if k != "shape" and getattr(self, k) is not None}
-        extra = sorted(given - set(required) - set(optional))
-        if extra:
-            allowed = ", ".join(required + optional) or "none"
-            raise ValueError(f"key {extra[0]!r} does not belong to a {self.shape} snap target; allowed: {allowed}")
-        missing = [k for k in required if getattr(self, k) is None]
-        if missing:
-            raise ValueError(f"a {self.shape} snap target needs {', '.join(missing)}")
-        return self
+        return _check_shape_keys(self, _SNAP_KEYS, "snap target")
 
 
 class MeshSurface(_Table):
@@ -149,18 +157,7 @@ class Wall(_Table):
 
     @model_validator(mode="after")
     def _keys_of_shape(self):
-        required, optional = {"sphere": (("radius",), ()), "ellipsoid": (("axes",), ()),
-                              "spheroid": (("equatorial_radius", "polar_radius"), ()),
-                              "star": (("radius",), ("deformation",))}[self.shape]
-        given = {k for k in type(self).model_fields if k != "shape" and getattr(self, k) is not None}
-        extra = sorted(given - set(required) - set(optional))
-        if extra:
-            raise ValueError(f"key {extra[0]!r} does not belong to a {self.shape} wall; allowed: "
-                             f"{', '.join(required + optional)}")
-        missing = [k for k in required if getattr(self, k) is None]
-        if missing:
-            raise ValueError(f"a {self.shape} wall needs {', '.join(missing)}")
-        return self
+        return _check_shape_keys(self, _WALL_KEYS, "wall")
 
 
 class Region(_Table):
