@@ -131,7 +131,8 @@ def energy_scale(case: Case, shape=None) -> tuple[float | None, str]:
     return float(joule_to(e0, units.energy)), f"hbar^2/(2 m L^2), m = {mass:.6g} kg, L = {length:.6g} m"
 
 
-def _potential(case: Case, e0):
+def compiled_potential(case: Case, e0):
+    """The case's potential as a function of x, y, z, r, theta, phi in lambda units (V / E0), or None."""
     if case.potential is None:
         return None
     expr = compile_expression(case.potential.expression)
@@ -244,7 +245,7 @@ def run_case(case: Case) -> Spectrum:
     e0, origin = energy_scale(case, shape)
     rim = getattr(case.surface, "rim", None)
     try:
-        problem = assemble_surface(surface, _potential(case, e0), rim=rim if not shape.closed else None)
+        problem = assemble_surface(surface, compiled_potential(case, e0), rim=rim if not shape.closed else None)
     except ValueError as exc:
         raise CaseError(str(exc), case.source, "potential.expression") from None
     pairs, warn_text = solve_case_modes(case, problem.K, problem.M, problem.lower_bound, problem.spectral_scale,

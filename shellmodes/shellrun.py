@@ -18,9 +18,8 @@ import numpy as np
 from .case import Case, Wall
 from .errors import CaseError, GeometryError, MeshError
 from .harmonics import angles, real_sph_harm
-from .run import _potential, energy_scale, finish_spectrum, solve_case_modes
-from .solve import group_multiplets
-from .spectrum import Multiplet
+from .run import compiled_potential, energy_scale, finish_spectrum, solve_case_modes
+from .spectrum import build_multiplets
 
 __all__ = ["run_shell", "wall_function", "build_volume"]
 
@@ -95,22 +94,18 @@ def _media(case: Case, disc, e0):
     """Per-region inverse mass m0/m and potential offset (lambda units), checked against the mesh."""
     shell, particle = case.shell, case.particle
     ids = disc.region_ids
-    entries = list(shell.regions)
-    if not entries:
-        entries_by_id = {}
-    else:
-        entries_by_id = {}
-        for i, region in enumerate(entries):
-            tag = region.tag if region.tag is not None else (ids[i] if shell.file is not None and i < len(ids)
-                                                             else i)
-            if tag not in ids:
-                raise CaseError(f"value {tag!r}: no such region in the mesh; regions present: "
-                                f"{', '.join(map(str, ids))}", case.source, f"shell.regions[{i}].tag")
-            entries_by_id[tag] = region
-        missing = [r for r in ids if r not in entries_by_id]
-        if missing:
-            raise CaseError(f"the mesh has regions {', '.join(map(str, missing))} that shell.regions does not "
-                            "describe; list every region", case.source, "shell.regions")
+    entries_by_id = {}
+    for i, region in enumerate(shell.regions):
+        # default tag: the region's place (inside out), or the i-th tag present in a mesh file
+        tag = region.tag if region.tag is not None else (ids[i] if shell.file is not None and i < len(ids) else i)
+        if tag not in ids:
+            raise CaseError(f"value {tag!r}: no such region in the mesh; regions present: "
+                            f"{', '.join(map(str, ids))}", case.source, f"shell.regions[{i}].tag")
+        entries_by_id[tag] = region
+    missing = [r for r in ids if r not in entries_by_id]
+    if shell.regions and missing:
+        raise CaseError(f"the mesh has regions {', '.join(map(str, missing))} that shell.regions does not "
+                        "describe; list every region", case.source, "shell.regions")
     offset_scale = _offset_scale(case, e0)
     inverse_mass, offsets, names = {}, {}, {}
     for r in ids:
@@ -149,23 +144,6 @@ def _labels(case, disc, vectors, M, lam):
         return None
 
 
-def _volume_multiplets(lam, energies, tolerance, scale, labels, symmetric) -> list[Multiplet]:
-    out = []
-    for i, members in enumerate(group_multiplets(lam, tolerance, scale)):
-        e = energies[members]
-        l = None
-        if labels is not None:
-            values, counts = np.unique(labels.l[members], return_counts=True)
-            l = int(values[np.argmax(counts)])
-        spread = float(np.max(e) - np.min(e))
-        mean = float(np.mean(e))
-        out.append(Multiplet(index=i, members=tuple(int(m) for m in members), eigenvalue=float(np.mean(lam[members])),
-                             energy=mean, size=len(members), l=l,
-                             expected_size=None if l is None else 2 * l + 1,
-                             spread=spread, relative_spread=spread / abs(mean) if mean else 0.0))
-    return out
-
-
 def _choose_path(case: Case, K, points):
     """Factorize (shift-invert) if the estimated Cholesky factor fits in memory, else LOBPCG with AMG.
 
@@ -198,7 +176,7 @@ def run_shell(case: Case):
     t_mesh = time.perf_counter() - t_start
     e0, origin = energy_scale(case)
     inverse_mass, offsets, names = _media(case, disc, e0)
-    expression = _potential(case, e0)
+    expression = compiled_potential(case, e0)
     function = None
     if expression is not None:
         def function(x, y, z):
@@ -231,7 +209,8 @@ def run_shell(case: Case):
     energies = lam * e0 if e0 is not None else lam.copy()
     symmetric = _spherical(case)
     labels = _labels(case, disc, vectors, M, lam)
-    multiplets = _volume_multiplets(lam, energies, case.modes.multiplet_tolerance, scale, labels, symmetric)
+    multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, scale,
+                                  mode_l=None if labels is None else labels.l)
     volume = float(np.ones(disc.ndofs) @ (M @ np.ones(disc.ndofs)))
     mesh_info = {"kind": "shell", "source": disc.source, "degree": disc.degree, "elements": int(disc.mesh.nelements),
                  "dofs": int(disc.ndofs), "free_dofs": int(len(free)), "h": disc.h, "volume": volume,

@@ -43,13 +43,23 @@ class Multiplet:
                 "relative_spread": self.relative_spread, "modes": list(self.members)}
 
 
-def build_multiplets(lam, energy, tolerance, scale, radius_eq2=None) -> list[Multiplet]:
-    """Group modes into :class:`Multiplet` records (labels when ``radius_eq2`` is given)."""
+def build_multiplets(lam, energy, tolerance, scale, radius_eq2=None, mode_l=None) -> list[Multiplet]:
+    """Group modes into :class:`Multiplet` records.
+
+    The parent degree l of a multiplet comes from ``radius_eq2`` (nearest l of
+    lam R_eq^2, surfaces) or from per-mode labels ``mode_l`` (the most common
+    label among its members, shells); with neither it is None.
+    """
     out = []
     for i, members in enumerate(group_multiplets(lam, tolerance, scale)):
         lam_m = float(np.mean(lam[members]))
         e = energy[members]
-        l = int(parent_degree(lam_m * radius_eq2)) if radius_eq2 is not None else None
+        l = None
+        if radius_eq2 is not None:
+            l = int(parent_degree(lam_m * radius_eq2))
+        elif mode_l is not None:
+            values, counts = np.unique(np.asarray(mode_l)[members], return_counts=True)
+            l = int(values[np.argmax(counts)])
         spread = float(np.max(e) - np.min(e))
         mean = float(np.mean(e))
         out.append(Multiplet(index=i, members=tuple(int(m) for m in members), eigenvalue=lam_m, energy=mean,

@@ -268,23 +268,23 @@ def _flat_positions(corners, doflocs, t, n):
 
 
 def _quadratic_nodes(mesh, triangles, element_nodes, t, n):
-    """Place degree-2 geometry nodes from meshio triangle6 data."""
+    """Place degree-2 geometry nodes from meshio triangle6 data (vectorised over triangles)."""
+    triangles = np.asarray(triangles)
+    element_nodes = np.asarray(element_nodes, dtype=float)
+    nvert = int(triangles.max()) + 1
+    vertex_pos = np.zeros((nvert, 3))
+    vertex_pos[triangles.ravel()] = element_nodes[:, :3].reshape(-1, 3)
+    # the given midpoints, keyed by their edge (meshio order 01, 12, 20)
+    ends = triangles[:, [[0, 1], [1, 2], [2, 0]]]  # (M, 3, 2)
+    given = np.sort(ends, axis=2).reshape(-1, 2)
+    given_keys = given[:, 0].astype(np.int64) * nvert + given[:, 1]
+    order = np.argsort(given_keys)
+    given_keys, given_pos = given_keys[order], element_nodes[:, 3:].reshape(-1, 3)[order]
     nodes = np.zeros((n, 3))
-    vertex_of = {}
-    # map each original triangle's vertices/edges to its six given positions
-    for e in range(len(triangles)):
-        tri = triangles[e]
-        pos = element_nodes[e]
-        for a in range(3):
-            vertex_of[int(tri[a])] = pos[a]
-        for a, (i, j) in enumerate(((0, 1), (1, 2), (2, 0))):
-            vertex_of[(min(tri[i], tri[j]), max(tri[i], tri[j]))] = pos[3 + a]
-    for e in range(mesh.nelements):
-        v = mesh.t[:, e]
-        for a in range(3):
-            nodes[t[a, e]] = vertex_of[int(v[a])]
-        # scikit-fem P2 edge dofs follow the facets (0,1), (1,2), (0,2)
-        for a, (i, j) in enumerate(((0, 1), (1, 2), (0, 2))):
-            key = (min(v[i], v[j]), max(v[i], v[j]))
-            nodes[t[3 + a, e]] = vertex_of[key]
+    for a in range(3):
+        nodes[t[a]] = vertex_pos[mesh.t[a]]
+    # scikit-fem P2 edge dofs follow the facets (0,1), (1,2), (0,2)
+    for a, (i, j) in enumerate(((0, 1), (1, 2), (0, 2))):
+        lo, hi = np.minimum(mesh.t[i], mesh.t[j]), np.maximum(mesh.t[i], mesh.t[j])
+        nodes[t[3 + a]] = given_pos[np.searchsorted(given_keys, lo.astype(np.int64) * nvert + hi)]
     return nodes

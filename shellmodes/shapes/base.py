@@ -12,6 +12,8 @@ A :class:`Shape` provides
 
 from __future__ import annotations
 
+import abc
+
 import numpy as np
 
 __all__ = ["Shape", "SHAPES", "register"]
@@ -25,8 +27,8 @@ def register(cls):
     return cls
 
 
-class Shape:
-    """Base class; subclasses set ``name`` and implement the methods below."""
+class Shape(abc.ABC):
+    """Base class; subclasses set ``name`` and implement ``reference`` and ``project``."""
 
     name = "shape"
     closed = True
@@ -35,11 +37,13 @@ class Shape:
     #: reference edge length at zero subdivisions, in the shape's length unit
     base_edge = 1.0
 
+    @abc.abstractmethod
     def reference(self, subdivisions: int) -> tuple[np.ndarray, np.ndarray]:
-        raise NotImplementedError
+        """Flat reference points (N, 3) and triangles (M, 3) after ``subdivisions`` halvings."""
 
+    @abc.abstractmethod
     def project(self, points: np.ndarray) -> np.ndarray:
-        raise NotImplementedError
+        """Exact map of reference positions (K, 3) onto the surface (K, 3)."""
 
     def snap(self, points: np.ndarray) -> np.ndarray:
         return self.project(points)
