@@ -348,7 +348,7 @@ def compare(args) -> int:
 
 def large(args) -> int:
     path = Path(args.out) / "bench_shell-large.json"
-    row = run_child(2, args.level, args.layers, "cholmod", estimate=True, timeout=args.timeout,
+    row = run_child(2, args.level, args.layers, args.solver, estimate=True, timeout=args.timeout,
                     guard_gib=args.memory_guard, estimate_only=args.estimate_only)
     row.update(timeout=args.timeout, memory_guard_gib=args.memory_guard)
     if args.estimate_only:
@@ -356,7 +356,7 @@ def large(args) -> int:
         print(f"{row.get('free')} free DOFs: {row.get('path')}, factor estimate {row.get('estimate_gib', 0):.2f} GiB, "
               f"build + estimate peak {row.get('peak_gib', 0):.2f} GiB")
     else:
-        path = path.with_name(f"bench_shell-large-L{args.level}-{args.layers}.json")
+        path = path.with_name(f"bench_shell-large-L{args.level}-{args.layers}-{args.solver}.json")
         print(_fmt(row), flush=True)
     if "failed" not in row and not args.estimate_only:
         print(f"path {row['path']}: estimated factor {row['estimate_gib']:.2f} GiB, measured peak "
@@ -390,6 +390,7 @@ def main(argv=None) -> int:
     p.add_argument("--timeout", type=float, default=1500.0)
     p.add_argument("--memory-guard", type=float, default=18.0, help="GiB of VmRSS at which the child is killed")
     p.add_argument("--estimate-only", action="store_true", help="build and run choose_eigen_path only")
+    p.add_argument("--solver", choices=["cholmod", "splu", "lobpcg"], default="cholmod")
     p = sub.add_parser("child")  # one measurement, JSON on stdout
     p.add_argument("degree", type=int)
     p.add_argument("level", type=int)

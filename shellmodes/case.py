@@ -181,9 +181,21 @@ class Shell(_Table):
     outer_condition: Rim = Field("dirichlet", description="condition on the outer wall")
     layers: int | tuple[int, ...] = Field(4, description="radial element layers per medium (one number for all)")
     regions: tuple[Region, ...] = Field((), description="media inside out; default: one medium per layer gap")
+    cells: Literal["tetrahedra", "prisms"] = Field(
+        "tetrahedra", description="tetrahedra (degree 1-2, balls and mesh files) or layered curved prisms "
+        "(triangle degree 1-4 times a radial degree, needs an inner wall)")
+    radial_degree: int | None = Field(None, ge=1, le=12, description="prisms: polynomial degree across each "
+                                      "layer (default resolution.degree)")
 
     @model_validator(mode="after")
     def _walls_or_file(self):
+        if self.cells == "prisms":
+            if self.file is not None:
+                raise ValueError("cells = 'prisms' builds its cells from walls; a mesh file gives tetrahedra")
+            if self.inner is None:
+                raise ValueError("cells = 'prisms' needs an inner wall; use cells = 'tetrahedra' for a ball")
+        elif self.radial_degree is not None:
+            raise ValueError("radial_degree applies to cells = 'prisms' only")
         if self.file is None and self.outer is None:
             raise ValueError("give outer (and inner, interfaces) walls, or a mesh file")
         if self.file is not None and (self.outer is not None or self.inner is not None or self.interfaces):
@@ -263,9 +275,11 @@ class Modes(_Table):
     below: float | None = Field(None, description="all modes with energy below this, in units.energy")
     multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
     backend: Literal["auto", "splu", "cholmod"] = Field("auto", description="factorization for shift-invert")
-    method: Literal["auto", "lanczos", "block", "lobpcg"] = Field(
-        "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, or "
-                            "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor")
+    method: Literal["auto", "lanczos", "block", "lobpcg", "separable"] = Field(
+        "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, "
+                            "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor, "
+                            "or separation into surface and radial problems (prisms between concentric spheres, "
+                            "the default there)")
     residual_limit: Positive = Field(1e-6, description="largest acceptable relative residual")
 
     @model_validator(mode="before")
@@ -349,10 +363,15 @@ class Case(_Table):
         if (self.surface is None) == (self.shell is None):
             raise ValueError("give exactly one of the tables [surface] and [shell]")
         if self.shell is not None:
-            if self.resolution.degree > 2:
-                raise ValueError(f"resolution.degree {self.resolution.degree}: shells support degrees 1 and 2")
+            if self.resolution.degree > 2 and self.shell.cells == "tetrahedra":
+                raise ValueError(f"resolution.degree {self.resolution.degree}: tetrahedra support degrees 1 and 2; "
+                                 "shell.cells = 'prisms' allows 1 to 4")
             if self.particle.moment_of_inertia is not None:
                 raise ValueError("particle.moment_of_inertia describes a rotor on a sphere, not a shell")
+        if self.modes.method == "separable" and (self.shell is None or self.shell.cells != "prisms"
+                                                 or self.potential is not None):
+            raise ValueError("modes.method 'separable' needs shell.cells = 'prisms', concentric spherical walls "
+                             "and no [potential]")
         rotor = self.particle.moment_of_inertia is not None
         if self.units.length == "1" and self.units.energy != "1" and not rotor:
             raise ValueError("units.energy needs a physical units.length (m, um, nm, angstrom, bohr) "

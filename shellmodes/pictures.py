@@ -292,11 +292,26 @@ def _is_volume(grid) -> bool:
 # and the inner octahedron split along the diagonal 02-13 (nodes 6-8).
 _TETRA10_PIECES = np.array([[0, 4, 6, 7], [4, 1, 5, 8], [6, 5, 2, 9], [7, 8, 9, 3],
                             [6, 8, 4, 5], [6, 8, 5, 9], [6, 8, 9, 7], [6, 8, 7, 4]])
-_VTK_TETRA, _VTK_QUADRATIC_TETRA = 10, 24
+_VTK_TETRA, _VTK_QUADRATIC_TETRA, _VTK_WEDGE = 10, 24, 13
+# Wedges (triangles 0-1-2 and 3-4-5, node i above node i + 3) become three tetrahedra on their own
+# nodes, split conformingly by the smallest-index rule of Dompierre, Labbe, Vallet and Camarero
+# (Proc. 8th International Meshing Roundtable, 1999): turn the wedge so its smallest global node is
+# node 0, then cut the opposite quadrilateral 1-2-5-4 along the diagonal through its smallest node.
+_WEDGE_TURNS = np.array([[0, 1, 2, 3, 4, 5], [1, 2, 0, 4, 5, 3], [2, 0, 1, 5, 3, 4],
+                         [3, 5, 4, 0, 2, 1], [4, 3, 5, 1, 0, 2], [5, 4, 3, 2, 1, 0]])
+_WEDGE_CUTS = (np.array([[0, 1, 2, 5], [0, 1, 5, 4], [0, 4, 5, 3]]),
+               np.array([[0, 1, 2, 4], [0, 4, 2, 5], [0, 4, 5, 3]]))
+
+
+def _wedge_tetrahedra(wedges: np.ndarray) -> np.ndarray:
+    turned = np.take_along_axis(wedges, _WEDGE_TURNS[np.argmin(wedges, axis=1)], axis=1)
+    through_15 = np.minimum(turned[:, 1], turned[:, 5]) < np.minimum(turned[:, 2], turned[:, 4])
+    pieces = np.where(through_15[:, None, None], _WEDGE_CUTS[0][None], _WEDGE_CUTS[1][None])
+    return np.take_along_axis(turned, pieces.reshape(len(wedges), 12), axis=1).reshape(-1, 4)
 
 
 def _linear_volume(pv, grid):
-    """The tetrahedra of ``grid`` as linear tetrahedra (tetra10 split into 8 on its own nodes).
+    """The cells of ``grid`` as linear tetrahedra (tetra10 split into 8, wedges into 3, on their own nodes).
 
     VTK's clip filter cuts quadratic tetrahedra into broken faces and its
     tessellator makes millions of cells; the eight-piece split uses every
@@ -307,8 +322,10 @@ def _linear_volume(pv, grid):
     if _VTK_QUADRATIC_TETRA in cells:
         quad = np.asarray(cells[_VTK_QUADRATIC_TETRA])
         tets.append(quad[:, _TETRA10_PIECES].reshape(-1, 4))
+    if _VTK_WEDGE in cells:
+        tets.append(_wedge_tetrahedra(np.asarray(cells[_VTK_WEDGE])))
     if not tets:
-        raise MeshError("volume renders support tetra and tetra10 cells only")
+        raise MeshError("volume renders support tetra, tetra10 and wedge cells only")
     linear = pv.UnstructuredGrid({_VTK_TETRA: np.concatenate(tets)}, np.asarray(grid.points))
     return linear
 

@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from .case import Case, Wall
-from .errors import CaseError, GeometryError, MeshError
+from .errors import CaseError, GeometryError, MeshError, ShellmodesError
 from .harmonics import angles, real_sph_harm
 from .run import compiled_potential, energy_scale, finish_spectrum, solve_case_modes
 from .spectrum import build_multiplets
@@ -72,16 +72,26 @@ def build_volume(case: Case):
             raise CaseError(exc.reason, exc.source or case.source, "shell.file") from None
     walls = [shell.inner, *shell.interfaces, shell.outer]
     functions = [None if w is None else wall_function(w) for w in walls]
+    prisms = shell.cells == "prisms"
     level = res.subdivisions if res.subdivisions is not None else 2
+    most = 8 if prisms else 7
     if res.edge_length is not None:
         outer = float(np.max(functions[-1](np.eye(3))))
         level = max(0, int(np.ceil(np.log2(1.05 * outer / res.edge_length))))
-        if level > 7:
-            raise CaseError(f"value {res.edge_length!r}: needs {level} subdivisions of the directions, at most 7 "
-                            "are allowed for shells; use a larger edge_length", case.source,
+        if level > most:
+            raise CaseError(f"value {res.edge_length!r}: needs {level} subdivisions of the directions, at most "
+                            f"{most} are allowed for shell {shell.cells}; use a larger edge_length", case.source,
                             "resolution.edge_length")
+    if level > most:
+        raise CaseError(f"value {level!r}: shell {shell.cells} allow at most {most} subdivisions", case.source,
+                        "resolution.subdivisions")
     layers = shell.layers if isinstance(shell.layers, int) else list(shell.layers)
     try:
+        if prisms:
+            from .volume.prisms import prism_shell
+
+            return prism_shell(functions, level, layers, degree=res.degree, radial_degree=shell.radial_degree,
+                               geometry_degree=res.geometry_degree, quadrature_order=res.quadrature_order)
         mesh = shell_mesh(functions, level=level, layers_per_region=layers)
         return discretise(mesh, res.degree, quadrature_order=res.quadrature_order)
     except GeometryError as exc:
@@ -167,15 +177,84 @@ def _choose_path(case: Case, K, points):
     return path, estimate, reason
 
 
+def _dirichlet_walls(case: Case) -> list[str]:
+    shell = case.shell
+    walls = [w for w, c in (("inner", shell.inner_condition), ("outer", shell.outer_condition)) if c == "dirichlet"]
+    if shell.file is None and shell.inner is None:
+        walls = [w for w in walls if w != "inner"]
+    return walls
+
+
+def _separable(case: Case, disc) -> bool:
+    """Whether the prism case separates (concentric spheres, no potential), or fails when asked to."""
+    fits = case.potential is None and disc.concentric_spheres()
+    if case.modes.method == "separable" and not fits:
+        raise CaseError("value 'separable': the walls are not concentric spheres about the origin; use 'auto'",
+                        case.source, "modes.method")
+    return fits and case.modes.method in ("auto", "separable")
+
+
+def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale):
+    """Eigenpairs of a prism shell between concentric spheres by separation, with (n, l) per mode."""
+    import warnings
+
+    from threadpoolctl import threadpool_limits
+
+    from .solve import DoubtfulResultWarning, Eigenpairs, lowest_modes
+    from .volume.prisms import kronecker_factors, separable_modes
+
+    modes = case.modes
+    Ks, Ms, A, B, C = kronecker_factors(disc, inverse_mass, offsets)
+    dirichlet = _dirichlet_walls(case)
+    fixed = {0} if "inner" in dirichlet else set()
+    fixed |= {disc.n_radial - 1} if "outer" in dirichlet else set()
+    radial_free = np.array([r for r in range(disc.n_radial) if r not in fixed])
+    e0 = energy_scale(case)[0]
+    below = None if modes.below is None else (modes.below / e0 if e0 is not None else modes.below)
+
+    def surface(k):
+        return lowest_modes(Ks, Ms, count=k, lower_bound=0.0, scale=1.0, backend=modes.backend,
+                            multiplet_tolerance=modes.multiplet_tolerance, residual_limit=modes.residual_limit)
+
+    shift = lower - scale
+    with warnings.catch_warnings(record=True) as caught, threadpool_limits(limits=1):
+        warnings.simplefilter("always")
+        try:
+            found = separable_modes(Ks, Ms, A, B, C, radial_free, count=modes.count, below=below,
+                                    multiplet_tolerance=modes.multiplet_tolerance, scale=abs(shift),
+                                    surface_solver=surface)
+        except ShellmodesError as exc:
+            raise CaseError(str(exc), case.source, "modes.count" if modes.count else "modes.below") from None
+    messages = [str(w.message) for w in caught]
+    worst = float(np.max(found.residuals)) if len(found.lam) else 0.0
+    if worst > modes.residual_limit:
+        messages.append(f"largest relative residual {worst:.2e} exceeds the limit {modes.residual_limit:.1e} "
+                        f"(mode {int(np.argmax(found.residuals))}); do not trust these modes without checking")
+        warnings.warn(messages[-1], DoubtfulResultWarning, stacklevel=3)
+    if len(found.lam) == 0 and below is not None:
+        messages.append(f"{case.source}: no mode lies below modes.below = {modes.below!r}")
+        warnings.warn(messages[-1], UserWarning, stacklevel=3)
+    pairs = Eigenpairs(lam=found.lam, vectors=found.vectors, residuals=found.residuals,
+                       orthogonality=found.orthogonality, shift=shift, backend="separable", requested=modes.count,
+                       timings={"eigensolve": found.timings["eigensolve"],
+                                "surface_modes": found.timings["surface_modes"]}, method="separable")
+    l = np.rint((np.sqrt(1.0 + 4.0 * np.maximum(found.surface_lam, 0.0)) - 1.0) / 2.0).astype(int)
+    volume = float(np.ones(disc.n_surface) @ (Ms @ np.ones(disc.n_surface))) * float(np.sum(C))
+    return pairs, messages, found.radial_index + 1, l, volume
+
+
 def run_shell(case: Case):
     """Solve a shell or ball case and return its :class:`~shellmodes.spectrum.Spectrum`."""
-    from .volume import assemble_volume, export_cells, free_dofs, restricted
+    from .volume import assemble_volume, free_dofs, restricted
 
     t_start = time.perf_counter()
     disc = build_volume(case)
     t_mesh = time.perf_counter() - t_start
     e0, origin = energy_scale(case)
     inverse_mass, offsets, names = _media(case, disc, e0)
+    prisms = case.shell.cells == "prisms"
+    if prisms and _separable(case, disc):
+        return _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_start, t_mesh)
     expression = compiled_potential(case, e0)
     function = None
     if expression is not None:
@@ -186,12 +265,21 @@ def run_shell(case: Case):
                                 theta=theta, phi=phi)
             return values.reshape(np.shape(x))
     t0 = time.perf_counter()
-    K, M = assemble_volume(disc, inverse_mass, offsets, function)
-    shell = case.shell
-    dirichlet = [w for w, c in (("inner", shell.inner_condition), ("outer", shell.outer_condition)) if c == "dirichlet"]
-    if shell.file is None and shell.inner is None:
-        dirichlet = [w for w in dirichlet if w != "inner"]
-    free = free_dofs(disc, dirichlet) if dirichlet else np.arange(disc.ndofs)
+    dirichlet = _dirichlet_walls(case)
+    if prisms:
+        from .volume.prisms import assemble_prisms
+
+        try:
+            K, M = assemble_prisms(disc, inverse_mass, offsets, function)
+        except GeometryError as exc:
+            raise CaseError(str(exc), case.source, "shell") from None
+        mask = np.ones(disc.ndofs, dtype=bool)
+        for wall in dirichlet:
+            mask[disc.wall_dofs(wall)] = False
+        free = np.flatnonzero(mask)
+    else:
+        K, M = assemble_volume(disc, inverse_mass, offsets, function)
+        free = free_dofs(disc, dirichlet) if dirichlet else np.arange(disc.ndofs)
     Kf, Mf = (restricted(K, free), restricted(M, free)) if len(free) < disc.ndofs else (K, M)
     t_assembly = time.perf_counter() - t0
     lower = min([0.0, *offsets.values()])
@@ -212,25 +300,69 @@ def run_shell(case: Case):
     multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, scale,
                                   mode_l=None if labels is None else labels.l)
     volume = float(np.ones(disc.ndofs) @ (M @ np.ones(disc.ndofs)))
-    mesh_info = {"kind": "shell", "source": disc.source, "degree": disc.degree, "elements": int(disc.mesh.nelements),
-                 "dofs": int(disc.ndofs), "free_dofs": int(len(free)), "h": disc.h, "volume": volume,
-                 "regions": {str(r): {"name": names[r], "inverse_mass": inverse_mass[r], "offset": offsets[r]}
-                             for r in disc.region_ids},
-                 "dirichlet_walls": dirichlet, "spherically_symmetric": symmetric}
-    if labels is not None:
-        mesh_info["labels"] = "(n, l) from angular content" + ("" if symmetric else " (parent labels, deformed)")
-    timings = {"mesh": t_mesh, "assembly": t_assembly, "eigensolve": pairs.timings["eigensolve"],
-               "total": time.perf_counter() - t_start}
-    lines = [f"shell: {disc!r}", f"mesh: degree {disc.degree}, {disc.mesh.nelements} tetrahedra, {disc.ndofs} dofs "
-             f"({len(free)} free), h = {disc.h:.4g}, volume = {volume:.10g}",
-             f"path: {pairs.backend} / {getattr(pairs, 'method', 'lanczos')} for {len(free)} unknowns; {reason}"]
-    mesh_info["solver_path"] = {"path": path, "reason": reason,
-                                "estimated_factor_bytes": None if estimate is None else int(estimate.bytes)}
-    points, cells, cell_data = export_cells(disc)
-    export = {"points": points, "cells": cells, "cell_data": cell_data}
+    timings = {"mesh": t_mesh, "assembly": t_assembly, "eigensolve": pairs.timings["eigensolve"]}
     columns = {}
     if labels is not None:
         columns = {"n": [int(v) for v in labels.n], "dominant_l": [int(v) for v in labels.l],
                    "l_weight": [float(labels.content[i, labels.l[i]]) for i in range(len(lam))]}
+    solver_path = {"path": path, "reason": reason,
+                   "estimated_factor_bytes": None if estimate is None else int(estimate.bytes)}
+    label_text = None if labels is None else ("(n, l) from angular content"
+                                              + ("" if symmetric else " (parent labels, deformed)"))
+    return _package(case, disc, pairs, e0, origin, multiplets, vectors, names, inverse_mass, offsets, dirichlet,
+                    len(free), volume, symmetric, solver_path, label_text, timings, t_start, warn_text, columns)
+
+
+def _package(case, disc, pairs, e0, origin, multiplets, vectors, names, inverse_mass, offsets, dirichlet, nfree,
+             volume, symmetric, solver_path, label_text, timings, t_start, warn_text, columns):
+    """The spectrum of a solved shell: mesh record, log lines, VTU cells."""
+    from .volume import export_cells
+
+    prisms = case.shell.cells == "prisms"
+    cell_name = "prisms" if prisms else "tetrahedra"
+    nelements = disc.nelements if prisms else int(disc.mesh.nelements)
+    mesh_info = {"kind": "shell", "source": disc.source, "cells": cell_name, "degree": disc.degree,
+                 "elements": int(nelements), "dofs": int(disc.ndofs), "free_dofs": int(nfree), "h": disc.h,
+                 "volume": volume,
+                 "regions": {str(r): {"name": names[r], "inverse_mass": inverse_mass[r], "offset": offsets[r]}
+                             for r in disc.region_ids},
+                 "dirichlet_walls": dirichlet, "spherically_symmetric": symmetric, "solver_path": solver_path}
+    if prisms:
+        mesh_info.update(radial_degree=disc.radial_degree, geometry_degree=disc.geometry_degree,
+                         surface_dofs=disc.n_surface, radial_dofs=disc.n_radial)
+    if label_text is not None:
+        mesh_info["labels"] = label_text
+    timings = {**timings, "total": time.perf_counter() - t_start}
+    degree = f"degree {disc.degree}" + (f" x radial {disc.radial_degree}" if prisms else "")
+    lines = [f"shell: {disc!r}", f"mesh: {degree}, {nelements} {cell_name}, {disc.ndofs} dofs "
+             f"({nfree} free), h = {disc.h:.4g}, volume = {volume:.10g}",
+             f"path: {pairs.backend} / {getattr(pairs, 'method', 'lanczos')} for {nfree} unknowns; "
+             f"{solver_path['reason']}"]
+    if prisms:
+        from .volume.prisms import export_prisms
+
+        points, cells, cell_data = export_prisms(disc)
+    else:
+        points, cells, cell_data = export_cells(disc)
+    export = {"points": points, "cells": cells, "cell_data": cell_data}
     return finish_spectrum(case, pairs, e0, origin, multiplets, vectors, disc.nodes, mesh_info, timings, lines,
                            warn_text, export, mode_columns=columns)
+
+
+def _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_start, t_mesh):
+    lower = min([0.0, *offsets.values()])
+    scale = 1.0 / float(np.max(disc.wall_values[-1])) ** 2
+    t0 = time.perf_counter()
+    pairs, warn_text, n, l, volume = _solve_separable(case, disc, inverse_mass, offsets, lower, scale)
+    lam = pairs.lam
+    energies = lam * e0 if e0 is not None else lam.copy()
+    multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, scale, mode_l=l)
+    columns = {"n": [int(v) for v in n], "dominant_l": [int(v) for v in l], "l_weight": [1.0] * len(lam)}
+    solver_path = {"path": "separable", "estimated_factor_bytes": None,
+                   "reason": ("concentric spherical walls and no potential: the prism matrices are Kronecker sums, "
+                              f"so {pairs.timings['surface_modes']} surface modes and their radial problems give "
+                              "the modes exactly")}
+    timings = {"mesh": t_mesh, "assembly": 0.0, "eigensolve": time.perf_counter() - t0}
+    return _package(case, disc, pairs, e0, origin, multiplets, pairs.vectors, names, inverse_mass, offsets,
+                    _dirichlet_walls(case), disc.ndofs, volume, True, solver_path,
+                    "(n, l) exact: radial index and the surface mode's l", timings, t_start, warn_text, columns)
