@@ -266,6 +266,31 @@ def _shell_neumann():
     return float(got), exact, max(abs(got - exact) / exact, zero)
 
 
+@check("hard-wall shell 1 < r < 2 on prisms: first 50 modes", "roots of j_l(ka) y_l(kb) - j_l(kb) y_l(ka), "
+       "scipy.special.spherical_jn/yn, each (2l+1)-fold", 1e-6)
+def _shell_prisms50():
+    # degree 4 x radial 8 on 642 directions (92,178 dofs): 6.9e-8 measured
+    s = _shell_case(1.0, 2.0, 50, degree=4, subdivisions=3, layers=1, cells="prisms", radial_degree=8)
+    exact = np.sort([float(k) ** 2 for l in range(10) for k in ref.shell_dirichlet(l, 2, 1.0, 2.0)
+                     for _ in range(2 * l + 1)])[:50]
+    got = np.asarray(s.eigenvalues[:50])
+    return float(got[-1]), float(exact[-1]), _max_rel(got, exact)
+
+
+@check("two-media hard-wall shell with a mass jump (prisms)", "j_l, y_l in each medium, continuity of R and "
+       "(1/m) dR/dr at r = 1.5 (BenDaniel and Duke 1966)", 1e-6)
+def _layered_prisms():
+    data = {"shell": {"inner": {"shape": "sphere", "radius": 1.0}, "interfaces": [{"shape": "sphere", "radius": 1.5}],
+                      "outer": {"shape": "sphere", "radius": 2.0}, "cells": "prisms", "layers": [1, 1],
+                      "radial_degree": 8, "regions": [{"effective_mass": 1.0}, {"effective_mass": 0.4}]},
+            "resolution": {"degree": 4, "subdivisions": 2}, "modes": {"count": 9}}
+    s = run_case(case_from_dict(data, "<check>"))
+    exact = np.sort([v for l in range(3) for v in ref.layered_shell_dirichlet(l, 2, 1.0, 1.5, 2.0, 1.0, 0.4)
+                     for _ in range(2 * l + 1)])[:9]
+    got = np.asarray(s.eigenvalues[:9])
+    return float(got[0]), float(exact[0]), _max_rel(got, exact)
+
+
 @check("finite spherical well with a mass jump: ground state", "j_l inside, k_l outside, continuity of psi and "
        "(1/m) dpsi/dr (BenDaniel and Duke 1966)", 5e-3)
 def _finite_well():

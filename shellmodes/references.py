@@ -31,6 +31,7 @@ from scipy.special import elliprd, elliprf, kve, roots_legendre, spherical_jn, s
 from shellmodes.errors import GeometryError, SolverError
 
 __all__ = [
+    "layered_shell_dirichlet",
     "sphere_eigenvalues",
     "sphere_levels",
     "cap_eigenvalues",
@@ -651,6 +652,54 @@ def _shell_roots(l: int, count: int, a: float, b: float, inner: str | None, oute
     start = max(0.999 * bound, 0.5 * step)
     k = _scan_roots(f, start, step, count=wanted)
     return np.concatenate([[0.0], k]) if zero_mode else k
+
+
+def layered_shell_dirichlet(l: int, count: int, a: float, b: float, c: float, mass_in: float,
+                            mass_out: float) -> np.ndarray:
+    """Lowest ``count`` eigenvalues of degree l of a hard-walled two-layer shell with a mass jump.
+
+    The operator is -div (1/m) grad with m = mass_in for a < r < b and
+    m = mass_out for b < r < c, u = 0 at r = a and r = c (units with
+    hbar^2/2 = 1, so lambda = E).  In layer i the radial solution is a
+    combination of j_l and y_l of k_i r with k_i^2 = m_i lambda:
+    R_1 = j_l(k_1 r) y_l(k_1 a) - y_l(k_1 r) j_l(k_1 a) vanishes at a, and
+    R_2 = j_l(k_2 r) y_l(k_2 c) - y_l(k_2 r) j_l(k_2 c) at c.  Continuity of R
+    and of (1/m) dR/dr at r = b (BenDaniel-Duke) gives
+
+        R_1(b) R_2'(b) / m_out - R_2(b) R_1'(b) / m_in = 0,
+
+    whose roots in sqrt(lambda) are found by a sign scan.  Each value is
+    (2l+1)-fold.
+
+    References
+    ----------
+    D. J. BenDaniel and C. B. Duke, Phys. Rev. 152, 683 (1966) (matching
+    condition); DLMF 10.47 and 10.51 (spherical Bessel functions and their
+    derivatives).  With mass_in = mass_out the roots are those of
+    :func:`shell_dirichlet` on a < r < c, which the tests check.
+    """
+    l, count = _degree(l), _count(count)
+    a, b, c = (float(_positive(n, v)) for n, v in (("a", a), ("b", b), ("c", c)))
+    if not a < b < c:
+        raise GeometryError(f"need radii a < b < c, got a={a}, b={b}, c={c}")
+    m1, m2 = float(_positive("mass_in", mass_in)), float(_positive("mass_out", mass_out))
+
+    def f(s):
+        s = np.asarray(s, dtype=float)
+        k1, k2 = s * np.sqrt(m1), s * np.sqrt(m2)
+        ja, ya = spherical_jn(l, k1 * a), spherical_yn(l, k1 * a)
+        jc, yc = spherical_jn(l, k2 * c), spherical_yn(l, k2 * c)
+        r1 = spherical_jn(l, k1 * b) * ya - spherical_yn(l, k1 * b) * ja
+        d1 = k1 * (spherical_jn(l, k1 * b, derivative=True) * ya - spherical_yn(l, k1 * b, derivative=True) * ja)
+        r2 = spherical_jn(l, k2 * b) * yc - spherical_yn(l, k2 * b) * jc
+        d2 = k2 * (spherical_jn(l, k2 * b, derivative=True) * yc - spherical_yn(l, k2 * b, derivative=True) * jc)
+        return r1 * d2 / m2 - r2 * d1 / m1
+
+    # roots in s = sqrt(lambda) are about pi / (optical thickness) apart
+    thickness = (b - a) * np.sqrt(m1) + (c - b) * np.sqrt(m2)
+    step = np.pi / (_POINTS_PER_SPACING * thickness)
+    s = _scan_roots(f, 0.5 * step, step, count=count)
+    return s**2
 
 
 # ----------------------------------------------------------------------------- finite well

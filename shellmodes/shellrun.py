@@ -213,6 +213,8 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale):
     below = None if modes.below is None else (modes.below / e0 if e0 is not None else modes.below)
 
     def surface(k):
+        # the unit sphere's multiplets close at (L + 1)^2 modes: asking that many needs one Lanczos run
+        k = min(Ks.shape[0], int(np.ceil(np.sqrt(k))) ** 2)
         return lowest_modes(Ks, Ms, count=k, lower_bound=0.0, scale=1.0, backend=modes.backend,
                             multiplet_tolerance=modes.multiplet_tolerance, residual_limit=modes.residual_limit)
 

@@ -475,7 +475,9 @@ def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None 
     f = np.asarray(radial_free)
     Af, Bf, Cf = A[np.ix_(f, f)], B[np.ix_(f, f)], C[np.ix_(f, f)]
     t0 = time.perf_counter()
-    want = count if count is not None else 16
+    # the top kept multiplet is often the last surface multiplet's n = 1 level, which would force a
+    # second surface solve; asking 1.5 count + 8 at once usually settles it in one
+    want = int(1.5 * count) + 8 if count is not None else 16
     n_full = Ks.shape[0] * len(f)
     while True:
         surface = solver(min(want, Ks.shape[0]))
