@@ -15,7 +15,7 @@ import sys
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, NonNegativeInt, ValidationError, field_validator, model_validator
 
 from .errors import CaseError
 from .expression import ExpressionError, compile_expression
@@ -164,7 +164,8 @@ class Region(_Table):
     """One medium of a shell (core, shell, outer medium): its effective mass and band offset."""
 
     name: str = Field("", description="label used in reports")
-    tag: int | None = Field(None, ge=0, description="region id in a mesh file (default: position, inside out)")
+    tag: NonNegativeInt | str | None = Field(None, description="region id, or its physical name, in a mesh file "
+                                             "(default: position, inside out)")
     effective_mass: Positive | None = Field(None, description="mass as a multiple of particle.mass "
                                                               "(default: particle.effective_mass)")
     offset: float = Field(0.0, description="potential offset (band offset), in potential.unit or units.energy")

@@ -21,7 +21,7 @@ from .harmonics import angles, real_sph_harm
 from .run import compiled_potential, energy_scale, finish_spectrum, solve_case_modes
 from .spectrum import build_multiplets
 
-__all__ = ["run_shell", "wall_function", "build_volume"]
+__all__ = ["run_shell", "wall_function", "build_volume", "radial_potential"]
 
 
 def wall_function(wall: Wall):
@@ -105,9 +105,16 @@ def _media(case: Case, disc, e0):
     shell, particle = case.shell, case.particle
     ids = disc.region_ids
     entries_by_id = {}
+    named = {name: tag for tag, name in getattr(disc, "region_names", {}).items()}
     for i, region in enumerate(shell.regions):
         # default tag: the region's place (inside out), or the i-th tag present in a mesh file
         tag = region.tag if region.tag is not None else (ids[i] if shell.file is not None and i < len(ids) else i)
+        if isinstance(tag, str):
+            if tag not in named:
+                present = ", ".join(sorted(named)) if named else "none (the mesh names no volume regions)"
+                raise CaseError(f"value {tag!r}: no region of that name in the mesh; names present: {present}",
+                                case.source, f"shell.regions[{i}].tag")
+            tag = named[tag]
         if tag not in ids:
             raise CaseError(f"value {tag!r}: no such region in the mesh; regions present: "
                             f"{', '.join(map(str, ids))}", case.source, f"shell.regions[{i}].tag")
@@ -123,7 +130,8 @@ def _media(case: Case, disc, e0):
         mass = particle.effective_mass if region is None or region.effective_mass is None else region.effective_mass
         inverse_mass[r] = particle.effective_mass / mass
         offsets[r] = 0.0 if region is None else region.offset * offset_scale
-        names[r] = (region.name if region is not None and region.name else f"region {r}")
+        file_name = getattr(disc, "region_names", {}).get(r)
+        names[r] = (region.name if region is not None and region.name else file_name or f"region {r}")
     return inverse_mass, offsets, names
 
 
@@ -177,24 +185,45 @@ def _choose_path(case: Case, K, points):
     return path, estimate, reason
 
 
-def _dirichlet_walls(case: Case) -> list[str]:
+def _dirichlet_walls(case: Case, disc=None) -> list[str]:
+    """Walls held at zero; a ball (from walls or a mesh file without an inner boundary) has no inner wall."""
     shell = case.shell
     walls = [w for w, c in (("inner", shell.inner_condition), ("outer", shell.outer_condition)) if c == "dirichlet"]
-    if shell.file is None and shell.inner is None:
-        walls = [w for w in walls if w != "inner"]
-    return walls
+    ball = shell.inner is None if shell.file is None else not len(getattr(disc, "walls", {}).get("inner", ()))
+    return [w for w in walls if w != "inner"] if ball else walls
 
 
-def _separable(case: Case, disc) -> bool:
-    """Whether the prism case separates (concentric spheres, no potential), or fails when asked to."""
-    fits = case.potential is None and disc.concentric_spheres()
+def radial_potential(case: Case, e0):
+    """The case's potential as a function of r alone (lambda units), or None when it uses x, y, z or angles."""
+    from .expression import ExpressionError, compile_expression
+
+    if case.potential is None:
+        return None
+    try:
+        compile_expression(case.potential.expression, variables=("r",))
+    except ExpressionError:
+        return None
+    full = compiled_potential(case, e0)
+
+    def potential(r):
+        r = np.asarray(r, dtype=float)
+        zero = np.zeros_like(r)
+        return full(x=zero, y=zero, z=zero, r=r, theta=zero, phi=zero)
+
+    return potential
+
+
+def _separable(case: Case, disc, potential) -> bool:
+    """Whether the prism case separates (concentric spheres, no potential or V(r)), or fails when asked to."""
+    fits = (case.potential is None or potential is not None) and disc.concentric_spheres()
     if case.modes.method == "separable" and not fits:
-        raise CaseError("value 'separable': the walls are not concentric spheres about the origin; use 'auto'",
-                        case.source, "modes.method")
+        why = ("the walls are not concentric spheres about the origin" if not disc.concentric_spheres()
+               else "the potential depends on more than r")
+        raise CaseError(f"value 'separable': {why}; use 'auto'", case.source, "modes.method")
     return fits and case.modes.method in ("auto", "separable")
 
 
-def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale):
+def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, potential=None):
     """Eigenpairs of a prism shell between concentric spheres by separation, with (n, l) per mode."""
     import warnings
 
@@ -204,7 +233,7 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale):
     from .volume.prisms import kronecker_factors, separable_modes
 
     modes = case.modes
-    Ks, Ms, A, B, C = kronecker_factors(disc, inverse_mass, offsets)
+    Ks, Ms, A, B, C = kronecker_factors(disc, inverse_mass, offsets, potential)
     dirichlet = _dirichlet_walls(case)
     fixed = {0} if "inner" in dirichlet else set()
     fixed |= {disc.n_radial - 1} if "outer" in dirichlet else set()
@@ -255,8 +284,10 @@ def run_shell(case: Case):
     e0, origin = energy_scale(case)
     inverse_mass, offsets, names = _media(case, disc, e0)
     prisms = case.shell.cells == "prisms"
-    if prisms and _separable(case, disc):
-        return _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_start, t_mesh)
+    if prisms:
+        potential = radial_potential(case, e0)
+        if _separable(case, disc, potential):
+            return _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_start, t_mesh, potential)
     expression = compiled_potential(case, e0)
     function = None
     if expression is not None:
@@ -267,7 +298,7 @@ def run_shell(case: Case):
                                 theta=theta, phi=phi)
             return values.reshape(np.shape(x))
     t0 = time.perf_counter()
-    dirichlet = _dirichlet_walls(case)
+    dirichlet = _dirichlet_walls(case, disc)
     if prisms:
         from .volume.prisms import assemble_prisms
 
@@ -351,17 +382,20 @@ def _package(case, disc, pairs, e0, origin, multiplets, vectors, names, inverse_
                            warn_text, export, mode_columns=columns)
 
 
-def _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_start, t_mesh):
+def _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_start, t_mesh, potential):
     lower = min([0.0, *offsets.values()])
+    if potential is not None:
+        lower = min(lower, float(np.min(potential(np.linalg.norm(disc.nodes[::disc.n_surface], axis=1)))))
     scale = 1.0 / float(np.max(disc.wall_values[-1])) ** 2
     t0 = time.perf_counter()
-    pairs, warn_text, n, l, volume = _solve_separable(case, disc, inverse_mass, offsets, lower, scale)
+    pairs, warn_text, n, l, volume = _solve_separable(case, disc, inverse_mass, offsets, lower, scale, potential)
     lam = pairs.lam
     energies = lam * e0 if e0 is not None else lam.copy()
     multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, scale, mode_l=l)
     columns = {"n": [int(v) for v in n], "dominant_l": [int(v) for v in l], "l_weight": [1.0] * len(lam)}
     solver_path = {"path": "separable", "estimated_factor_bytes": None,
-                   "reason": ("concentric spherical walls and no potential: the prism matrices are Kronecker sums, "
+                   "reason": ("concentric spherical walls and no potential or V(r) only: the prism matrices are "
+                              "Kronecker sums, "
                               f"so {pairs.timings['surface_modes']} surface modes and their radial problems give "
                               "the modes exactly")}
     timings = {"mesh": t_mesh, "assembly": 0.0, "eigensolve": time.perf_counter() - t0}

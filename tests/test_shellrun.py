@@ -147,3 +147,42 @@ def test_pictures_output_for_a_shell(tmp_path):
     assert "levels.png" in pngs and len(pngs) == 3  # the diagram and one render per multiplet asked for
     for name in pngs:
         assert (tmp_path / "out" / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def _named_dot(tmp_path):
+    """A ball core r < 1 in a shell 1 < r < 2 written as gmsh with physical names core (1), shell (2)."""
+    import meshio
+
+    from shellmodes.volume import discretise, export_cells, shell_mesh
+
+    disc = discretise(shell_mesh([None, 1.0, 2.0], 1, 1), degree=1)
+    points, cells, data = export_cells(disc)
+    tags = data["region"][0] + 1
+    path = tmp_path / "dot.msh"
+    meshio.write(path, meshio.Mesh(points, cells, cell_data={"gmsh:physical": [tags], "gmsh:geometrical": [tags]},
+                                   field_data={"core": np.array([1, 3]), "shell": np.array([2, 3]),
+                                               "skin": np.array([5, 2])}),
+                 file_format="gmsh22", binary=False)
+    return path
+
+
+def test_regions_can_be_named_by_the_mesh_files_physical_names(tmp_path):
+    path = _named_dot(tmp_path)
+    by_tag = {"shell": {"file": str(path), "regions": [{"tag": 1}, {"tag": 2, "effective_mass": 0.5}]},
+              "resolution": {"degree": 1}, "modes": {"count": 2}, "output": {"vtu": False}}
+    by_name = {**by_tag, "shell": {"file": str(path), "regions": [{"tag": "shell", "effective_mass": 0.5},
+                                                                  {"tag": "core"}]}}
+    a, b = run_case(case_from_dict(by_tag)), run_case(case_from_dict(by_name))
+    np.testing.assert_allclose(a.eigenvalues, b.eigenvalues, rtol=1e-12)
+    regions = b.info["mesh"]["regions"]
+    assert regions["1"]["name"] == "core" and regions["2"]["inverse_mass"] == 2.0
+
+
+def test_unknown_region_name_lists_the_names_present(tmp_path):
+    path = _named_dot(tmp_path)
+    data = {"shell": {"file": str(path), "regions": [{"tag": "cor"}, {"tag": "shell"}]},
+            "resolution": {"degree": 1}, "modes": {"count": 2}}
+    with pytest.raises(CaseError) as info:
+        run_case(case_from_dict(data, "dot.toml"))
+    assert info.value.key == "shell.regions[0].tag"
+    assert "'cor'" in str(info.value) and "core, shell" in str(info.value) and "skin" not in str(info.value)

@@ -60,6 +60,8 @@ class VolumeDiscretisation:
         Largest straight edge length.
     source
         What the mesh came from (``"shell_mesh"`` or a file name).
+    region_names
+        Region id -> name given in the file (gmsh physical names of volumes).
     """
 
     mesh: skfem.Mesh
@@ -70,6 +72,7 @@ class VolumeDiscretisation:
     walls: dict = field(default_factory=dict)
     h: float = 0.0
     source: str = ""
+    region_names: dict = field(default_factory=dict)
 
     @property
     def ndofs(self) -> int:

@@ -392,7 +392,8 @@ def assemble_prisms(disc: PrismShell, inverse_mass: dict, offsets: dict | None =
     return K, M
 
 
-def kronecker_factors(disc: PrismShell, inverse_mass: dict, offsets: dict | None = None):
+def kronecker_factors(disc: PrismShell, inverse_mass: dict, offsets: dict | None = None,
+                      radial_potential: Callable | None = None):
     """Surface and radial factors of the matrices for concentric spherical walls.
 
     With ``x = rho(tau) s(xi)`` and ``s . ds/dxi = 0`` the metric is
@@ -403,7 +404,8 @@ def kronecker_factors(disc: PrismShell, inverse_mass: dict, offsets: dict | None
     where K_s, M_s are the unit sphere's Laplace-Beltrami stiffness and mass
     on the same triangles and rule, and over the radial chain
     ``A = sum kappa rho^2 psi' psi' / h``, ``B = sum kappa h psi psi``,
-    ``C = sum rho^2 h psi psi``, ``D = sum V_i rho^2 h psi psi`` (kappa = m0/m_i).
+    ``C = sum rho^2 h psi psi``, ``D = sum (V_i + V(rho)) rho^2 h psi psi`` (kappa = m0/m_i,
+    V_i the medium's offset, V(rho) an optional radial potential).
 
     Returns ``(K_s, M_s, A + D, B, C)``.
     """
@@ -435,7 +437,10 @@ def kronecker_factors(disc: PrismShell, inverse_mass: dict, offsets: dict | None
         kappa = inverse_mass.get(int(medium), 1.0)
         block = np.ix_(layer, layer)
         A[block] += kappa * np.einsum("aq,q,bq->ab", ref.dpsi, ref.wr * rho**2 / h, ref.dpsi)
-        A[block] += offsets.get(int(medium), 0.0) * np.einsum("aq,q,bq->ab", ref.psi, ref.wr * rho**2 * h, ref.psi)
+        value = np.full(len(rho), offsets.get(int(medium), 0.0))
+        if radial_potential is not None:
+            value = value + np.asarray(radial_potential(rho), dtype=float)
+        A[block] += np.einsum("aq,q,bq->ab", ref.psi, ref.wr * value * rho**2 * h, ref.psi)
         B[block] += kappa * np.einsum("aq,q,bq->ab", ref.psi, ref.wr * h, ref.psi)
         C[block] += np.einsum("aq,q,bq->ab", ref.psi, ref.wr * rho**2 * h, ref.psi)
     return Ks, Ms, A, B, C

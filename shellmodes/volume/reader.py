@@ -1,7 +1,8 @@
 """Tetrahedral meshes from files through meshio (``tetra`` and ``tetra10`` cells).
 
 Region ids come from a cell-data array: the one named by the caller, else the
-first of :data:`REGION_KEYS` present.  meshio already converts gmsh's
+first of :data:`REGION_KEYS` present; region names from the file's physical
+names (meshio ``field_data``), so a case can refer to ``tag = "core"``.  meshio already converts gmsh's
 ``tetra10`` node order to VTK's (vertices, then edges 01, 12, 02, 03, 13, 23),
 which is the order :func:`~shellmodes.volume.discretise.discretise_tetrahedra`
 expects.
@@ -9,6 +10,7 @@ expects.
 
 from __future__ import annotations
 
+import dataclasses
 import os
 
 import meshio
@@ -17,7 +19,7 @@ import numpy as np
 from ..errors import MeshError
 from .discretise import VolumeDiscretisation, discretise_tetrahedra
 
-__all__ = ["read_volume_mesh", "REGION_KEYS"]
+__all__ = ["read_volume_mesh", "region_names", "REGION_KEYS"]
 
 REGION_KEYS = ("region", "gmsh:physical", "medit:ref", "CellEntityIds")
 _TET_TYPES = ("tetra", "tetra10")
@@ -84,5 +86,22 @@ def read_volume_mesh(
         cells = cells[:, :4]
     if data.points.ndim != 2 or data.points.shape[1] != 3:
         raise MeshError(f"points have shape {data.points.shape}; a volume mesh needs 3-D points", source)
-    return discretise_tetrahedra(data.points, cells, regions, degree, source=source,
+    disc = discretise_tetrahedra(data.points, cells, regions, degree, source=source,
                                  quadrature_order=quadrature_order)
+    names = region_names(data.field_data)
+    return dataclasses.replace(disc, region_names=names) if names else disc
+
+
+def region_names(field_data: dict) -> dict[int, str]:
+    """Region id -> name from meshio ``field_data`` (gmsh physical names; entries [id, dimension]).
+
+    Only three-dimensional entries name volume regions; entries without a
+    dimension are taken as they are.
+    """
+    names = {}
+    for name, value in field_data.items():
+        value = np.asarray(value).reshape(-1)
+        if len(value) == 0 or (len(value) >= 2 and int(value[1]) != 3):
+            continue
+        names[int(value[0])] = str(name)
+    return names
