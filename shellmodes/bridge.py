@@ -93,8 +93,14 @@ def _offset_wall(surface: dict, delta: float, key: str, source: str) -> dict:
     return wall
 
 
-def thin_shell_comparison(case: Case, thickness, layers: int = 6, subdivisions: int | None = None):
+def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subdivisions: int | None = None,
+                          cells: str = "prisms"):
     """Solve ``case`` (a surface case) and the shells of each thickness around it.
+
+    ``cells = "prisms"`` (the default) puts one layer of radial degree
+    max(4, degree) on the surface's own triangle degree and exact wall
+    geometry; ``"tetrahedra"`` uses six layers of curved P2 tetrahedra
+    (at most degree 2), whose wall-geometry error dominates for d/R <= 0.1.
 
     Raises
     ------
@@ -117,12 +123,19 @@ def thin_shell_comparison(case: Case, thickness, layers: int = 6, subdivisions: 
     data.pop("sweep", None)
     count = len(surface.eigenvalues)
     shells = {}
+    if cells not in ("prisms", "tetrahedra"):
+        raise CaseError(f"value {cells!r}: allowed cells are prisms, tetrahedra", case.source, "--cells")
+    prisms = cells == "prisms"
+    if layers is None:
+        layers = 1 if prisms else 6
+    degree = case.resolution.degree if prisms else min(2, case.resolution.degree)
     for d in thickness:
         shell_data = {**data,
                       "shell": {"inner": _offset_wall(surf, -d / 2, "--thickness", case.source),
                                 "outer": _offset_wall(surf, +d / 2, "--thickness", case.source),
-                                "layers": layers},
-                      "resolution": {"degree": min(2, case.resolution.degree),
+                                "layers": layers, "cells": cells,
+                                **({"radial_degree": max(4, degree)} if prisms else {})},
+                      "resolution": {"degree": degree,
                                      "subdivisions": subdivisions if subdivisions is not None
                                      else (case.resolution.subdivisions or 2)},
                       "modes": {**data.get("modes", {}), "count": count}}
@@ -148,7 +161,10 @@ def add_command(subparsers):
     p = subparsers.add_parser("thin-shell", help="compare a surface case with shells of finite thickness")
     p.add_argument("case", help="TOML case file with a [surface] table")
     p.add_argument("--thickness", required=True, help="comma-separated wall separations d, in units.length")
-    p.add_argument("--layers", type=int, default=6, help="radial element layers across each shell")
+    p.add_argument("--layers", type=int, default=None, help="radial element layers across each shell "
+                   "(default 1 for prisms, 6 for tetrahedra)")
+    p.add_argument("--cells", choices=["prisms", "tetrahedra"], default="prisms",
+                   help="shell cells: layered prisms with exact walls (default) or curved P2 tetrahedra")
     p.set_defaults(func=_cmd)
 
 
@@ -160,6 +176,6 @@ def _cmd(args) -> int:
         values = [float(v) for v in args.thickness.split(",") if v.strip()]
     except ValueError:
         raise CaseError(f"value {args.thickness!r}: give comma-separated numbers", args.case, "--thickness") from None
-    result = thin_shell_comparison(case, values, layers=args.layers)
+    result = thin_shell_comparison(case, values, layers=args.layers, cells=args.cells)
     print(result.table())
     return 0
