@@ -148,10 +148,10 @@ def _median(values):
 
 def target(args) -> int:
     points = [
-        {"level": 3, "degree": 4, "radial_degree": 8, "layers": 1},             # separable, the 1e-6 point
-        {"level": 2, "degree": 4, "radial_degree": 8, "layers": 1},             # separable, one level coarser
-        {"level": 3, "degree": 4, "radial_degree": 8, "layers": 1, "method": "block"},  # same prisms, assembled
-        {"cells": "tetrahedra", "level": 3, "degree": 2, "layers": 4},          # baseline: P2 tetrahedra
+        {"name": "prisms-separable", "level": 3, "degree": 4, "radial_degree": 8, "layers": 1},  # the 1e-6 point
+        {"name": "prisms-separable-coarse", "level": 2, "degree": 4, "radial_degree": 8, "layers": 1},
+        {"name": "prisms-assembled", "level": 3, "degree": 4, "radial_degree": 8, "layers": 1, "method": "block"},
+        {"name": "tetra-baseline", "cells": "tetrahedra", "level": 3, "degree": 2, "layers": 4},  # P2 tetrahedra
     ]
     rows = []
     for rep in range(args.repeat):
@@ -164,19 +164,21 @@ def target(args) -> int:
             print(_fmt(row), flush=True)
     summary = []
     for point in points:
-        same = [r for r in rows if all(r.get(k) == v for k, v in point.items()) and "failed" not in r]
+        same = [r for r in rows if r.get("name") == point["name"] and "failed" not in r]
         if same:
             summary.append({**point, "free": same[0]["free"], "error": same[0]["error"],
                             "median_wall": _median([r["wall"] for r in same]),
                             "median_solve": _median([r["solve"] for r in same]),
                             "walls": [round(r["wall"], 2) for r in same],
                             "peak_gib": max(r["peak_gib"] for r in same)})
-    base = next((s for s in summary if s.get("cells") == "tetrahedra"), None)
+    base = next((s for s in summary if s["name"] == "tetra-baseline"), None)
     for s in summary:
         if base:
             s["wall_ratio_to_tetra_baseline"] = s["median_wall"] / base["median_wall"]
             s["error_ratio_to_tetra_baseline"] = s["error"] / base["error"]
-        print(f"{json.dumps({k: (round(v, 4) if isinstance(v, float) else v) for k, v in s.items()})}")
+        print(f"{s['name']:<24} {s['free']:>7} free  error {s['error']:.2e}  median wall {s['median_wall']:.2f} s "
+              f"{s['walls']}  peak {s['peak_gib']:.2f} GiB"
+              + (f"  wall / baseline {s['wall_ratio_to_tetra_baseline']:.3f}" if base else ""))
     print(f"wrote {_write('target', {'rows': rows, 'summary': summary, 'cpus': os.cpu_count()})}")
     return 0
 

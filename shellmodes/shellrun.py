@@ -271,7 +271,7 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
                                 "surface_modes": found.timings["surface_modes"]}, method="separable")
     l = np.rint((np.sqrt(1.0 + 4.0 * np.maximum(found.surface_lam, 0.0)) - 1.0) / 2.0).astype(int)
     volume = float(np.ones(disc.n_surface) @ (Ms @ np.ones(disc.n_surface))) * float(np.sum(C))
-    return pairs, messages, found.radial_index + 1, l, volume
+    return pairs, messages, found.radial_index + 1, l, volume, disc.n_surface * len(radial_free)
 
 
 def run_shell(case: Case):
@@ -388,7 +388,8 @@ def _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_st
         lower = min(lower, float(np.min(potential(np.linalg.norm(disc.nodes[::disc.n_surface], axis=1)))))
     scale = 1.0 / float(np.max(disc.wall_values[-1])) ** 2
     t0 = time.perf_counter()
-    pairs, warn_text, n, l, volume = _solve_separable(case, disc, inverse_mass, offsets, lower, scale, potential)
+    pairs, warn_text, n, l, volume, nfree = _solve_separable(case, disc, inverse_mass, offsets, lower, scale,
+                                                             potential)
     lam = pairs.lam
     energies = lam * e0 if e0 is not None else lam.copy()
     multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, scale, mode_l=l)
@@ -400,5 +401,5 @@ def _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_st
                               "the modes exactly")}
     timings = {"mesh": t_mesh, "assembly": 0.0, "eigensolve": time.perf_counter() - t0}
     return _package(case, disc, pairs, e0, origin, multiplets, pairs.vectors, names, inverse_mass, offsets,
-                    _dirichlet_walls(case), disc.ndofs, volume, True, solver_path,
+                    _dirichlet_walls(case), nfree, volume, True, solver_path,
                     "(n, l) exact: radial index and the surface mode's l", timings, t_start, warn_text, columns)

@@ -194,9 +194,33 @@ def hard_rim_cap(case, spectrum):
     assert spectrum.multiplets[1].size == 2  # the m = +-1 pair
     assert spectrum.multiplets[1].eigenvalue == pytest.approx(nu1 * (nu1 + 1), rel=3e-5)
 
+def fine_shell_prisms(case, spectrum):
+    # 50 modes against the roots of j_l(ka) y_l(kb) - j_l(kb) y_l(ka) = 0 (scipy.special), each (2l+1)-fold
+    from shellmodes.references import shell_dirichlet
+
+    exact = np.sort([float(k) ** 2 for l in range(10) for k in shell_dirichlet(l, 2, 1.0, 2.0)
+                     for _ in range(2 * l + 1)])[:50]
+    assert np.max(np.abs(spectrum.eigenvalues[:50] - exact) / exact) < 1e-6
+    assert spectrum.info["solver"]["method"] == "separable"
+
+
+def bubble_trap(case, spectrum):
+    # l = 0 in a radial harmonic trap with far walls is the 1-D oscillator: E = h f / 2 with f = 500 Hz,
+    # since 1074.80 Hz/um^2 = (1/2) m (2 pi 500 Hz)^2 / h for m = 86.909 amu (scipy.constants CODATA)
+    m = 86.909 * constants.atomic_mass
+    coefficient = 0.5 * m * (2 * np.pi * 500.0) ** 2 / constants.h * 1e-12
+    assert coefficient == pytest.approx(1074.80, rel=1e-6)
+    assert spectrum.energies[0] == pytest.approx(250.0, rel=2e-6)
+    # the rotational ladder: hbar^2 l(l+1) / (2 m R^2) at R = 20 um to first order, in Hz
+    rotor = constants.hbar**2 / (2 * m * (20e-6) ** 2) / constants.h
+    first = spectrum.multiplets[1].energy - spectrum.multiplets[0].energy
+    assert first == pytest.approx(2 * rotor, rel=2e-3)
+
+
 EXACT = {"unit-sphere.toml": unit_sphere, "rigid-rotor.toml": rigid_rotor,
          "squashed-nanoshell.toml": squashed_nanoshell, "torus-ring.toml": torus_ring,
-         "hard-rim-cap.toml": hard_rim_cap}
+         "hard-rim-cap.toml": hard_rim_cap, "fine-shell-prisms.toml": fine_shell_prisms,
+         "bubble-trap.toml": bubble_trap}
 
 
 def test_every_exact_check_names_a_case_file():
