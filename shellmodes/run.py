@@ -157,10 +157,12 @@ def _export_cells(surface):
     return [("triangle", cells.transpose(2, 1, 0).reshape(-1, 3))]
 
 
-def solve_case_modes(case: Case, K, M, lower_bound: float, scale: float, e0):
+def solve_case_modes(case: Case, K, M, lower_bound: float, scale: float, e0, **solver_options):
     """The lowest modes of an assembled case (count or energy window), warnings collected.
 
-    Returns ``(pairs, warning_messages)``; warnings are re-issued to the caller.
+    ``solver_options`` go to :func:`~shellmodes.solve.lowest_modes` (a LOBPCG
+    preconditioner and start vectors).  Returns ``(pairs, warning_messages)``;
+    warnings are re-issued to the caller.
     """
     modes = case.modes
     below = None if modes.below is None else (modes.below / e0 if e0 is not None else modes.below)
@@ -171,7 +173,7 @@ def solve_case_modes(case: Case, K, M, lower_bound: float, scale: float, e0):
         try:
             pairs = lowest_modes(K, M, count=modes.count, below=below, lower_bound=lower_bound, scale=scale,
                                  backend=modes.backend, multiplet_tolerance=modes.multiplet_tolerance,
-                                 residual_limit=modes.residual_limit, method=modes.method)
+                                 residual_limit=modes.residual_limit, method=modes.method, **solver_options)
         except ValueError as exc:
             raise CaseError(str(exc), case.source, "modes.backend") from None
         except ShellmodesError as exc:

@@ -274,6 +274,49 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
     return pairs, messages, found.radial_index + 1, l, volume, disc.n_surface * len(radial_free)
 
 
+#: free unknowns from which deformed prism shells use LOBPCG with the spherical preconditioner
+#: instead of factorizing K - shift M: high-order prisms fill in badly (P4 x Q8, 71,694 unknowns:
+#: 151 s with CHOLMOD shift-invert on this machine)
+PRISM_ITERATIVE_FROM = 15_000
+
+
+def _spherical_start(case, disc, inverse_mass, offsets, shift, scale, dirichlet):
+    """Preconditioner and start vectors for a deformed prism shell from its mean-radius spherical shell."""
+    from threadpoolctl import threadpool_limits
+
+    from .volume.prisms import SphericalPreconditioner, separable_modes, spherical_reference
+
+    Ks, Ms, A, B, C = spherical_reference(disc, inverse_mass, offsets)
+    fixed = {0} if "inner" in dirichlet else set()
+    fixed |= {disc.n_radial - 1} if "outer" in dirichlet else set()
+    radial_free = np.array([r for r in range(disc.n_radial) if r not in fixed])
+    with threadpool_limits(limits=1):
+        precondition = SphericalPreconditioner(Ks, Ms, A, B, C, radial_free, shift, backend=case.modes.backend)
+        count = case.modes.count or 40
+        reference = separable_modes(Ks, Ms, A, B, C, radial_free, count=int(1.3 * count) + 4,
+                                    multiplet_tolerance=case.modes.multiplet_tolerance, scale=abs(shift))
+    start = reference.vectors.reshape(disc.n_surface, disc.n_radial, -1)[:, radial_free, :]
+    l = np.rint((np.sqrt(1.0 + 4.0 * np.maximum(reference.surface_lam, 0.0)) - 1.0) / 2.0).astype(int)
+    return {"preconditioner": precondition, "start": start.reshape(disc.n_surface * len(radial_free), -1),
+            "reference": (reference.radial_index + 1, l)}
+
+
+def _reference_labels(reference, vectors, M, start):
+    """Per mode the (n, l) of the reference multiplet holding most of its weight, and that weight.
+
+    Weights are squared M-overlaps with the reference states, as fractions of the mode's total
+    over the reference set (the reference states are orthonormal in their own mass matrix).
+    """
+    n_ref, l_ref = reference
+    overlap = (vectors.T @ (M @ start)) ** 2
+    overlap /= np.maximum(overlap.sum(axis=1, keepdims=True), np.finfo(float).tiny)
+    keys = sorted(set(zip(n_ref.tolist(), l_ref.tolist())))
+    weights = np.column_stack([overlap[:, (n_ref == a) & (l_ref == b)].sum(axis=1) for a, b in keys])
+    best = np.argmax(weights, axis=1)
+    return (np.array([keys[k][0] for k in best]), np.array([keys[k][1] for k in best]),
+            weights[np.arange(len(best)), best])
+
+
 def run_shell(case: Case):
     """Solve a shell or ball case and return its :class:`~shellmodes.spectrum.Spectrum`."""
     from .volume import assemble_volume, free_dofs, restricted
@@ -320,28 +363,44 @@ def run_shell(case: Case):
         lower = min(lower, float(np.min(function(*disc.nodes.T))))
     outer_radius = float(np.max(np.linalg.norm(disc.nodes, axis=1)))
     scale = 1.0 / outer_radius**2
-    path, estimate, reason = _choose_path(case, Kf, disc.nodes[free])
+    options = {}
+    large = case.modes.method == "auto" and len(free) >= PRISM_ITERATIVE_FROM
+    if prisms and (case.modes.method == "lobpcg" or large):
+        path, estimate = "lobpcg-spherical", None
+        reason = (f"deformed prisms, {len(free)} unknowns: LOBPCG preconditioned by the exact inverse of the "
+                  "mean-radius spherical shell (fast diagonalisation), started from its modes")
+        options = _spherical_start(case, disc, inverse_mass, offsets, lower - scale, scale, dirichlet)
+        case = case.model_copy(update={"modes": case.modes.model_copy(update={"method": "lobpcg"})})
+    else:
+        path, estimate, reason = _choose_path(case, Kf, disc.nodes[free])
     if path == "lobpcg-amg" and case.modes.method == "auto":
         case = case.model_copy(update={"modes": case.modes.model_copy(update={"method": "lobpcg"})})
-    pairs, warn_text = solve_case_modes(case, Kf, Mf, lower, scale, e0)
+    pairs, warn_text = solve_case_modes(case, Kf, Mf, lower, scale, e0,
+                                        **{k: v for k, v in options.items() if k in ("preconditioner", "start")})
     lam = pairs.lam
     vectors = np.zeros((disc.ndofs, len(lam)))
     vectors[free] = pairs.vectors
     energies = lam * e0 if e0 is not None else lam.copy()
     symmetric = _spherical(case)
-    labels = _labels(case, disc, vectors, M, lam)
-    multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, scale,
-                                  mode_l=None if labels is None else labels.l)
+    columns = {}
+    if "reference" in options:  # parent (n, l): the spherical reference states each mode overlaps most
+        n, l, weight = _reference_labels(options["reference"], pairs.vectors, Mf, options["start"])
+        mode_l = l
+        columns = {"n": [int(v) for v in n], "dominant_l": [int(v) for v in l], "l_weight": [float(v) for v in weight]}
+        label_text = "parent (n, l) of the mean-radius spherical shell, by overlap (deformed)"
+    else:
+        labels = _labels(case, disc, vectors, M, lam)
+        mode_l = None if labels is None else labels.l
+        if labels is not None:
+            columns = {"n": [int(v) for v in labels.n], "dominant_l": [int(v) for v in labels.l],
+                       "l_weight": [float(labels.content[i, labels.l[i]]) for i in range(len(lam))]}
+        label_text = None if labels is None else ("(n, l) from angular content"
+                                                  + ("" if symmetric else " (parent labels, deformed)"))
+    multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, scale, mode_l=mode_l)
     volume = float(np.ones(disc.ndofs) @ (M @ np.ones(disc.ndofs)))
     timings = {"mesh": t_mesh, "assembly": t_assembly, "eigensolve": pairs.timings["eigensolve"]}
-    columns = {}
-    if labels is not None:
-        columns = {"n": [int(v) for v in labels.n], "dominant_l": [int(v) for v in labels.l],
-                   "l_weight": [float(labels.content[i, labels.l[i]]) for i in range(len(lam))]}
     solver_path = {"path": path, "reason": reason,
                    "estimated_factor_bytes": None if estimate is None else int(estimate.bytes)}
-    label_text = None if labels is None else ("(n, l) from angular content"
-                                              + ("" if symmetric else " (parent labels, deformed)"))
     return _package(case, disc, pairs, e0, origin, multiplets, vectors, names, inverse_mass, offsets, dirichlet,
                     len(free), volume, symmetric, solver_path, label_text, timings, t_start, warn_text, columns)
 

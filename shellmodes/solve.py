@@ -114,7 +114,8 @@ def _shift_invert(K, M, k, sigma, factorize, v0):
 
 def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, lower_bound: float = 0.0,
                  scale: float = 1.0, backend: str = "auto", multiplet_tolerance: float = 1e-4,
-                 residual_limit: float = 1e-6, method: str = "auto") -> Eigenpairs:
+                 residual_limit: float = 1e-6, method: str = "auto", preconditioner=None,
+                 start=None) -> Eigenpairs:
     """Lowest ``count`` eigenpairs of K u = lam M u (or all with lam < ``below``).
 
     Parameters
@@ -140,6 +141,10 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
         ``"lanczos"`` (ARPACK), ``"block"`` (:mod:`shellmodes.eigen_block`) or
         ``"auto"``: block from :data:`BLOCK_THRESHOLD` degrees of freedom on.
         Problems below :data:`DENSE_LIMIT` are solved densely either way.
+    preconditioner, start
+        ``method = "lobpcg"`` only: a preconditioner approximating
+        ``(K - shift M)^-1`` instead of AMG, and start vectors (see
+        :func:`shellmodes.backends.lobpcg_amg.lobpcg_lowest`).
 
     Returns
     -------
@@ -168,8 +173,9 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     K = sp.csr_matrix(K)
     M = sp.csr_matrix(M)
     sigma = float(lower_bound - scale)
-    if method == "lobpcg":  # no factorization: LOBPCG preconditioned by algebraic multigrid
-        name, factorize = ("amg", None) if n > DENSE_LIMIT else ("dense", None)
+    if method == "lobpcg":  # no factorization: LOBPCG preconditioned by algebraic multigrid (or as given)
+        name = "amg" if preconditioner is None else getattr(preconditioner, "name", "given")
+        name, factorize = (name, None) if n > DENSE_LIMIT else ("dense", None)
     else:
         name, factorize = get_backend(backend) if n > DENSE_LIMIT else ("dense", None)
     if method == "auto":
@@ -197,10 +203,10 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
         elif method == "lobpcg":
             from .backends.lobpcg_amg import lobpcg_lowest
 
-            lam, U = lobpcg_lowest(K, M, k, shift=sigma, tol=1e-9)
+            lam, U = lobpcg_lowest(K, M, k, shift=sigma, tol=1e-9, preconditioner=preconditioner, start=start)
             order = np.argsort(lam)
             lam, U = lam[order], U[:, order]
-            name_used, method_used = "amg", "lobpcg"
+            name_used, method_used = name, "lobpcg"
         else:
             lam, U = _shift_invert(K, M, k, sigma, factorize, v0)
             name_used, method_used = name, "lanczos"

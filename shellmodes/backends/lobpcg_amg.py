@@ -95,8 +95,8 @@ def _run_lobpcg(K, M, X, precond, tol, maxiter):
 
 
 def lobpcg_lowest(K, M, count: int, *, shift: float, tol: float = 1e-8, maxiter: int = 400,
-                  rel_gap: float = 1e-2, seed: int = 20261202):
-    """Lowest eigenpairs of K u = lam M u by LOBPCG with an AMG preconditioner.
+                  rel_gap: float = 1e-2, seed: int = 20261202, preconditioner=None, start=None):
+    """Lowest eigenpairs of K u = lam M u by LOBPCG with an AMG (or a given) preconditioner.
 
     Parameters
     ----------
@@ -116,6 +116,12 @@ def lobpcg_lowest(K, M, count: int, *, shift: float, tol: float = 1e-8, maxiter:
         less than this (1 % by default) stay whole in the block.
     seed
         Seed of the random start block (results are reproducible).
+    preconditioner
+        A function or LinearOperator approximating ``(K - shift M)^-1`` on
+        blocks; by default the AMG V-cycle.
+    start
+        Optional (n, j) start vectors (e.g. the modes of a nearby separable
+        problem); random columns fill the block beyond them.
 
     Returns
     -------
@@ -133,11 +139,18 @@ def lobpcg_lowest(K, M, count: int, *, shift: float, tol: float = 1e-8, maxiter:
     n = K.shape[0]
     if count < 1 or 5 * (count + 8) > n:
         raise SolverError(f"LOBPCG needs 1 <= count and a block well below the size {n}; got count={count}")
-    ml = _hierarchy(K - shift * M)
-    precond = ml.aspreconditioner(cycle="V")
+    if preconditioner is None:
+        precond = _hierarchy(K - shift * M).aspreconditioner(cycle="V")
+    elif isinstance(preconditioner, sla.LinearOperator):
+        precond = preconditioner
+    else:
+        precond = sla.LinearOperator((n, n), matvec=preconditioner, matmat=preconditioner, dtype=float)
     rng = np.random.default_rng(seed)
     pad = max(4, int(np.ceil(0.25 * count)))
     X = rng.standard_normal((n, count + pad))
+    if start is not None:
+        start = np.asarray(start, dtype=float)[:, :count + pad]
+        X[:, :start.shape[1]] = start
     while True:
         # loose pass: only to see where the gaps are
         theta, X = _run_lobpcg(K, M, X, precond, tol=1e-3, maxiter=40)
