@@ -314,10 +314,25 @@ def _start_subdivisions(case: Case, shape) -> tuple[int, str]:
     return subdivision_level(case, shape), key
 
 
-def _at_subdivisions(case: Case, subdivisions: int) -> Case:
+def _at_subdivisions(case: Case, subdivisions: int, start: int | None = None) -> Case:
+    """The case at ``subdivisions``; a shell's radial layers double with each level above ``start``."""
     data = case.model_dump(mode="json")
     data["resolution"] = {**data["resolution"], "subdivisions": subdivisions, "edge_length": None}
+    if data.get("shell") is not None and start is not None and data["shell"].get("file") is None:
+        factor = 2 ** (subdivisions - start)
+        layers = data["shell"]["layers"]
+        data["shell"]["layers"] = layers * factor if isinstance(layers, int) else [n * factor for n in layers]
     return case_from_dict(data, case.source)
+
+
+def _shell_orders(case: Case):
+    """(expected order, range) for a shell: tetrahedra as isoparametric elements of their degree;
+    prisms as the lower of the triangle and radial degrees on walls interpolated at the geometry degree."""
+    res, shell = case.resolution, case.shell
+    if shell.cells == "prisms":
+        k = min(res.degree, shell.radial_degree or res.degree)
+        return expected_order(k, res.geometry_degree, True), order_range(k, res.geometry_degree, True)
+    return expected_order(res.degree, None, True), order_range(res.degree, None, True)
 
 
 def _estimate(lam, h, p_expected, bounds, window, scale):
@@ -400,17 +415,28 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
     if not isinstance(max_subdivisions, int) or not 0 <= max_subdivisions <= SCHEMA_MAX_SUBDIVISIONS:
         raise CaseError(f"value {max_subdivisions!r}: allowed 0..{SCHEMA_MAX_SUBDIVISIONS}", source,
                         "max_subdivisions")
-    shape = build_shape(case)
-    s0, key = _start_subdivisions(case, shape)
+    if case.shell is not None:
+        from .shellrun import shell_level
+
+        shape = None
+        s0 = shell_level(case)
+        key = "resolution.edge_length" if case.resolution.edge_length is not None else "resolution.subdivisions"
+        max_subdivisions = min(max_subdivisions, 8 if case.shell.cells == "prisms" else 7)
+    else:
+        shape = build_shape(case)
+        s0, key = _start_subdivisions(case, shape)
     if s0 + refinements - 1 > max_subdivisions:
         given = case.resolution.edge_length if key == "resolution.edge_length" else s0
         raise CaseError(f"value {given!r}: {refinements} refinements from subdivisions {s0} need "
                         f"{s0 + refinements - 1}, more than the allowed {max_subdivisions}; start coarser or "
                         "ask for fewer refinements", source, key)
     e0, _ = energy_scale(case, shape)
-    exact = not (shape.name == "mesh" and shape.snap_shape is None)
-    p_expected = expected_order(case.resolution.degree, case.resolution.geometry_degree, exact)
-    bounds = order_range(case.resolution.degree, case.resolution.geometry_degree, exact)
+    if shape is None:
+        p_expected, bounds = _shell_orders(case)
+    else:
+        exact = not (shape.name == "mesh" and shape.snap_shape is None)
+        p_expected = expected_order(case.resolution.degree, case.resolution.geometry_degree, exact)
+        bounds = order_range(case.resolution.degree, case.resolution.geometry_degree, exact)
     done: list[Refinement] = []
     boundaries, labels = [], []
     notes: list[str] = []
@@ -420,7 +446,7 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
     s = s0
     while True:
         t0 = time.perf_counter()
-        spectrum = run_case(_at_subdivisions(case, s))
+        spectrum = run_case(_at_subdivisions(case, s, s0))
         mesh = spectrum.info["mesh"]
         done.append(Refinement(subdivisions=s, h=float(mesh["h"]), dofs=int(mesh["dofs"]),
                                eigenvalues=np.array(spectrum.eigenvalues, dtype=float),

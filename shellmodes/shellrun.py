@@ -21,7 +21,7 @@ from .harmonics import angles, real_sph_harm
 from .run import compiled_potential, energy_scale, finish_spectrum, solve_case_modes
 from .spectrum import build_multiplets
 
-__all__ = ["run_shell", "wall_function", "build_volume", "radial_potential"]
+__all__ = ["run_shell", "wall_function", "build_volume", "radial_potential", "shell_level"]
 
 
 def wall_function(wall: Wall):
@@ -55,6 +55,24 @@ def _spherical(case: Case) -> bool:
     return all(w.shape == "sphere" or (w.shape == "star" and not w.deformation) for w in walls)
 
 
+def shell_level(case: Case) -> int:
+    """Icosphere subdivisions of a shell's directions (``resolution.subdivisions`` or from ``edge_length``)."""
+    shell, res = case.shell, case.resolution
+    level = res.subdivisions if res.subdivisions is not None else 2
+    most = 8 if shell.cells == "prisms" else 7
+    if res.edge_length is not None and shell.outer is not None:
+        outer = float(np.max(wall_function(shell.outer)(np.eye(3))))
+        level = max(0, int(np.ceil(np.log2(1.05 * outer / res.edge_length))))
+        if level > most:
+            raise CaseError(f"value {res.edge_length!r}: needs {level} subdivisions of the directions, at most "
+                            f"{most} are allowed for shell {shell.cells}; use a larger edge_length", case.source,
+                            "resolution.edge_length")
+    if level > most:
+        raise CaseError(f"value {level!r}: shell {shell.cells} allow at most {most} subdivisions", case.source,
+                        "resolution.subdivisions")
+    return level
+
+
 def build_volume(case: Case):
     """The curved volume discretisation a shell case describes."""
     from .volume import discretise, read_volume_mesh, shell_mesh
@@ -73,18 +91,7 @@ def build_volume(case: Case):
     walls = [shell.inner, *shell.interfaces, shell.outer]
     functions = [None if w is None else wall_function(w) for w in walls]
     prisms = shell.cells == "prisms"
-    level = res.subdivisions if res.subdivisions is not None else 2
-    most = 8 if prisms else 7
-    if res.edge_length is not None:
-        outer = float(np.max(functions[-1](np.eye(3))))
-        level = max(0, int(np.ceil(np.log2(1.05 * outer / res.edge_length))))
-        if level > most:
-            raise CaseError(f"value {res.edge_length!r}: needs {level} subdivisions of the directions, at most "
-                            f"{most} are allowed for shell {shell.cells}; use a larger edge_length", case.source,
-                            "resolution.edge_length")
-    if level > most:
-        raise CaseError(f"value {level!r}: shell {shell.cells} allow at most {most} subdivisions", case.source,
-                        "resolution.subdivisions")
+    level = shell_level(case)
     layers = shell.layers if isinstance(shell.layers, int) else list(shell.layers)
     try:
         if prisms:
