@@ -21,7 +21,8 @@ from .harmonics import angles, real_sph_harm
 from .run import compiled_potential, energy_scale, finish_spectrum, solve_case_modes
 from .spectrum import build_multiplets
 
-__all__ = ["run_shell", "wall_function", "build_volume", "radial_potential", "shell_level"]
+__all__ = ["run_shell", "wall_function", "build_volume", "radial_potential", "shell_level", "check_walls",
+           "shell_mass_matrix"]
 
 
 def wall_function(wall: Wall):
@@ -71,6 +72,20 @@ def shell_level(case: Case) -> int:
         raise CaseError(f"value {level!r}: shell {shell.cells} allow at most {most} subdivisions", case.source,
                         "resolution.subdivisions")
     return level
+
+
+def check_walls(case: Case) -> None:
+    """The walls' radii and ordering, checked cheaply (no mesh): what a sweep validates per step."""
+    from .volume.shellmesh import _check_walls
+
+    shell = case.shell
+    if shell.file is not None:
+        return
+    functions = [None if w is None else wall_function(w) for w in (shell.inner, *shell.interfaces, shell.outer)]
+    try:
+        _check_walls(functions, min(shell_level(case), 6))
+    except GeometryError as exc:
+        raise CaseError(str(exc), case.source, "shell") from None
 
 
 def build_volume(case: Case):
@@ -469,3 +484,20 @@ def _finish_separable(case, disc, inverse_mass, offsets, names, e0, origin, t_st
     return _package(case, disc, pairs, e0, origin, multiplets, pairs.vectors, names, inverse_mass, offsets,
                     _dirichlet_walls(case), nfree, volume, True, solver_path,
                     "(n, l) exact: radial index and the surface mode's l", timings, t_start, warn_text, columns)
+
+
+def shell_mass_matrix(case: Case):
+    """Consistent mass matrix on every dof of a shell case (what sweep tracking needs)."""
+    disc = build_volume(case)
+    if case.shell.cells == "prisms":
+        import scipy.sparse as sp
+
+        from .volume.prisms import assemble_prisms, kronecker_factors
+
+        if disc.concentric_spheres():
+            Ks, Ms, A, B, C = kronecker_factors(disc, {})
+            return sp.kron(Ms, C).tocsr()
+        return assemble_prisms(disc, {})[1].tocsr()
+    from .volume import assemble_volume
+
+    return assemble_volume(disc, {r: 1.0 for r in disc.region_ids})[1].tocsr()

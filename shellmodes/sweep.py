@@ -238,7 +238,12 @@ def plan_steps(case: Case) -> tuple[list[SweepStep], CaseError | None]:
             _set(data, path, value)
         try:
             step_case = case_from_dict(data, case.source)
-            build_shape(step_case)
+            if step_case.shell is not None:
+                from .shellrun import check_walls
+
+                check_walls(step_case)
+            else:
+                build_shape(step_case)
         except CaseError as exc:
             shown = ", ".join(f"{k} = {v:.10g}" for k, v in values)
             return steps, CaseError(f"step {index} ({shown}) is invalid: {exc.reason}; the sweep stops before "
@@ -303,8 +308,15 @@ def load_step(folder):
 
 
 def _mass_matrix(case: Case):
-    """Consistent mass matrix on every node of the case's curved surface (reassembled)."""
+    """Consistent mass matrix on every node of the case's curved surface or shell (reassembled)."""
     import skfem
+
+    if case.shell is not None:
+        from .shellrun import shell_mass_matrix
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return shell_mass_matrix(case)
 
     from .problem import mass
     from .run import discretise

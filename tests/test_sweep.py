@@ -420,3 +420,23 @@ def test_a_step_that_cannot_be_solved_is_named_and_the_others_are_kept(tmp_path)
         run_sweep(case, tmp_path)
     assert "\n" not in str(info.value)
     assert sorted(p.name for p in (tmp_path / "steps").iterdir()) == ["step-0000"]
+
+
+def test_a_shell_sweep_tracks_the_exact_band_and_stops_before_crossing_walls(tmp_path):
+    """Outer radius b of the hard-wall shell 1 < r < b on prisms: the l = 0 track follows k = pi/(b - 1)
+    (exact for l = 0: j_0 and y_0 cross product), and b = 0.9 (inside the inner wall) stops the sweep."""
+    shell = {"inner": {"shape": "sphere", "radius": 1.0}, "outer": {"shape": "sphere", "radius": 2.0},
+             "cells": "prisms", "layers": 1, "radial_degree": 6}
+    data = {"shell": shell, "resolution": {"degree": 3, "subdivisions": 1}, "modes": {"count": 4},
+            "sweep": {"parameters": [{"key": "shell.outer.radius", "values": [2.0, 2.2, 2.4]}], "workers": 1}}
+    result = run_sweep(case_from_dict(data), tmp_path / "ok")
+    ground = [r for r in result.rows if r["track"] == 0]
+    for row, b in zip(ground, (2.0, 2.2, 2.4)):
+        assert row["eigenvalue"] == pytest.approx((np.pi / (b - 1.0)) ** 2, rel=1e-4)
+    overlaps = [r["overlap"] for r in result.rows if r["overlap"] is not None]
+    assert len(overlaps) == 2 * 4 and min(overlaps) > 0.99
+    bad = {**data, "sweep": {"parameters": [{"key": "shell.outer.radius", "values": [2.0, 0.9]}], "workers": 1}}
+    with pytest.raises(SweepStopped) as info:
+        run_sweep(case_from_dict(bad), tmp_path / "bad")
+    assert "step 1" in str(info.value) and "crosses" in str(info.value)
+    assert sorted(p.name for p in (tmp_path / "bad" / "steps").iterdir()) == ["step-0000"]
