@@ -252,7 +252,8 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
     from threadpoolctl import threadpool_limits
 
     from .solve import DoubtfulResultWarning, Eigenpairs, lowest_modes
-    from .volume.prisms import kronecker_factors, separable_modes
+    from .volume.prisms import kronecker_factors
+    from .volume.separable import separable_modes
 
     modes = case.modes
     Ks, Ms, A, B, C = kronecker_factors(disc, inverse_mass, offsets, potential)
@@ -306,7 +307,7 @@ def _spherical_start(case, disc, inverse_mass, offsets, shift, scale, dirichlet)
     """Preconditioner and start vectors for a deformed prism shell from its mean-radius spherical shell."""
     from threadpoolctl import threadpool_limits
 
-    from .volume.prisms import SphericalPreconditioner, separable_modes, spherical_reference
+    from .volume.separable import SphericalPreconditioner, separable_modes, spherical_reference
 
     Ks, Ms, A, B, C = spherical_reference(disc, inverse_mass, offsets)
     fixed = {0} if "inner" in dirichlet else set()

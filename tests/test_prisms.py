@@ -25,8 +25,8 @@ from shellmodes.volume.prisms import (
     kronecker_factors,
     lobatto_nodes,
     prism_shell,
-    separable_modes,
 )
+from shellmodes.volume.separable import separable_modes
 
 
 def exact_shell(count, a=1.0, b=2.0, reference=shell_dirichlet, l_max=10, radial=3):
@@ -286,7 +286,7 @@ def test_deformed_prisms_by_lobpcg_with_the_spherical_preconditioner_match_shift
 
 
 def test_spherical_preconditioner_is_the_exact_inverse_on_a_sphere():
-    from shellmodes.volume.prisms import SphericalPreconditioner
+    from shellmodes.volume.separable import SphericalPreconditioner
 
     disc = prism_shell([1.0, 2.0], 1, 2, degree=2, radial_degree=2)
     K, M = assemble_prisms(disc, {0: 1.0})

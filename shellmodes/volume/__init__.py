@@ -5,7 +5,10 @@ tetrahedra between curved walls, :func:`discretise` (or :func:`read_volume_mesh`
 makes a curved discretisation of degree 1 or 2, :func:`assemble_volume` gives
 K and M in lambda units, :func:`free_dofs` and :func:`restricted` impose
 Dirichlet walls, :func:`radial_angular_labels` labels modes (n, l), and
-:func:`export_cells` gives VTU cells.
+:func:`export_cells` gives VTU cells.  Layered curved prisms (triangle degree 1-4 times
+a radial degree) live in :mod:`~shellmodes.volume.prisms`; the separable solve
+and the spherical preconditioner for deformed prism shells in
+:mod:`~shellmodes.volume.separable`.
 """
 
 from .assemble import assemble_volume, free_dofs, restricted

@@ -15,32 +15,28 @@ The trial space is the tensor product of the Lagrange triangle of degree k
 nodes, continuous across layers and media.  Degrees of freedom are numbered
 ``surface_dof * n_radial + radial_dof``, so for concentric spherical walls the
 matrices are exactly Kronecker sums (derivation in :func:`kronecker_factors`)
-and the eigenproblem separates (:func:`separable_modes`).
+and the eigenproblem separates (:mod:`shellmodes.volume.separable`).
 
 Prisms need an inner wall; a ball's centre is left to the tetrahedra.
 """
 
 from __future__ import annotations
 
-import dataclasses
-import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.linalg as sla
 import scipy.sparse as sp
 import skfem
 from skfem.quadrature import get_quadrature
 from skfem.refdom import RefTri
 
-from ..errors import GeometryError, SolverError
+from ..errors import GeometryError
 from ..shapes.reference import icosphere
 from ..surface import lagrange_element, lattice_cells
 from .shellmesh import _as_wall, _check_walls
 
-__all__ = ["PrismShell", "prism_shell", "assemble_prisms", "kronecker_factors", "separable_modes",
-           "lobatto_nodes", "export_prisms", "spherical_reference", "SphericalPreconditioner"]
+__all__ = ["PrismShell", "prism_shell", "assemble_prisms", "kronecker_factors", "lobatto_nodes", "export_prisms"]
 
 
 def lobatto_nodes(q: int) -> np.ndarray:
@@ -72,7 +68,7 @@ def _lagrange_1d(nodes: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return V, D
 
 
-@dataclass(eq=False)
+@dataclass(frozen=True, eq=False)
 class PrismShell:
     """A layered prism discretisation of a shell between curved walls.
 
@@ -232,16 +228,15 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
             elements.append(np.arange(start, start + q + 1))
             region.append(i)
     tau = np.array(tau)
-    disc = PrismShell(mesh=mesh, directions=directions, surface_dofs=sdofs.element_dofs,
+    return PrismShell(mesh=mesh, directions=directions, surface_dofs=sdofs.element_dofs,
                       surface_nodes=surface_nodes, tau=tau, radial_elements=np.array(elements),
                       layer_region=np.array(region), walls=funcs, wall_values=wall_values,
-                      geometry_dofs=gdofs.element_dofs, nodes=np.zeros((0, 3)), degree=degree,
+                      geometry_dofs=gdofs.element_dofs, nodes=_dof_positions(surface_nodes, tau, funcs),
+                      degree=degree,
                       radial_degree=q, geometry_degree=g,
                       quadrature_order=2 * max(degree, g) + 2 if quadrature_order is None else int(quadrature_order),
                       h=float(np.max(np.linalg.norm(directions[triangles] - directions[np.roll(triangles, 1, 1)],
                                                     axis=2))) * float(np.max(wall_values[-1])))
-    disc.nodes = _dof_positions(disc, funcs)
-    return disc
 
 
 def _projected_nodes(directions, t, doflocs, element_dofs, n):
@@ -253,11 +248,11 @@ def _projected_nodes(directions, t, doflocs, element_dofs, n):
     return out / np.linalg.norm(out, axis=1)[:, None]
 
 
-def _dof_positions(disc: PrismShell, funcs) -> np.ndarray:
-    s = disc.surface_nodes
+def _dof_positions(s: np.ndarray, tau: np.ndarray, funcs) -> np.ndarray:
+    """(Ns * Nr, 3) positions: each surface direction s times the radius at each radial coordinate tau."""
     radii = np.array([np.asarray(f(s), dtype=float).reshape(-1) for f in funcs])  # (Nwall, Ns)
-    medium = np.minimum(np.floor(disc.tau).astype(int), len(funcs) - 2)
-    frac = disc.tau - medium
+    medium = np.minimum(np.floor(tau).astype(int), len(funcs) - 2)
+    frac = tau - medium
     rho = radii[medium].T * (1.0 - frac) + radii[medium + 1].T * frac  # (Ns, Nr)
     return (rho[:, :, None] * s[:, None, :]).reshape(-1, 3)
 
@@ -467,145 +462,6 @@ def kronecker_factors(disc: PrismShell, inverse_mass: dict, offsets: dict | None
         B[block] += kappa * np.einsum("aq,q,bq->ab", ref.psi, ref.wr * h, ref.psi)
         C[block] += np.einsum("aq,q,bq->ab", ref.psi, ref.wr * rho**2 * h, ref.psi)
     return Ks, Ms, A, B, C
-
-
-def spherical_reference(disc: PrismShell, inverse_mass: dict, offsets: dict | None = None):
-    """Kronecker factors of the same prisms with every wall replaced by its mean-radius sphere.
-
-    For a deformed shell this is the nearby separable problem: its modes
-    start the iteration and its inverse preconditions it
-    (:class:`SphericalPreconditioner`).
-    """
-    mean = np.repeat(disc.wall_values.mean(axis=1, keepdims=True), disc.wall_values.shape[1], axis=1)
-    return kronecker_factors(dataclasses.replace(disc, wall_values=mean), inverse_mass, offsets)
-
-
-class SphericalPreconditioner:
-    """Exact inverse of ``Ks (x) B + Ms (x) (A - shift C)`` by fast diagonalisation.
-
-    The radial pencil ``(A - shift C) w = theta B w`` (dense, ``W^T B W = I``)
-    turns the Kronecker sum into independent surface problems
-    ``(Ks + theta_j Ms) z_j = y_j``, one sparse factorization each (Lynch,
-    Rice and Thomas, Numer. Math. 6 (1964) 185).  Applied to blocks of
-    vectors on the free dofs ``surface * n_free + radial``.
-    """
-
-    name = "spherical-reference"
-
-    def __init__(self, Ks, Ms, A, B, C, radial_free, shift: float, backend: str = "auto"):
-        from ..backends import get_backend
-
-        f = np.asarray(radial_free)
-        theta, W = sla.eigh(A[np.ix_(f, f)] - shift * C[np.ix_(f, f)], B[np.ix_(f, f)])
-        if np.min(theta) <= 0:
-            raise SolverError(f"the reference radial pencil is not positive definite (theta {np.min(theta):.3g}); "
-                              "the shift must lie below the spectrum")
-        factorize = get_backend(backend)[1]
-        self.W, self.ns, self.nr = W, Ks.shape[0], len(f)
-        self.solves = [factorize((Ks + t * Ms).tocsc()) for t in theta]
-        n = self.ns * self.nr
-        self.shape = (n, n)
-
-    def __call__(self, X):
-        X = np.asarray(X, dtype=float)
-        vector = X.ndim == 1
-        X = X.reshape(self.ns, self.nr, -1)
-        Y = np.einsum("srk,rj->sjk", X, self.W)
-        Z = np.empty_like(Y)
-        for j, solve in enumerate(self.solves):
-            Z[:, j, :] = np.asarray(solve(np.ascontiguousarray(Y[:, j, :]))).reshape(self.ns, -1)
-        out = np.einsum("sjk,rj->srk", Z, self.W).reshape(self.ns * self.nr, -1)
-        return out[:, 0] if vector else out
-
-
-@dataclass
-class SeparableModes:
-    """Eigenpairs of a separable shell with their surface and radial indices."""
-
-    lam: np.ndarray
-    vectors: np.ndarray
-    residuals: np.ndarray
-    orthogonality: float
-    surface_index: np.ndarray
-    radial_index: np.ndarray
-    surface_lam: np.ndarray
-    timings: dict
-
-
-def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None = None,
-                    below: float | None = None, *, multiplet_tolerance: float = 1e-4, scale: float = 1.0,
-                    surface_solver: Callable | None = None) -> SeparableModes:
-    """Lowest modes of ``K = Ks (x) B + Ms (x) A``, ``M = Ms (x) C`` by separation.
-
-    Each surface pair ``Ks y = mu Ms y`` gives radial problems
-    ``(A + mu B) x = lam C x`` (on the ``radial_free`` dofs), and ``y (x) x``
-    is an eigenvector of the full pencil.  Because ``lam_1(mu)`` grows with
-    mu, the lowest ``count`` full modes use at most the lowest ``count``
-    surface modes; the surface set is doubled until its last
-    ``lam_1(mu)`` lies above every mode kept, so no mode is missed.
-    Residuals are those of the full Kronecker operator.
-    """
-    from ..solve import lowest_modes
-    from ..spectrum import group_multiplets
-
-    solver = surface_solver or (lambda k: lowest_modes(Ks, Ms, count=k, lower_bound=0.0, scale=1.0))
-    f = np.asarray(radial_free)
-    Af, Bf, Cf = A[np.ix_(f, f)], B[np.ix_(f, f)], C[np.ix_(f, f)]
-    t0 = time.perf_counter()
-    # the top kept multiplet is often the last surface multiplet's n = 1 level, which would force a
-    # second surface solve; asking 1.5 count + 8 at once usually settles it in one
-    want = int(1.5 * count) + 8 if count is not None else 16
-    n_full = Ks.shape[0] * len(f)
-    while True:
-        surface = solver(min(want, Ks.shape[0]))
-        mu = surface.lam
-        lam_list, si, ri, X = [], [], [], []
-        for j, m in enumerate(mu):
-            values, vectors = sla.eigh(Af + m * Bf, Cf)
-            lam_list.append(values)
-            si.append(np.full(len(values), j))
-            ri.append(np.arange(len(values)))
-            X.append(vectors)
-        lam = np.concatenate(lam_list)
-        order = np.argsort(lam, kind="stable")
-        lam, si, ri = lam[order], np.concatenate(si)[order], np.concatenate(ri)[order]
-        if below is not None:
-            last = int(np.searchsorted(lam, below)) - 1
-        else:
-            last = min(count, len(lam)) - 1
-        groups = group_multiplets(lam, multiplet_tolerance, scale)
-        keep = 0 if last < 0 else next(g for g in groups if last in g)[-1] + 1
-        ceiling = lam_list[-1][0]  # lam_1 of the last surface mode bounds every mode left out
-        complete = keep < len(lam) and (keep == 0 or lam[keep - 1] < ceiling * (1 - multiplet_tolerance))
-        if complete or len(mu) >= Ks.shape[0]:
-            break
-        want = 2 * len(mu)
-    if count is not None and keep < count and keep < n_full:
-        raise SolverError(f"only {keep} separable modes found for {count} requested")
-    lam, si, ri = lam[:keep], si[:keep], ri[:keep]
-    Y = surface.vectors
-    nr = A.shape[0]
-    vectors = np.zeros((Ks.shape[0] * nr, keep))
-    residuals = np.zeros(keep)
-    floor = scale
-    for i in range(keep):
-        x = np.zeros(nr)
-        x[f] = X[si[i]][:, ri[i]]
-        y = Y[:, si[i]]
-        Msy, Ksy = Ms @ y, Ks @ y
-        Cx = (C @ x)[f]  # rows of the fixed (Dirichlet) radial dofs are not equations
-        r = np.kron(Ksy, (B @ x)[f]) + np.kron(Msy, (A @ x)[f]) - lam[i] * np.kron(Msy, Cx)
-        residuals[i] = np.linalg.norm(r) / (max(abs(lam[i]), floor) * np.linalg.norm(Msy) * np.linalg.norm(Cx))
-        vectors[:, i] = np.kron(y, x)
-    gram_s = Y[:, si].T @ (Ms @ Y[:, si])
-    Xk = np.zeros((nr, keep))
-    for i in range(keep):
-        Xk[f, i] = X[si[i]][:, ri[i]]
-    gram_r = Xk.T @ (C @ Xk)
-    orth = float(np.max(np.abs(gram_s * gram_r - np.eye(keep)))) if keep else 0.0
-    return SeparableModes(lam=lam, vectors=vectors, residuals=residuals, orthogonality=orth, surface_index=si,
-                          radial_index=ri, surface_lam=mu[si],
-                          timings={"eigensolve": time.perf_counter() - t0, "surface_modes": len(mu)})
 
 
 def export_prisms(disc: PrismShell):
