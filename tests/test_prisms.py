@@ -311,3 +311,31 @@ def test_high_degree_prisms_reach_order_2k_on_exact_walls(degree, expected):
         hs.append(disc.h)
     order = np.log(errors[1] / errors[0]) / np.log(hs[1] / hs[0])
     assert order > expected - 0.5, order
+
+
+def test_star_walls_deformed_independently():
+    # inner r = 1 + 0.1 Y_20, outer r = 2 (1 + 0.08 Y_32): the volume against
+    # (1/3) int (R_out^3 - R_in^3) dOmega by scipy.integrate.dblquad, and the lowest levels against the
+    # independent curved P2 tetrahedra (whose error here is about 4e-4; finer prisms give 9.740084)
+    from scipy.integrate import dblquad
+
+    from shellmodes.case import case_from_dict
+    from shellmodes.harmonics import real_sph_harm
+    from shellmodes.run import run_case
+
+    walls = {"inner": {"shape": "star", "radius": 1.0, "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}]},
+             "outer": {"shape": "star", "radius": 2.0, "deformation": [{"l": 3, "m": 2, "amplitude": 0.08}]}}
+
+    def cubes(theta, phi):
+        inner = 1.0 + 0.1 * real_sph_harm(2, 0, np.array([theta]), np.array([phi]))[0]
+        outer = 2.0 * (1.0 + 0.08 * real_sph_harm(3, 2, np.array([theta]), np.array([phi]))[0])
+        return (outer**3 - inner**3) / 3.0 * np.sin(theta)
+
+    volume = dblquad(lambda theta, phi: cubes(theta, phi), 0.0, 2 * np.pi, 0.0, np.pi, epsabs=1e-12)[0]
+    base = {"resolution": {"degree": 3, "subdivisions": 2}, "modes": {"count": 4}, "output": {"vtu": False}}
+    prism = run_case(case_from_dict({**base, "shell": {**walls, "cells": "prisms", "layers": 1, "radial_degree": 4}}))
+    tet = run_case(case_from_dict({"shell": {**walls, "layers": 4}, "resolution": {"degree": 2, "subdivisions": 3},
+                                   "modes": {"count": 4}, "output": {"vtu": False}}))
+    assert prism.info["mesh"]["volume"] == pytest.approx(volume, rel=2e-6)
+    np.testing.assert_allclose(prism.eigenvalues[:4], tet.eigenvalues[:4], rtol=1e-3)
+    assert prism.eigenvalues[0] == pytest.approx(9.740084, rel=5e-4)  # measured 9.741603
