@@ -286,7 +286,14 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
                         f"(mode {int(np.argmax(found.residuals))}); do not trust these modes without checking")
         warnings.warn(messages[-1], DoubtfulResultWarning, stacklevel=3)
     if len(found.lam) == 0 and below is not None:
-        messages.append(f"{case.source}: no mode lies below modes.below = {modes.below!r}")
+        # the lowest level pairs the constant surface mode (mu = 0, exactly: Ks 1 = 0) with the lowest radial one
+        import scipy.linalg as sla
+
+        f = np.ix_(radial_free, radial_free)
+        lowest = float(sla.eigh(A[f], C[f], eigvals_only=True)[0])
+        shown = lowest * e0 if e0 is not None else lowest
+        messages.append(f"{case.source}: no mode lies below modes.below = {modes.below!r}; the lowest is "
+                        f"{shown:.6g}" + ("" if case.units.energy == "1" else f" {case.units.energy}"))
         warnings.warn(messages[-1], UserWarning, stacklevel=3)
     pairs = Eigenpairs(lam=found.lam, vectors=found.vectors, residuals=found.residuals,
                        orthogonality=found.orthogonality, shift=shift, backend="separable", requested=modes.count,

@@ -339,3 +339,20 @@ def test_star_walls_deformed_independently():
     assert prism.info["mesh"]["volume"] == pytest.approx(volume, rel=2e-6)
     np.testing.assert_allclose(prism.eigenvalues[:4], tet.eigenvalues[:4], rtol=1e-3)
     assert prism.eigenvalues[0] == pytest.approx(9.740084, rel=5e-4)  # measured 9.741603
+
+
+def test_an_empty_energy_window_names_the_lowest_level():
+    # the lowest hard-wall level of 1 < r < 2 is pi^2 (l = 0, k = pi / (b - a))
+    import warnings
+
+    from shellmodes.case import case_from_dict
+    from shellmodes.run import run_case
+
+    data = _prism_case(1)
+    data["modes"] = {"below": 5.0}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        s = run_case(case_from_dict(data))
+    assert len(s.eigenvalues) == 0
+    text = next(str(w.message) for w in caught if "no mode lies below" in str(w.message))
+    assert f"the lowest is {np.pi**2:.4f}"[:22] in text
