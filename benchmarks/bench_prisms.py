@@ -92,13 +92,33 @@ def child(point: dict) -> dict:
             "peak_gib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20}
 
 
+def _factor_both(A, solves: int) -> dict:
+    """Factorization time, mean solve time and residual of CHOLMOD and of splu (default ordering) on A."""
+    import numpy as np
+
+    from shellmodes.backends import get_backend
+
+    b = np.ones(A.shape[0])
+    row = {}
+    for name in ("cholmod", "splu"):
+        t0 = time.perf_counter()
+        solve = get_backend(name)[1](A)
+        row[f"{name}_factor"] = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        for _ in range(solves):
+            x = solve(b)
+        row[f"{name}_solve"] = (time.perf_counter() - t0) / solves
+        row[f"{name}_residual"] = float(np.linalg.norm(A @ x - b) / np.linalg.norm(b))
+        del solve
+    return row
+
+
 def assembled_factor_child(payload: dict) -> dict:
     """CHOLMOD and splu (default ordering) on K - shift M of an assembled deformed prism shell."""
     import resource
 
     import numpy as np
 
-    from shellmodes.backends import get_backend
     from shellmodes.case import Wall
     from shellmodes.shellrun import wall_function
     from shellmodes.volume import restricted
@@ -112,15 +132,7 @@ def assembled_factor_child(payload: dict) -> dict:
     mask[disc.wall_dofs("inner")] = mask[disc.wall_dofs("outer")] = False
     free = np.flatnonzero(mask)
     A = (restricted(K, free) + 0.25 * restricted(M, free)).tocsc()
-    b = np.ones(A.shape[0])
-    row = {**payload, "free": int(A.shape[0]), "nnz": int(A.nnz)}
-    for name in ("cholmod", "splu"):
-        t0 = time.perf_counter()
-        solve = get_backend(name)[1](A)
-        row[f"{name}_factor"] = time.perf_counter() - t0
-        x = solve(b)
-        row[f"{name}_residual"] = float(np.linalg.norm(A @ x - b) / np.linalg.norm(b))
-        del solve
+    row = {**payload, "free": int(A.shape[0]), "nnz": int(A.nnz), **_factor_both(A, solves=1)}
     row["splu_over_cholmod_factor"] = row["splu_factor"] / row["cholmod_factor"]
     row["peak_gib"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20
     return row
@@ -130,26 +142,13 @@ def factor_child(level: int, degree: int) -> dict:
     """CHOLMOD and splu (default ordering) on the separable path's one matrix, K_s + M_s."""
     import resource
 
-    import numpy as np
-
-    from shellmodes.backends import get_backend
     from shellmodes.volume.prisms import kronecker_factors, prism_shell
 
     disc = prism_shell([1.0, 2.0], level, 1, degree=degree, radial_degree=1)
     Ks, Ms = kronecker_factors(disc, {0: 1.0})[:2]
     A = (Ks + Ms).tocsc()
-    b = np.ones(A.shape[0])
-    row = {"level": level, "degree": degree, "surface_dofs": int(A.shape[0]), "nnz": int(A.nnz)}
-    for name in ("cholmod", "splu"):
-        t0 = time.perf_counter()
-        solve = get_backend(name)[1](A)
-        row[f"{name}_factor"] = time.perf_counter() - t0
-        t0 = time.perf_counter()
-        for _ in range(20):
-            x = solve(b)
-        row[f"{name}_solve"] = (time.perf_counter() - t0) / 20
-        row[f"{name}_residual"] = float(np.linalg.norm(A @ x - b) / np.linalg.norm(b))
-        del solve
+    row = {"level": level, "degree": degree, "surface_dofs": int(A.shape[0]), "nnz": int(A.nnz),
+           **_factor_both(A, solves=20)}
     row["peak_gib"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20
     return row
 

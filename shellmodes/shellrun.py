@@ -19,7 +19,7 @@ from .case import Case, Wall
 from .errors import CaseError, GeometryError, MeshError, ShellmodesError
 from .harmonics import angles, real_sph_harm
 from .run import compiled_potential, energy_scale, finish_spectrum, solve_case_modes
-from .spectrum import build_multiplets
+from .spectrum import build_multiplets, parent_degree
 
 __all__ = ["run_shell", "wall_function", "build_volume", "radial_potential", "shell_level", "check_walls",
            "shell_mass_matrix"]
@@ -257,10 +257,7 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
 
     modes = case.modes
     Ks, Ms, A, B, C = kronecker_factors(disc, inverse_mass, offsets, potential)
-    dirichlet = _dirichlet_walls(case)
-    fixed = {0} if "inner" in dirichlet else set()
-    fixed |= {disc.n_radial - 1} if "outer" in dirichlet else set()
-    radial_free = np.array([r for r in range(disc.n_radial) if r not in fixed])
+    radial_free = disc.free_radial(_dirichlet_walls(case))
     e0 = energy_scale(case)[0]
     below = None if modes.below is None else (modes.below / e0 if e0 is not None else modes.below)
 
@@ -299,7 +296,7 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
                        orthogonality=found.orthogonality, shift=shift, backend="separable", requested=modes.count,
                        timings={"eigensolve": found.timings["eigensolve"],
                                 "surface_modes": found.timings["surface_modes"]}, method="separable")
-    l = np.rint((np.sqrt(1.0 + 4.0 * np.maximum(found.surface_lam, 0.0)) - 1.0) / 2.0).astype(int)
+    l = parent_degree(found.surface_lam)
     volume = float(np.ones(disc.n_surface) @ (Ms @ np.ones(disc.n_surface))) * float(np.sum(C))
     return pairs, messages, found.radial_index + 1, l, volume, disc.n_surface * len(radial_free)
 
@@ -317,16 +314,14 @@ def _spherical_start(case, disc, inverse_mass, offsets, shift, scale, dirichlet)
     from .volume.separable import SphericalPreconditioner, separable_modes, spherical_reference
 
     Ks, Ms, A, B, C = spherical_reference(disc, inverse_mass, offsets)
-    fixed = {0} if "inner" in dirichlet else set()
-    fixed |= {disc.n_radial - 1} if "outer" in dirichlet else set()
-    radial_free = np.array([r for r in range(disc.n_radial) if r not in fixed])
+    radial_free = disc.free_radial(dirichlet)
     with threadpool_limits(limits=1):
         precondition = SphericalPreconditioner(Ks, Ms, A, B, C, radial_free, shift, backend=case.modes.backend)
         count = case.modes.count or 40
         reference = separable_modes(Ks, Ms, A, B, C, radial_free, count=int(1.3 * count) + 4,
                                     multiplet_tolerance=case.modes.multiplet_tolerance, scale=abs(shift))
     start = reference.vectors.reshape(disc.n_surface, disc.n_radial, -1)[:, radial_free, :]
-    l = np.rint((np.sqrt(1.0 + 4.0 * np.maximum(reference.surface_lam, 0.0)) - 1.0) / 2.0).astype(int)
+    l = parent_degree(reference.surface_lam)
     return {"preconditioner": precondition, "start": start.reshape(disc.n_surface * len(radial_free), -1),
             "reference": (reference.radial_index + 1, l)}
 
@@ -379,10 +374,7 @@ def run_shell(case: Case):
             K, M = assemble_prisms(disc, inverse_mass, offsets, function)
         except GeometryError as exc:
             raise CaseError(str(exc), case.source, "shell") from None
-        mask = np.ones(disc.ndofs, dtype=bool)
-        for wall in dirichlet:
-            mask[disc.wall_dofs(wall)] = False
-        free = np.flatnonzero(mask)
+        free = disc.free_dofs(dirichlet)
     else:
         K, M = assemble_volume(disc, inverse_mass, offsets, function)
         free = free_dofs(disc, dirichlet) if dirichlet else np.arange(disc.ndofs)

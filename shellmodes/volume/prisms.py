@@ -148,6 +148,16 @@ class PrismShell:
         r = 0 if name == "inner" else self.n_radial - 1
         return np.arange(self.n_surface) * self.n_radial + r
 
+    def free_radial(self, dirichlet) -> np.ndarray:
+        """Radial dof indices left free when the walls named in ``dirichlet`` are held at zero."""
+        fixed = {0 if name == "inner" else self.n_radial - 1 for name in dirichlet}
+        return np.array([r for r in range(self.n_radial) if r not in fixed])
+
+    def free_dofs(self, dirichlet) -> np.ndarray:
+        """Sorted dofs left free by the Dirichlet walls (surface-major, like the numbering)."""
+        radial = self.free_radial(dirichlet)
+        return (np.arange(self.n_surface)[:, None] * self.n_radial + radial[None, :]).ravel()
+
     def concentric_spheres(self) -> bool:
         """True when every wall is a sphere about the origin (the matrices separate)."""
         return bool(np.all(np.ptp(self.wall_values, axis=1) <= 1e-14 * np.max(np.abs(self.wall_values))))
@@ -397,16 +407,12 @@ def assemble_prisms(disc: PrismShell, inverse_mass: dict, offsets: dict | None =
 
 def _flush(K, M, pending: list):
     """Add the collected element entries to K and M (one COO -> CSR conversion per batch)."""
-    if pending:
-        rows, cols = np.concatenate([b[0] for b in pending]), np.concatenate([b[1] for b in pending])
-        for slot, A in ((2, "K"), (3, "M")):
-            data = np.concatenate([b[slot] for b in pending])
-            add = sp.coo_matrix((data, (rows, cols)), shape=K.shape).tocsr()
-            if A == "K":
-                K = add if K.nnz == 0 else K + add
-            else:
-                M = add if M.nnz == 0 else M + add
-        pending.clear()
+    if not pending:
+        return K, M
+    rows, cols = np.concatenate([b[0] for b in pending]), np.concatenate([b[1] for b in pending])
+    K, M = (A + sp.coo_matrix((np.concatenate([b[slot] for b in pending]), (rows, cols)), shape=A.shape).tocsr()
+            for slot, A in ((2, K), (3, M)))
+    pending.clear()
     return K, M
 
 

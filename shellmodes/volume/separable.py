@@ -145,26 +145,22 @@ def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None 
     if count is not None and keep < count and keep < n_full:
         raise SolverError(f"only {keep} separable modes found for {count} requested")
     lam, si, ri = lam[:keep], si[:keep], ri[:keep]
-    Y = surface.vectors
     nr = A.shape[0]
-    vectors = np.zeros((Ks.shape[0] * nr, keep))
-    residuals = np.zeros(keep)
-    floor = scale
-    for i in range(keep):
-        x = np.zeros(nr)
-        x[f] = X[si[i]][:, ri[i]]
-        y = Y[:, si[i]]
-        Msy, Ksy = Ms @ y, Ks @ y
-        Cx = (C @ x)[f]  # rows of the fixed (Dirichlet) radial dofs are not equations
-        r = np.kron(Ksy, (B @ x)[f]) + np.kron(Msy, (A @ x)[f]) - lam[i] * np.kron(Msy, Cx)
-        residuals[i] = np.linalg.norm(r) / (max(abs(lam[i]), floor) * np.linalg.norm(Msy) * np.linalg.norm(Cx))
-        vectors[:, i] = np.kron(y, x)
-    gram_s = Y[:, si].T @ (Ms @ Y[:, si])
-    Xk = np.zeros((nr, keep))
+    Xk = np.zeros((nr, keep))  # radial factor of each kept mode, zero on the fixed radial dofs
     for i in range(keep):
         Xk[f, i] = X[si[i]][:, ri[i]]
-    gram_r = Xk.T @ (C @ Xk)
-    orth = float(np.max(np.abs(gram_s * gram_r - np.eye(keep)))) if keep else 0.0
+    Yk = surface.vectors[:, si]
+    MsY, KsY = Ms @ Yk, Ks @ Yk
+    # rows of the fixed (Dirichlet) radial dofs are not equations
+    AX, BX, CX = (A @ Xk)[f], (B @ Xk)[f], (C @ Xk)[f]
+    residuals = np.zeros(keep)
+    for i in range(keep):
+        r = np.kron(KsY[:, i], BX[:, i]) + np.kron(MsY[:, i], AX[:, i] - lam[i] * CX[:, i])
+        residuals[i] = np.linalg.norm(r) / (max(abs(lam[i]), scale) * np.linalg.norm(MsY[:, i])
+                                            * np.linalg.norm(CX[:, i]))
+    vectors = np.einsum("sk,rk->srk", Yk, Xk).reshape(Ks.shape[0] * nr, keep)
+    gram = (Yk.T @ MsY) * (Xk.T @ (C @ Xk))
+    orth = float(np.max(np.abs(gram - np.eye(keep)))) if keep else 0.0
     return SeparableModes(lam=lam, vectors=vectors, residuals=residuals, orthogonality=orth, surface_index=si,
                           radial_index=ri, surface_lam=mu[si],
                           timings={"eigensolve": time.perf_counter() - t0, "surface_modes": len(mu)})
