@@ -300,7 +300,7 @@ def _m_norms(M, modes):
 
 
 def angular_content(nodes, modes, M, l_max: int, center=(0.0, 0.0, 0.0), axisymmetric: bool = False,
-                    radial_degree: int = 0) -> AngularContent:
+                    radial_degree: int = 0, projector: HarmonicProjector | None = None) -> AngularContent:
     """Weight of each harmonic degree l in each mode (least squares in the M norm).
 
     Parameters
@@ -321,6 +321,9 @@ def angular_content(nodes, modes, M, l_max: int, center=(0.0, 0.0, 0.0), axisymm
         0 for surfaces; for shells, the Legendre degree in r of the radial
         factors (e.g. 6 for the lowest few radial states; the remainder
         ``1 - weights.sum(1)`` shows when it is too low).
+    projector
+        A :func:`harmonic_projector` already built for these nodes, M and
+        parameters (saves building it again).
 
     Returns
     -------
@@ -345,7 +348,8 @@ def angular_content(nodes, modes, M, l_max: int, center=(0.0, 0.0, 0.0), axisymm
     """
     nodes = np.asarray(nodes, dtype=float)
     modes = _columns(modes, len(nodes))
-    projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
+    if projector is None:
+        projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
     c = projector.coefficients(modes)
     resolved = np.clip(projector.projected_norms(c) / _m_norms(M, modes), 0.0, 1.0)
     weights = _split(projector, c, resolved).T
@@ -361,7 +365,7 @@ def angular_content(nodes, modes, M, l_max: int, center=(0.0, 0.0, 0.0), axisymm
 
 
 def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0),
-                      radial_degree: int = 0) -> list[dict]:
+                      radial_degree: int = 0, projector: HarmonicProjector | None = None) -> list[dict]:
     """Weight of each degree l in the subspaces spanned by groups of modes.
 
     With Q an M-orthonormal basis of the group's span and C its coefficient
@@ -373,7 +377,7 @@ def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0
 
     Parameters
     ----------
-    nodes, modes, M, l_max, center, radial_degree
+    nodes, modes, M, l_max, center, radial_degree, projector
         As in :func:`angular_content`.
     groups
         Sequence of sequences of mode (column) indices, e.g. the multiplets.
@@ -382,8 +386,9 @@ def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0
     -------
     list of dict
         One per group: ``modes`` (the indices), ``size``, ``weights`` ((l_max+1,)
-        array), ``l`` (dominant degree), ``purity`` (its weight) and
-        ``unresolved`` (1 - sum of weights).
+        array), ``l`` (dominant degree), ``purity`` (its weight),
+        ``unresolved`` (1 - sum of weights) and ``mean_L2`` (<L^2>/hbar^2 of the
+        subspace, renormalised to its resolved part).
 
     Raises
     ------
@@ -398,7 +403,8 @@ def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0
             raise ValueError("empty group of modes")
         if min(g) < -modes.shape[1] or max(g) >= modes.shape[1]:
             raise ValueError(f"group {g} refers to modes outside 0..{modes.shape[1] - 1}")
-    projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
+    if projector is None:
+        projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
     rows = []
     for g in groups:
         V = modes[:, g]
@@ -412,6 +418,9 @@ def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0
         resolved = min(float(projector.projected_norms(C).sum()) / len(g), 1.0)
         weights = _split(projector, C, resolved, aggregate=True)
         dominant = int(np.argmax(weights))
+        total = float(weights.sum())
+        degrees = np.arange(len(weights))
+        mean_L2 = float(weights @ (degrees * (degrees + 1.0))) / total if total > 0 else float("nan")
         rows.append({"modes": g, "size": len(g), "weights": weights, "l": dominant,
-                     "purity": float(weights[dominant]), "unresolved": float(1.0 - weights.sum())})
+                     "purity": float(weights[dominant]), "unresolved": float(1.0 - total), "mean_L2": mean_L2})
     return rows

@@ -258,7 +258,7 @@ def run_case(case: Case) -> Spectrum:
     multiplets = build_multiplets(lam, energies, case.modes.multiplet_tolerance, problem.spectral_scale,
                                   radius_eq2)
     vectors = problem.expand(pairs.vectors)
-    angular = _angular(shape, surface, problem, vectors, multiplets)
+    angular, multiplets = _angular(shape, surface, problem, vectors, multiplets)
     mesh_info = {"kind": "surface", "shape": shape.parameters(), "degree": surface.degree,
                  "geometry_degree": surface.geometry_degree, "elements": int(surface.mesh.nelements),
                  "dofs": int(surface.ndofs), "free_dofs": int(problem.ndofs), "h": surface.h,
@@ -310,10 +310,15 @@ def perturbation_rows(shape, spectrum) -> list[dict]:
 
 
 def _angular(shape, surface, problem, vectors, multiplets):
-    """Angular content of each mode on sphere-like closed surfaces (radial map to the unit sphere)."""
+    """Angular content on sphere-like closed surfaces (radial map to the unit sphere).
+
+    Returns ``(content per mode or None, multiplets)``; the multiplets carry the
+    content of their whole subspace, which does not depend on the basis the
+    eigen-solver chose inside a degenerate multiplet (the per-mode values do).
+    """
     if not (shape.closed and shape.sphere_like) or vectors.shape[1] == 0:
-        return None
-    from .angular import angular_content
+        return None, multiplets
+    from .angular import angular_content, harmonic_projector, multiplet_content
 
     top = max((m.l for m in multiplets if m.l is not None), default=0)
     # (l_max + 1)^2 harmonics must stay well below the number of nodes to be resolved
@@ -323,5 +328,9 @@ def _angular(shape, surface, problem, vectors, multiplets):
         shape.name == "star" and all(m == 0 for _, m, _ in shape.deformation))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # l_max is chosen within the resolvable range above
-        return angular_content(surface.nodes, vectors, problem.M, l_max, center=shape.center,
-                               axisymmetric=axisymmetric)
+        projector = harmonic_projector(surface.nodes, problem.M, l_max, center=shape.center)
+        per_mode = angular_content(surface.nodes, vectors, problem.M, l_max, axisymmetric=axisymmetric,
+                                   projector=projector)
+        rows = multiplet_content(surface.nodes, vectors, problem.M, [m.members for m in multiplets], l_max,
+                                 projector=projector)
+    return per_mode, [m.with_content(row) for m, row in zip(multiplets, rows, strict=True)]

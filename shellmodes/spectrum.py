@@ -10,7 +10,7 @@ differs from 2l+1 shows how the sphere's degeneracy is split.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -36,11 +36,23 @@ class Multiplet:
     expected_size: int | None
     spread: float  # max - min energy, in the energy unit
     relative_spread: float
+    #: angular content of the multiplet's whole subspace (basis-independent), where analysed:
+    #: dominant degree, its weight and <L^2>/hbar^2 (see :func:`shellmodes.angular.multiplet_content`)
+    subspace_l: int | None = None
+    subspace_weight: float | None = None
+    subspace_mean_L2: float | None = None
 
     def as_dict(self) -> dict:
         return {"index": self.index, "energy": self.energy, "eigenvalue": self.eigenvalue, "size": self.size,
                 "l": self.l, "expected_size": self.expected_size, "spread": self.spread,
-                "relative_spread": self.relative_spread, "modes": list(self.members)}
+                "relative_spread": self.relative_spread, "subspace_l": self.subspace_l,
+                "subspace_weight": self.subspace_weight, "subspace_mean_L2": self.subspace_mean_L2,
+                "modes": list(self.members)}
+
+    def with_content(self, row: dict) -> Multiplet:
+        """This multiplet with the subspace content of one :func:`~shellmodes.angular.multiplet_content` row."""
+        return replace(self, subspace_l=int(row["l"]), subspace_weight=float(row["purity"]),
+                       subspace_mean_L2=float(row["mean_L2"]))
 
 
 def build_multiplets(lam, energy, tolerance, scale, radius_eq2=None, mode_l=None) -> list[Multiplet]:

@@ -285,13 +285,20 @@ def test_labels_match_projector_columns():
 def test_center_of_the_radial_map():
     # unit sphere centred at c0: analysed about c0 its modes are as pure as at the origin
     # (P2, icosphere level 2: measured deficit <= 1.6e-8 for l <= 2, tolerance 1e-6 as above);
-    # analysed about the origin the direction map is wrong and the degrees mix (measured
-    # dominant weights 0.62 to 0.88 for l = 1, 2)
+    # analysed about the origin the direction map is wrong and the degrees mix.  Inside a
+    # degenerate multiplet the eigen-solver's basis is arbitrary (it depends on BLAS kernels and
+    # library builds), so the mixing is judged on each multiplet's whole subspace, which is
+    # basis-independent: measured purity 0.906 (l = 1) and 0.741 (l = 2) about the origin
     c0 = np.array([0.3, -0.2, 0.1])
     nodes, lam, U, M = _lowest_modes(lambda x: _unit(x) + c0, 2, 2, 9)
     parent = np.repeat(np.arange(3), 2 * np.arange(3) + 1)
     centred = angular_content(nodes, U, M, l_max=6, center=c0)
-    assert np.array_equal(centred.dominant_l, parent)
+    assert np.array_equal(centred.dominant_l, parent)  # any vector of a pure multiplet is pure
     assert np.all(centred.dominant_weight > 1 - SPHERE_TOL)
-    off = angular_content(nodes, U, M, l_max=6)
-    assert np.all(off.dominant_weight[1:] < 0.95)
+    groups = [[0], [1, 2, 3], [4, 5, 6, 7, 8]]
+    about_c0 = multiplet_content(nodes, U, M, groups, l_max=6, center=c0)
+    assert all(row["purity"] > 1 - SPHERE_TOL for row in about_c0)
+    off = multiplet_content(nodes, U, M, groups, l_max=6)
+    # the constant is Y_00 about any centre; the others mix: 0.95 lies between 0.906 and a pure 1
+    assert off[0]["purity"] > 1 - SPHERE_TOL
+    assert all(row["purity"] < 0.95 for row in off[1:])
