@@ -72,7 +72,7 @@ def child(point: dict) -> dict:
 
     t0 = time.perf_counter()
     from shellmodes.case import case_from_dict
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     t_import = time.perf_counter() - t0
     with warnings.catch_warnings():
@@ -120,7 +120,7 @@ def assembled_factor_child(payload: dict) -> dict:
     import numpy as np
 
     from shellmodes.case import Wall
-    from shellmodes.shellrun import wall_function
+    from shellmodes.model import wall_function
     from shellmodes.volume import restricted
     from shellmodes.volume.prisms import assemble_prisms, prism_shell
 

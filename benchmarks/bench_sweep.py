@@ -3,7 +3,7 @@
 The sweep deforms the unit sphere by r = 1 + a Y_20 + b Y_22 with a from
 -0.1 to 0.1 and b from -0.03 to 0.03 together (21 steps by default, the
 middle one the exact sphere), 50 lowest modes with degree-4 curved elements
-on the level-3 icosphere (10,242 nodes), which DESIGN.md measured at ~3e-7
+on the level-3 icosphere (10,242 nodes), which docs/MEASURED.md measured at ~3e-7
 for the sphere's first 100 eigenvalues; the middle step checks that figure
 against l(l+1).
 

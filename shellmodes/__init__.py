@@ -1,6 +1,8 @@
 """shellmodes: eigenmodes of particles on curved surfaces and in spherical shells.
 
-Pipeline: case -> shape -> curved mesh -> problem -> solve -> spectrum -> outputs.
+Pipeline: case -> discretisation -> problem -> solver plan -> eigenpairs -> spectrum -> outputs
+(:mod:`shellmodes.pipeline`).  The public names below are loaded on first use, so
+``import shellmodes`` (and ``shellmodes --help``) stays quick.
 
 >>> import shellmodes
 >>> case = shellmodes.case_from_dict({"surface": {"shape": "sphere"}, "modes": {"count": 4},
@@ -10,43 +12,42 @@ Pipeline: case -> shape -> curved mesh -> problem -> solve -> spectrum -> output
 [-0.0, 2.0, 2.0, 2.0]
 """
 
-from ._version import __version__
-from .angular import AngularContent, angular_content, multiplet_content
-from .bridge import ThinShellComparison, thin_shell_comparison
-from .case import Case, case_from_dict, case_schema, load_case
-from .convergence import ConvergenceStudy, convergence_study
-from .errors import (
-                     CaseError,
-                     DoubtfulResultWarning,
-                     GeometryError,
-                     MeshError,
-                     MeshQualityWarning,
-                     MultipletCutWarning,
-                     ShellmodesError,
-                     SolverError,
-)
-from .harmonics import real_sph_harm
-from .meshfile import SurfaceMeshData, read_surface_mesh
-from .outputs import write_outputs
-from .perturbation import first_order_levels, splitting_table
-from .problem import SurfaceProblem, assemble_surface
-from .run import build_shape, discretise, run_case
-from .shapes import SHAPES, make_shape
-from .solve import Eigenpairs, lowest_modes
-from .spectrum import Multiplet, Spectrum
-from .surface import CurvedSurface, SurfaceMapping, curved_surface
-from .sweep import SweepResult, run_sweep
+from __future__ import annotations
 
-__all__ = [
-    "__version__",
-    "Case", "case_from_dict", "case_schema", "load_case",
-    "CaseError", "DoubtfulResultWarning", "GeometryError", "MeshError", "MeshQualityWarning",
-    "MultipletCutWarning", "ShellmodesError", "SolverError",
-    "real_sph_harm", "write_outputs", "SurfaceProblem", "assemble_surface",
-    "build_shape", "discretise", "run_case", "SHAPES", "make_shape",
-    "Eigenpairs", "lowest_modes", "Multiplet", "Spectrum",
-    "CurvedSurface", "SurfaceMapping", "curved_surface",
-    "AngularContent", "angular_content", "multiplet_content", "first_order_levels", "splitting_table",
-    "ConvergenceStudy", "convergence_study", "SurfaceMeshData", "read_surface_mesh",
-    "ThinShellComparison", "thin_shell_comparison", "SweepResult", "run_sweep",
-]
+import importlib
+
+from ._version import __version__
+
+#: public name -> module that defines it
+_WHERE = {
+    "Case": "case", "case_from_dict": "case", "case_schema": "case", "load_case": "case",
+    "CaseError": "errors", "DoubtfulResultWarning": "errors", "GeometryError": "errors", "MeshError": "errors",
+    "MeshQualityWarning": "errors", "MultipletCutWarning": "errors", "ShellmodesError": "errors",
+    "SolverError": "errors",
+    "real_sph_harm": "harmonics", "write_outputs": "outputs",
+    "SurfaceProblem": "problem", "assemble_surface": "problem",
+    "build_shape": "model", "discretise": "discretisation", "run_case": "pipeline",
+    "SHAPES": "shapes", "make_shape": "shapes",
+    "Eigenpairs": "solve", "lowest_modes": "solve", "Multiplet": "spectrum", "Spectrum": "spectrum",
+    "CurvedSurface": "surface", "SurfaceMapping": "surface", "curved_surface": "surface",
+    "AngularContent": "angular", "angular_content": "angular", "multiplet_content": "angular",
+    "first_order_levels": "perturbation", "splitting_table": "perturbation",
+    "ConvergenceStudy": "convergence", "convergence_study": "convergence",
+    "SurfaceMeshData": "meshfile", "read_surface_mesh": "meshfile",
+    "ThinShellComparison": "bridge", "thin_shell_comparison": "bridge",
+    "SweepResult": "sweep", "run_sweep": "sweep",
+}
+
+__all__ = ["__version__", *_WHERE]
+
+
+def __getattr__(name: str):
+    if name in _WHERE:
+        value = getattr(importlib.import_module(f".{_WHERE[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'shellmodes' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(__all__)

@@ -22,7 +22,7 @@ import numpy as np
 from .case import Case, case_from_dict
 from .errors import CaseError
 
-__all__ = ["ThinShellComparison", "thin_shell_comparison", "add_command"]
+__all__ = ["ThinShellComparison", "thin_shell_comparison"]
 
 
 @dataclass(frozen=True)
@@ -107,7 +107,7 @@ def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subd
     CaseError
         Not a surface case, a shape without an inside, non-positive or too large thickness.
     """
-    from .run import run_case
+    from .pipeline import run_case
 
     if case.surface is None:
         raise CaseError("the thin-shell bridge starts from a [surface] case", case.source, "surface")
@@ -155,27 +155,3 @@ def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subd
     return ThinShellComparison(thickness=thickness, surface=surface.eigenvalues, shell=shells,
                                energy_per_lambda=surface.info["units"]["energy_per_lambda"],
                                energy_unit=case.units.energy, exact=exact)
-
-
-def add_command(subparsers):
-    p = subparsers.add_parser("thin-shell", help="compare a surface case with shells of finite thickness")
-    p.add_argument("case", help="TOML case file with a [surface] table")
-    p.add_argument("--thickness", required=True, help="comma-separated wall separations d, in units.length")
-    p.add_argument("--layers", type=int, default=None, help="radial element layers across each shell "
-                   "(default 1 for prisms, 6 for tetrahedra)")
-    p.add_argument("--cells", choices=["prisms", "tetrahedra"], default="prisms",
-                   help="shell cells: layered prisms with exact walls (default) or curved P2 tetrahedra")
-    p.set_defaults(func=_cmd)
-
-
-def _cmd(args) -> int:
-    from .case import load_case
-
-    case = load_case(args.case)
-    try:
-        values = [float(v) for v in args.thickness.split(",") if v.strip()]
-    except ValueError:
-        raise CaseError(f"value {args.thickness!r}: give comma-separated numbers", args.case, "--thickness") from None
-    result = thin_shell_comparison(case, values, layers=args.layers, cells=args.cells)
-    print(result.table())
-    return 0

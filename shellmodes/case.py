@@ -19,6 +19,7 @@ from pydantic import BaseModel, ConfigDict, Field, NonNegativeInt, ValidationErr
 
 from .errors import CaseError
 from .expression import ExpressionError, compile_expression
+from .limits import DEFAULT_MODE_COUNT, MAX_MODE_COUNT, MAX_RADIAL_DEGREE, MAX_SUBDIVISIONS
 from .units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
 
 if sys.version_info >= (3, 11):
@@ -185,8 +186,8 @@ class Shell(_Table):
     cells: Literal["tetrahedra", "prisms"] = Field(
         "tetrahedra", description="tetrahedra (degree 1-2, balls and mesh files) or layered curved prisms "
         "(triangle degree 1-4 times a radial degree, needs an inner wall)")
-    radial_degree: int | None = Field(None, ge=1, le=12, description="prisms: polynomial degree across each "
-                                      "layer (default resolution.degree)")
+    radial_degree: int | None = Field(None, ge=1, le=MAX_RADIAL_DEGREE, description="prisms: polynomial degree "
+                                      "across each layer (default resolution.degree)")
 
     @model_validator(mode="after")
     def _walls_or_file(self):
@@ -219,7 +220,7 @@ class Resolution(_Table):
     degree: int = Field(2, ge=1, le=4, description="polynomial degree of elements and geometry (1..4)")
     geometry_degree: int | None = Field(
         None, ge=1, le=4, description="degree of the geometry map (default: degree; higher = superparametric)")
-    subdivisions: int | None = Field(None, ge=0, le=9, description="halvings of the reference mesh")
+    subdivisions: int | None = Field(None, ge=0, le=MAX_SUBDIVISIONS, description="halvings of the reference mesh")
     edge_length: Positive | None = Field(None, description="largest reference edge, in units.length")
     quadrature_order: int | None = Field(None, ge=1, le=20, description="exactness of the cell rule")
 
@@ -272,7 +273,7 @@ class Potential(_Table):
 class Modes(_Table):
     """Which modes to find and how to group them."""
 
-    count: int | None = Field(None, ge=1, le=100000, description="number of lowest modes")
+    count: int | None = Field(None, ge=1, le=MAX_MODE_COUNT, description="number of lowest modes")
     below: float | None = Field(None, description="all modes with energy below this, in units.energy")
     multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
     backend: Literal["auto", "splu", "cholmod"] = Field("auto", description="factorization for shift-invert")
@@ -290,7 +291,7 @@ class Modes(_Table):
             if data.get("count") is not None and data.get("below") is not None:
                 raise ValueError("give either count or below, not both")
             if data.get("count") is None and data.get("below") is None:
-                data = {**data, "count": 20}
+                data = {**data, "count": DEFAULT_MODE_COUNT}
         return data
 
 

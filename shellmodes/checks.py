@@ -16,7 +16,8 @@ from scipy import constants
 
 from . import references as ref
 from .case import case_from_dict
-from .run import discretise, run_case
+from .discretisation import discretise
+from .pipeline import run_case
 from .units import ENERGY_UNITS, INERTIA_UNITS
 
 __all__ = ["CheckResult", "CHECKS", "check", "run_checks", "format_table", "observed_order"]

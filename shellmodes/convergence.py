@@ -42,17 +42,15 @@ from scipy.optimize import brentq
 
 from .case import Case, case_from_dict
 from .errors import CaseError, DoubtfulResultWarning
-from .run import build_shape, energy_scale, run_case
+from .limits import CONVERGE_MAX_SUBDIVISIONS, MAX_SUBDIVISIONS
+from .model import build_shape, energy_scale
+from .pipeline import run_case
 
 __all__ = ["ConvergenceStudy", "ConvergenceRow", "Refinement", "convergence_study", "expected_order",
-           "order_range", "observed_order_three", "extrapolate", "shared_groups", "write_study", "add_command"]
+           "order_range", "observed_order_three", "extrapolate", "shared_groups", "write_study"]
 
 log = logging.getLogger(__name__)
 
-#: the case schema's own upper bound on resolution.subdivisions
-SCHEMA_MAX_SUBDIVISIONS = 9
-#: default finest refinement a study may reach (sphere, degree 2: ~164k DOFs)
-DEFAULT_MAX_SUBDIVISIONS = 6
 #: an observed order outside [(1 - w) low, (1 + w) high] of :func:`order_range` is not asymptotic
 DEFAULT_ORDER_WINDOW = 0.35
 #: successive changes below this (relative) are rounding noise, not discretisation error
@@ -288,12 +286,12 @@ class ConvergenceStudy:
         tol = "" if self.tolerance is None else f", tolerance={self.tolerance:g} reached={self.reached}"
         return (f"ConvergenceStudy(degree={self.degree}, subdivisions={list(self.subdivisions)}, "
                 f"dofs={[r.dofs for r in self.refinements]}, rows={len(self.rows)}, "
-                f"order={span} (expected {_range_text(self.order_range)}), "
+                f"order={span} (expected {range_text(self.order_range)}), "
                 f"max_rel_error={max(errs) if errs else float('nan'):.1e}, "
                 f"asymptotic={sum(r.asymptotic for r in self.rows)}/{len(self.rows)}{tol})")
 
 
-def _range_text(bounds) -> str:
+def range_text(bounds) -> str:
     if bounds is None:
         return "unknown"
     low, high = bounds
@@ -305,8 +303,8 @@ def _finite(x):
 
 
 def _start_subdivisions(case: Case, shape) -> tuple[int, str]:
-    # the same choice as run.discretise makes for a single solve
-    from .run import subdivision_level
+    # the same choice as discretisation.discretise makes for a single solve
+    from .model import subdivision_level
 
     res = case.resolution
     key = ("resolution.edge_length" if res.edge_length is not None else
@@ -360,7 +358,7 @@ def _size(lam, scale):
 
 
 def convergence_study(case: Case, refinements: int = 3, tolerance: float | None = None,
-                      max_subdivisions: int = DEFAULT_MAX_SUBDIVISIONS, progress=None,
+                      max_subdivisions: int = CONVERGE_MAX_SUBDIVISIONS, progress=None,
                       order_window: float = DEFAULT_ORDER_WINDOW) -> ConvergenceStudy:
     """Solve ``case`` at successive refinements and estimate each eigenvalue's error.
 
@@ -412,11 +410,11 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
                         "solves)", source, "refinements")
     if tolerance is not None and not (math.isfinite(tolerance) and tolerance > 0):
         raise CaseError(f"value {tolerance!r}: need a relative error > 0, e.g. 1e-6", source, "tolerance")
-    if not isinstance(max_subdivisions, int) or not 0 <= max_subdivisions <= SCHEMA_MAX_SUBDIVISIONS:
-        raise CaseError(f"value {max_subdivisions!r}: allowed 0..{SCHEMA_MAX_SUBDIVISIONS}", source,
+    if not isinstance(max_subdivisions, int) or not 0 <= max_subdivisions <= MAX_SUBDIVISIONS:
+        raise CaseError(f"value {max_subdivisions!r}: allowed 0..{MAX_SUBDIVISIONS}", source,
                         "max_subdivisions")
     if case.shell is not None:
-        from .shellrun import shell_level
+        from .model import shell_level
 
         shape = None
         s0 = shell_level(case)
@@ -484,7 +482,7 @@ def convergence_study(case: Case, refinements: int = 3, tolerance: float | None 
     doubtful = [r.index for r in rows if not r.asymptotic]
     if doubtful:
         text = (f"{source}: rows {doubtful} are not in the asymptotic range (order far from "
-                f"{_range_text(bounds)} or changes not shrinking); their error estimates are rough")
+                f"{range_text(bounds)} or changes not shrinking); their error estimates are rough")
         notes.append(text)
         warnings.warn(text, DoubtfulResultWarning, stacklevel=2)
     return ConvergenceStudy(source=source, degree=case.resolution.degree,
@@ -539,63 +537,3 @@ def write_study(study: ConvergenceStudy, folder) -> Path:
         (tmp / "convergence.json").write_text(json.dumps(study.as_dict(), indent=2) + "\n")
         (tmp / "convergence.csv").write_text(buf.getvalue())
     return Path(folder)
-
-
-def _cmd_converge(args) -> int:
-    import sys
-
-    from .case import load_case
-    from .cli import default_out
-
-    case_path = Path(args.case)
-    case = load_case(case_path)
-    out = Path(args.out) if args.out else default_out(case_path).with_name(
-        default_out(case_path).name + "-convergence")
-    bar = None
-    if not args.quiet and sys.stderr.isatty():
-        from tqdm import tqdm
-
-        planned = args.refinements if args.tolerance is None else None
-        bar = tqdm(total=planned, desc="refinements", unit="solve", file=sys.stderr, leave=False)
-
-    def progress(subdivisions, spectrum):
-        if bar is not None:
-            bar.set_postfix(subdivisions=subdivisions, dofs=spectrum.info["mesh"]["dofs"])
-            bar.update(1)
-
-    # hold warnings until the bar is gone, so they do not tear through it
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            study = convergence_study(case, refinements=args.refinements, tolerance=args.tolerance,
-                                      max_subdivisions=args.max_subdivisions, progress=progress)
-        finally:
-            if bar is not None:
-                bar.close()
-    for w in caught:
-        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    write_study(study, out)
-    if not args.quiet:
-        levels = ", ".join(f"{r.subdivisions} ({r.dofs} dofs)" for r in study.refinements)
-        print(f"{case.title or case_path.name}: degree {study.degree}, subdivisions {levels}, "
-              f"expected order {_range_text(study.order_range)}")
-        print(study.table())
-        if study.tolerance is not None:
-            print(f"tolerance {study.tolerance:g}: " + (f"reached at subdivisions {study.reached}"
-                                                         if study.reached is not None else "NOT reached"))
-        print(f"wrote {out}/")
-    return 0
-
-
-def add_command(subparsers) -> None:
-    """The ``shellmodes converge`` sub-command (picked up by :mod:`shellmodes.cli`)."""
-    c = subparsers.add_parser("converge", help="solve a case at successive refinements, with error bars")
-    c.add_argument("case", help="TOML case file")
-    c.add_argument("--refinements", type=int, default=3, help="number of refinements (at least 3; default 3)")
-    c.add_argument("--tolerance", type=float, help="relative error wanted; refine further until it is met")
-    c.add_argument("--max-subdivisions", type=int, default=DEFAULT_MAX_SUBDIVISIONS,
-                   help=f"finest refinement allowed (default {DEFAULT_MAX_SUBDIVISIONS}, "
-                        f"at most {SCHEMA_MAX_SUBDIVISIONS})")
-    c.add_argument("--out", help="output folder (default: the case's output folder name + '-convergence')")
-    c.add_argument("-q", "--quiet", action="store_true", help="print nothing on success, no progress bar")
-    c.set_defaults(func=_cmd_converge)

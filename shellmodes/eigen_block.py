@@ -29,7 +29,7 @@ The set is extended past a multiplet cut by the count.  A block holds at most
 ``block`` vectors of one exactly degenerate eigenvalue, so the block size
 follows the multiplets expected (:func:`default_block_size`).  Single-vector
 Lanczos (ARPACK) spends most of its time in matrix-vector Gram-Schmidt on
-large surfaces (DESIGN.md); here that work is matrix-matrix.  The start block
+large surfaces (docs/MEASURED.md); here that work is matrix-matrix.  The start block
 is random with a fixed seed, so results are reproducible.
 """
 

@@ -13,6 +13,7 @@ __all__ = [
     "MeshError",
     "GeometryError",
     "SolverError",
+    "ProblemError",
     "DoubtfulResultWarning",
     "MultipletCutWarning",
     "MeshQualityWarning",
@@ -59,6 +60,19 @@ class GeometryError(ShellmodesError, ValueError):
 
 class SolverError(ShellmodesError, RuntimeError):
     """The eigen-solver cannot deliver what was asked (too many modes, no convergence)."""
+
+
+class ProblemError(ShellmodesError, ValueError):
+    """A discretised problem cannot be set up or solved as the case asks.
+
+    Raised below the pipeline, which knows the case file; ``key`` names the case key
+    to change and the pipeline turns the error into a :class:`CaseError`.
+    """
+
+    def __init__(self, message: str, key: str):
+        self.key = key
+        self.reason = message
+        super().__init__(message)
 
 
 class DoubtfulResultWarning(UserWarning):

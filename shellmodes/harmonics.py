@@ -19,7 +19,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import sph_harm_y
 
-__all__ = ["angles", "real_sph_harm", "real_sph_harm_basis", "harmonic_labels"]
+__all__ = ["angles", "real_sph_harm", "real_sph_harm_basis", "harmonic_labels", "parent_degree"]
 
 
 def angles(points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -57,3 +57,9 @@ def harmonic_labels(l_max: int) -> list[tuple[int, int]]:
 def real_sph_harm_basis(l_max: int, theta: np.ndarray, phi: np.ndarray) -> np.ndarray:
     """Matrix (N, (l_max+1)^2) of all real harmonics up to ``l_max`` at the given angles."""
     return np.column_stack([real_sph_harm(l, m, theta, phi) for l, m in harmonic_labels(l_max)])
+
+
+def parent_degree(x: np.ndarray) -> np.ndarray:
+    """Nearest integer l >= 0 to the root of l (l + 1) = x."""
+    x = np.maximum(np.asarray(x, dtype=float), 0.0)
+    return np.rint((-1.0 + np.sqrt(1.0 + 4.0 * x)) / 2.0).astype(int)

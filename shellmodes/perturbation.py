@@ -61,7 +61,7 @@ import numpy as np
 
 from .harmonics import real_sph_harm
 
-__all__ = [
+__all__ = ["perturbation_rows",
     "sphere_quadrature",
     "triple_integral",
     "deformation_terms",
@@ -231,3 +231,36 @@ def splitting_table(deformation, eps: float, R: float, l_max: int, tol: float = 
             "multiplicities": [len(c) for c in clusters],
         })
     return rows
+
+
+def perturbation_rows(shape, eigenvalues, multiplets, energy_per_lambda: float = 1.0) -> list[dict]:
+    """First-order perturbation theory beside the finite-element splitting, one row per parent l.
+
+    For a star-shaped surface r = R (1 + sum a_lm Y_lm) the modes of parent l
+    (those whose multiplets carry label l, when there are exactly 2l+1 of them)
+    are compared, sorted, with the 2l+1 first-order levels of
+    :func:`first_order_levels` (eps = 1, the amplitudes as given).  ``ratio``
+    is the finite-element splitting over the first-order one; it tends to 1 as
+    the amplitudes shrink (differences O(a^2)).  Energies are eigenvalues times
+    ``energy_per_lambda``; shapes other than deformed stars give no rows.
+    """
+    if shape.name != "star" or not shape.deformation:
+        return []
+    e0 = energy_per_lambda
+    labels = np.full(len(eigenvalues), -1)
+    for m in multiplets:
+        labels[list(m.members)] = -1 if m.l is None else m.l
+    rows = []
+    for l in sorted(set(labels[labels > 0].tolist())):
+        members = np.flatnonzero(labels == l)
+        if len(members) != 2 * l + 1:
+            continue
+        fe = np.sort(np.asarray(eigenvalues)[members])
+        pt = first_order_levels([tuple(t) for t in shape.deformation], 1.0, shape.radius, l)
+        fe_split, pt_split = float(fe[-1] - fe[0]), float(pt[-1] - pt[0])
+        rows.append({"l": int(l), "fe_eigenvalues": fe.tolist(), "first_order_eigenvalues": pt.tolist(),
+                     "fe_splitting": fe_split * e0, "first_order_splitting": pt_split * e0,
+                     "ratio": fe_split / pt_split if pt_split else None,
+                     "max_difference": float(np.max(np.abs(fe - pt))) * e0})
+    return rows
+

@@ -23,6 +23,7 @@ from skfem.helpers import dot, grad
 
 from .harmonics import angles
 from .surface import CurvedSurface
+from .volume.assemble import restricted
 
 __all__ = ["SurfaceProblem", "assemble_surface", "stiffness", "mass", "potential_form"]
 
@@ -116,13 +117,7 @@ def assemble_surface(surface: CurvedSurface, potential=None, rim: str | None = N
     boundary = surface.boundary_dofs
     if rim == "dirichlet" and len(boundary):
         free = np.setdiff1d(free, boundary)
-        K, M = _restrict(K, free), _restrict(M, free)
+        K, M = restricted(K, free), restricted(M, free)
     return SurfaceProblem(surface=surface, K=sp.csr_matrix(K), M=sp.csr_matrix(M), free=free, area=area,
                           lower_bound=lower, rim=rim if len(boundary) else None,
                           timings={"assembly": time.perf_counter() - t0})
-
-
-def _restrict(A, free):
-    # one selection matrix product instead of A[free][:, free] (see DESIGN.md)
-    P = sp.csr_matrix((np.ones(len(free)), (np.arange(len(free)), free)), shape=(len(free), A.shape[0]))
-    return (P @ A @ P.T).tocsr()

@@ -23,16 +23,15 @@ import tempfile
 from pathlib import Path
 
 from .errors import CaseError
+from .limits import DEFAULT_RENDERS
 
-__all__ = ["write_report", "load_run", "report_html", "find_convergence", "case_toml", "add_command",
+__all__ = ["write_report", "load_run", "report_html", "find_convergence", "case_toml",
            "SAFETY_NOTE"]
 
 SAFETY_NOTE = ("These numbers are model results for the stated geometry, mesh and settings. Where they feed "
                "engineering or safety decisions (for example acoustic or structural design), defer to local "
                "codes and licensed professional practice.")
 
-#: multiplets rendered by default (one mode of each)
-DEFAULT_RENDERS = 6
 
 
 # ---------------------------------------------------------------------------
@@ -631,38 +630,3 @@ def write_report(folder, checks=False, *, modes: int = DEFAULT_RENDERS, keep_ima
         return _write_text_atomic(folder / "report.html", page)
     except OSError as exc:
         raise CaseError(f"cannot write report.html ({exc.strerror or exc})", str(folder)) from None
-
-
-# ---------------------------------------------------------------------------
-# command line (plugged into shellmodes.cli)
-
-
-def _count(text: str) -> int:
-    import argparse
-
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"{value} is negative; give 0 or more")
-    return value
-
-
-def _cmd_report(args) -> int:
-    path = write_report(args.run_dir, checks=args.checks, modes=args.modes, keep_images=args.keep_images)
-    if not args.quiet:
-        print(f"wrote {path}")
-    return 0
-
-
-def add_command(subparsers) -> None:
-    """Add ``shellmodes report RUN_DIR [--modes N] [--checks] [--keep-images]``."""
-    p = subparsers.add_parser("report", help="write a self-contained report.html for a run folder")
-    p.add_argument("run_dir", help="a folder written by 'shellmodes run'")
-    p.add_argument("--modes", type=_count, default=DEFAULT_RENDERS,
-                   help=f"render one mode of each of the first N multiplets (default {DEFAULT_RENDERS})")
-    p.add_argument("--checks", action="store_true", help="run the validation set and include its table")
-    p.add_argument("--keep-images", action="store_true", help="also leave the PNGs in the run folder")
-    p.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
-    p.set_defaults(func=_cmd_report)

@@ -26,8 +26,9 @@ import scipy.sparse.linalg as sla
 from .backends import get_backend
 from .eigen_block import block_lowest
 from .errors import DoubtfulResultWarning, SolverError
+from .limits import WINDOW_START_COUNT
 
-__all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals"]
+__all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals", "resolve_method"]
 
 log = logging.getLogger(__name__)
 
@@ -35,6 +36,7 @@ log = logging.getLogger(__name__)
 DENSE_LIMIT = 600
 #: from this size on ``method="auto"`` uses the blocked iteration (measured: benchmarks/README.md)
 BLOCK_THRESHOLD = 50_000
+#: iterations on assembled matrices ("separable" is a plan of :mod:`shellmodes.planner`, not an iteration)
 METHODS = ("auto", "lanczos", "block", "lobpcg")
 
 
@@ -56,6 +58,18 @@ class Eigenpairs:
         lows = ", ".join(f"{v:.6g}" for v in self.lam[:4])
         return (f"Eigenpairs(n={len(self.lam)}, lam=[{lows}{', ...' if len(self.lam) > 4 else ''}], "
                 f"max_residual={np.max(self.residuals):.2e}, backend={self.backend!r}, method={self.method!r})")
+
+
+def resolve_method(n: int, method: str = "auto") -> str:
+    """The eigen-iteration for ``n`` unknowns: ``"dense"`` at most :data:`DENSE_LIMIT`, else ``method``,
+    with ``"auto"`` meaning ``"block"`` from :data:`BLOCK_THRESHOLD` on and ``"lanczos"`` below."""
+    if method not in (*METHODS, "dense"):
+        raise ValueError(f"unknown eigen-iteration {method!r}; allowed: {', '.join(METHODS)}")
+    if n <= DENSE_LIMIT or method == "dense":
+        return "dense"
+    if method == "auto":
+        return "block" if n >= BLOCK_THRESHOLD else "lanczos"
+    return method
 
 
 def relative_residuals(K, M, lam, U, floor: float) -> np.ndarray:
@@ -168,24 +182,22 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     if count is not None and count > n:
         raise SolverError(f"{count} modes were requested but the discretisation has only {n} "
                           "degrees of freedom; refine the mesh or ask for fewer modes")
-    if method not in METHODS:
-        raise ValueError(f"unknown eigen-iteration {method!r}; allowed: {', '.join(METHODS)}")
+    method = resolve_method(n, method)
     K = sp.csr_matrix(K)
     M = sp.csr_matrix(M)
     sigma = float(lower_bound - scale)
-    if method == "lobpcg":  # no factorization: LOBPCG preconditioned by algebraic multigrid (or as given)
-        name = "amg" if preconditioner is None else getattr(preconditioner, "name", "given")
-        name, factorize = (name, None) if n > DENSE_LIMIT else ("dense", None)
+    if method == "dense":
+        name, factorize = "dense", None
+    elif method == "lobpcg":  # no factorization: LOBPCG preconditioned by algebraic multigrid (or as given)
+        name, factorize = ("amg" if preconditioner is None else getattr(preconditioner, "name", "given")), None
     else:
-        name, factorize = get_backend(backend) if n > DENSE_LIMIT else ("dense", None)
-    if method == "auto":
-        method = "block" if n >= BLOCK_THRESHOLD else "lanczos"
+        name, factorize = get_backend(backend)
     solve = None  # the block path factorizes once and keeps the factor across extensions
     extra: dict = {}
     rng = np.random.default_rng(20261202)
     v0 = rng.standard_normal(n)
     t0 = time.perf_counter()
-    target = count if count is not None else min(n, 40)
+    target = count if count is not None else min(n, WINDOW_START_COUNT)
     k = min(n, target + max(6, int(np.ceil(0.15 * target))))
     while True:
         if name == "dense" or k >= n - 1:

@@ -14,15 +14,10 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from .harmonics import parent_degree
 from .solve import group_multiplets
 
 __all__ = ["Multiplet", "Spectrum", "parent_degree", "build_multiplets"]
-
-
-def parent_degree(x: np.ndarray) -> np.ndarray:
-    """Nearest integer l >= 0 to the root of l (l + 1) = x."""
-    x = np.maximum(np.asarray(x, dtype=float), 0.0)
-    return np.rint((-1.0 + np.sqrt(1.0 + 4.0 * x)) / 2.0).astype(int)
 
 
 @dataclass(frozen=True)
@@ -113,6 +108,18 @@ class Spectrum:
     angular: object | None = field(default=None, repr=False)
     #: extra per-mode columns for the tables (e.g. radial order n of shell modes)
     mode_columns: dict = field(default_factory=dict, repr=False)
+    #: the solved problem (discretisation, media, operators) and the solver plan, for studies
+    #: that need the mass matrix or the mesh again (None for spectra read back from files)
+    problem: object | None = field(default=None, repr=False)
+    plan: object | None = field(default=None, repr=False)
+
+    def mass_matrix(self):
+        """The mass matrix on every dof (the M inner product of :attr:`vectors`), or None if unknown."""
+        if self.problem is None:
+            return None
+        if "operators" in vars(self.problem):  # assembled already
+            return self.problem.operators.M
+        return self.problem.disc.mass_matrix()
 
     @property
     def mode_multiplet(self) -> np.ndarray:

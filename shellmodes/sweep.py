@@ -49,7 +49,7 @@ from .case import Case, case_from_dict
 from .errors import CaseError, ShellmodesError
 from .outputs import EXPORTERS, atomic_directory
 
-__all__ = ["SweepStep", "SweepResult", "SweepStopped", "plan_steps", "run_sweep", "load_step", "add_command"]
+__all__ = ["SweepStep", "SweepResult", "SweepStopped", "plan_steps", "run_sweep", "load_step"]
 
 log = logging.getLogger(__name__)
 
@@ -220,7 +220,7 @@ def plan_steps(case: Case) -> tuple[list[SweepStep], CaseError | None]:
         No ``[sweep]`` table, or an unknown swept key (naming
         ``sweep.parameters[i].key`` and the nearest valid key).
     """
-    from .run import build_shape
+    from .model import build_shape
 
     if case.sweep is None:
         raise CaseError("the case has no [sweep] table; add sweep.parameters to sweep a key", case.source,
@@ -239,7 +239,7 @@ def plan_steps(case: Case) -> tuple[list[SweepStep], CaseError | None]:
         try:
             step_case = case_from_dict(data, case.source)
             if step_case.shell is not None:
-                from .shellrun import check_walls
+                from .discretisation import check_walls
 
                 check_walls(step_case)
             else:
@@ -308,23 +308,15 @@ def load_step(folder):
 
 
 def _mass_matrix(case: Case):
-    """Consistent mass matrix on every node of the case's curved surface or shell (reassembled)."""
-    import skfem
+    """Consistent mass matrix on every node of the case's curved surface or shell (rebuilt from the case).
 
-    if case.shell is not None:
-        from .shellrun import shell_mass_matrix
-
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            return shell_mass_matrix(case)
-
-    from .problem import mass
-    from .run import discretise
+    Only resumed sweeps need this: a fresh step keeps its mass matrix in the spectrum.
+    """
+    from .discretisation import build_discretisation
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the solve already reported anything doubtful about the mesh
-        surface = discretise(case)
-    return skfem.asm(mass, surface.basis).tocsr()
+        return build_discretisation(case).mass_matrix()
 
 
 # -- solving -----------------------------------------------------------------------------------------
@@ -337,7 +329,7 @@ def _solve_step(case: Case, index: int, step: SweepStep | None = None, steps_dir
     that work then runs in parallel instead of in the collecting process.  Remote (Dask) workers
     return the spectrum for the client to save: ``(spectrum, warnings, None)``.
     """
-    from .run import run_case
+    from .pipeline import run_case
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -349,8 +341,8 @@ def _solve_step(case: Case, index: int, step: SweepStep | None = None, steps_dir
         mass = None
         if step is not None and steps_dir is not None:
             _save_step(spectrum, step, steps_dir)
+            mass = spectrum.mass_matrix() if index > 0 else None  # kept by the solve: nothing rebuilt
             spectrum = None
-            mass = _mass_matrix(case) if index > 0 else None
     return spectrum, [(w.category.__name__, str(w.message)) for w in caught], mass
 
 
@@ -572,50 +564,3 @@ class _Collector:
             tuple(p.key for p in case.sweep.parameters)
         return SweepResult(folder=self.out, keys=keys, steps=tuple(self.steps), rows=self.rows, tracks=tracks,
                            solved=solved, reused=reused, stopped=stopped)
-
-
-# -- command line ------------------------------------------------------------------------------------
-
-def _cmd_sweep(args) -> int:
-    import sys
-
-    from .case import load_case
-
-    case_path = Path(args.case)
-    case = load_case(case_path)
-    out = Path(args.out) if args.out else case_path.with_suffix("") if case_path.suffix else \
-        case_path.parent / (case_path.name + "-out")
-    bars = []  # made at the first report, when the number of steps is known
-
-    def progress(done, total):
-        if args.quiet:
-            return
-        if not bars:
-            from tqdm import tqdm
-
-            bars.append(tqdm(total=total, initial=done, file=sys.stderr, unit="step", desc="sweep"))
-        bars[0].update(done - bars[0].n)
-
-    try:
-        result = run_sweep(case, out, workers=args.workers, scheduler=args.scheduler, progress=progress)
-    finally:
-        for bar in bars:
-            bar.close()
-    if not args.quiet:
-        print(f"{case.title or case_path.name}: {len(result.steps)} steps ({len(result.solved)} solved, "
-              f"{len(result.reused)} reused), {len(result.tracks)} tracks")
-        print(f"wrote {out}/ (sweep.csv, sweep.json, levels.png, series.pvd, steps/)")
-    return 0
-
-
-def add_command(subparsers) -> None:
-    """Register ``shellmodes sweep CASE [--out DIR] [--workers N] [--scheduler ADDR] [--quiet]``."""
-    p = subparsers.add_parser("sweep", help="solve a case at every step of its [sweep] table and follow the levels")
-    p.add_argument("case", help="TOML case file with a [sweep] table")
-    p.add_argument("--out", help="output folder (default: the case file's name beside it); finished steps "
-                   "in it are reused")
-    p.add_argument("--workers", type=int, help="local worker processes (default: sweep.workers)")
-    p.add_argument("--scheduler", help="address tcp://host:port of a running Dask scheduler (default: "
-                   "sweep.scheduler)")
-    p.add_argument("-q", "--quiet", action="store_true", help="no progress bar, print nothing on success")
-    p.set_defaults(func=_cmd_sweep)

@@ -6,7 +6,7 @@ exit status 2 and exactly one line on stderr that names the file at fault,
 the key, the value where there is one and what is allowed, with no
 traceback; and nothing may be written: the ``--out`` folder does not exist
 afterwards and no temporary folder is left beside it.  This is the contract
-of DESIGN.md ("Contracts that other people rely on").
+of docs/MEASURED.md ("Contracts that other people rely on").
 """
 
 from __future__ import annotations

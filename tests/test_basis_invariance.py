@@ -12,9 +12,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from shellmodes import run
 from shellmodes.case import case_from_dict
-from shellmodes.problem import assemble_surface
+from shellmodes.labelling import label_modes
+from shellmodes.model import energy_scale
+from shellmodes.pipeline import run_case
+from shellmodes.planner import Solved
+from shellmodes.solve import Eigenpairs
 
 SURFACES = {
     # the sphere: every multiplet is (2l+1)-fold degenerate
@@ -37,12 +40,15 @@ def _rotated(vectors, multiplets, rng):
 def test_multiplet_quantities_survive_a_random_basis_rotation(name):
     case = case_from_dict({"surface": SURFACES[name], "resolution": {"degree": 2, "subdivisions": 2},
                            "modes": {"count": 16}})
-    spectrum = run.run_case(case)
-    shape = run.build_shape(case)
-    surface = run.discretise(case, shape)
-    problem = assemble_surface(surface, None)
+    spectrum = run_case(case)
+    problem, plan = spectrum.problem, spectrum.plan
     rotated = _rotated(spectrum.vectors, spectrum.multiplets, np.random.default_rng(14))
-    per_mode, again = run._angular(shape, surface, problem, rotated, spectrum.multiplets)
+    # the labeller of the pipeline, given the same eigenvalues and the rotated vectors
+    pairs = Eigenpairs(lam=spectrum.eigenvalues, vectors=rotated[problem.free], residuals=spectrum.residuals,
+                       orthogonality=0.0, shift=plan.shift, backend="test", requested=None)
+    labels = label_modes(problem, plan, Solved(pairs, rotated, []), energy_scale(case),
+                         case.modes.multiplet_tolerance)
+    per_mode, again = labels.angular, labels.multiplets
     before = [m.as_dict() for m in spectrum.multiplets]
     after = [m.as_dict() for m in again]
     assert len(before) == len(after) and all(m["subspace_l"] is not None for m in before)

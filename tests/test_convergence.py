@@ -43,7 +43,7 @@ from shellmodes.convergence import (
     shared_groups,
 )
 from shellmodes.errors import CaseError, DoubtfulResultWarning
-from shellmodes.run import build_shape
+from shellmodes.model import build_shape
 from shellmodes.units import ENERGY_UNITS
 
 

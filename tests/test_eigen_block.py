@@ -76,7 +76,7 @@ def test_block_completes_the_cut_multiplet(sphere_p2):
     assert len(pairs.lam) == 36
     assert pairs.requested == 30
     l = np.floor(np.sqrt(np.arange(36)))
-    # P2 on 2,562 dofs is accurate to ~1e-4 relative (DESIGN.md); 1e-3 leaves margin
+    # P2 on 2,562 dofs is accurate to ~1e-4 relative (docs/MEASURED.md); 1e-3 leaves margin
     assert np.max(np.abs(pairs.lam[1:] - l[1:] * (l[1:] + 1)) / (l[1:] * (l[1:] + 1))) < 1e-3
 
 

@@ -1,4 +1,4 @@
-"""The output contract of ``shellmodes run`` (DESIGN.md, "Contracts that other people rely on").
+"""The output contract of ``shellmodes run`` (docs/MEASURED.md, "Contracts that other people rely on").
 
 Small cases (degree 1, 2, 3 on a coarse sphere, degree 2 on a hemispherical
 cap) are run through the command line into tmp_path and the files read back:
@@ -27,8 +27,9 @@ from scipy import constants
 
 from shellmodes import outputs
 from shellmodes.case import case_from_dict, case_schema, load_case
+from shellmodes.discretisation import discretise
+from shellmodes.pipeline import run_case
 from shellmodes.problem import assemble_surface
-from shellmodes.run import discretise, run_case
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -211,7 +212,7 @@ def test_vtu_has_every_mode_as_point_field_and_cells_of_the_degree(degree, cell_
     assert len(mesh.points) == data["mesh"]["dofs"]
     assert fields.shape == (data["mesh"]["dofs"], len(data["modes"]))
     assert fields.dtype == np.float64
-    # every node on the sphere of radius R: geometry nodes are exact images (DESIGN.md, Discretisation)
+    # every node on the sphere of radius R: geometry nodes are exact images (docs/MEASURED.md, Discretisation)
     np.testing.assert_allclose(np.linalg.norm(mesh.points, axis=1), RADIUS, rtol=1e-12)
     for name, mode in zip(names, data["modes"]):
         match = re.fullmatch(r"mode(\d{4})_E=(.+)", name)

@@ -246,7 +246,7 @@ def test_y20_deformation_fe_approaches_first_order_like_eps_squared():
             diffs[l].append(lam[block] - first_order_levels({(2, 0): 1.0}, eps, 1.0, l))
         if eps == epsilons[-1]:
             # discretisation error on the deformed surface, Richardson estimate against level 2
-            # (2562 DOFs): with convergence of order h^4 or better (DESIGN.md measures h^4
+            # (2562 DOFs): with convergence of order h^4 or better (docs/MEASURED.md measures h^4
             # already for P2) the level-3 error is at most |level 3 - level 2| / (2^4 - 1);
             # it must stay below 5% of the first-order remainder being fitted (measured 1.4e-7
             # against 1.6e-5 at worst)

@@ -8,7 +8,7 @@ import numpy as np
 
 from shellmodes.case import case_from_dict
 from shellmodes.outputs import spectrum_json
-from shellmodes.run import run_case
+from shellmodes.pipeline import run_case
 
 
 def _ratio_error(amplitude):

@@ -129,7 +129,7 @@ def test_deformed_walls_agree_with_curved_tetrahedra_and_keep_the_volume():
     # (degree 3 x 4) agree with the independent P2 tetrahedra, whose own error here is about 6e-4
     # (measured against finer prisms: 7.15388 at degree 4 x 6, levels 2 and 3 agreeing to 2e-7)
     from shellmodes.case import case_from_dict
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     base = {"shell": {"inner": {"shape": "sphere", "radius": 1.0},
                       "outer": {"shape": "ellipsoid", "axes": [2.0, 2.0, 2.4]}, "layers": 4},
@@ -180,7 +180,7 @@ def test_prism_case_through_the_cli_writes_wedges_and_exact_labels(tmp_path):
     assert main(["run", str(case), "--out", str(tmp_path / "out"), "-q"]) == 0
     data = json.loads((tmp_path / "out" / "spectrum.json").read_text())
     assert data["solver"]["method"] == "separable"
-    assert data["mesh"]["cells"] == "prisms" and data["mesh"]["solver_path"]["path"] == "separable"
+    assert data["mesh"]["cells"] == "prisms" and data["solver"]["plan"]["path"] == "separable"
     modes = data["modes"]
     # hard walls: (n, l) = (1, 0), (1, 1) x 3, (1, 2) x 5 (shell_dirichlet ordering)
     assert [(m["n"], m["dominant_l"]) for m in modes[:9]] == [(1, 0)] + [(1, 1)] * 3 + [(1, 2)] * 5
@@ -203,7 +203,7 @@ def test_prism_case_through_the_cli_writes_wedges_and_exact_labels(tmp_path):
 def test_bad_prism_requests_name_the_key(edit, key, fragment):
     from shellmodes.case import case_from_dict
     from shellmodes.errors import CaseError
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     shell = {"inner": {"shape": "sphere", "radius": 1.0}, "outer": {"shape": "sphere", "radius": 2.0},
              "cells": "prisms", "layers": 1, "radial_degree": 2}
@@ -242,7 +242,7 @@ def _prism_case(count, **extra):
 def test_a_constant_potential_shifts_the_exact_shell_levels():
     # V = 3 everywhere: lambda = k^2 + 3 with k from j_l(ka) y_l(kb) - j_l(kb) y_l(ka) = 0 (scipy.special)
     from shellmodes.case import case_from_dict
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     s = run_case(case_from_dict(_prism_case(4, potential={"expression": "3.0"})))
     assert s.info["solver"]["method"] == "separable"
@@ -254,7 +254,7 @@ def test_a_radial_trap_potential_separates_and_agrees_with_the_assembled_pencil(
     # a shell-shaped trap V = 40 (r - 1.5)^2: the separable path and the assembled 3-D pencil (block
     # shift-invert on the same prisms) solve one discrete problem, so they agree to solver accuracy
     from shellmodes.case import case_from_dict
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     trap = {"expression": "40*(r - 1.5)**2"}
     split = run_case(case_from_dict(_prism_case(9, potential=trap)))
@@ -270,12 +270,12 @@ def test_deformed_prisms_by_lobpcg_with_the_spherical_preconditioner_match_shift
     # one discrete problem, two solvers: CHOLMOD shift-invert Lanczos and LOBPCG preconditioned by the
     # mean-radius sphere's exact inverse; parent labels come from overlaps with that sphere's modes
     from shellmodes.case import case_from_dict
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     data = _prism_case(9, shell={"outer": {"shape": "spheroid", "equatorial_radius": 2.0, "polar_radius": 2.3}})
     direct = run_case(case_from_dict(data))
     iterative = run_case(case_from_dict({**data, "modes": {"count": 9, "method": "lobpcg"}}))
-    assert iterative.info["mesh"]["solver_path"]["path"] == "lobpcg-spherical"
+    assert iterative.info["solver"]["plan"]["path"] == "lobpcg-spherical"
     assert iterative.info["solver"]["backend"] == "spherical-reference"
     n = min(len(direct.eigenvalues), len(iterative.eigenvalues))
     np.testing.assert_allclose(iterative.eigenvalues[:n], direct.eigenvalues[:n], rtol=1e-8)
@@ -321,7 +321,7 @@ def test_star_walls_deformed_independently():
 
     from shellmodes.case import case_from_dict
     from shellmodes.harmonics import real_sph_harm
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     walls = {"inner": {"shape": "star", "radius": 1.0, "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}]},
              "outer": {"shape": "star", "radius": 2.0, "deformation": [{"l": 3, "m": 2, "amplitude": 0.08}]}}
@@ -346,7 +346,7 @@ def test_an_empty_energy_window_names_the_lowest_level():
     import warnings
 
     from shellmodes.case import case_from_dict
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     data = _prism_case(1)
     data["modes"] = {"below": 5.0}

@@ -27,8 +27,8 @@ from shellmodes.case import case_from_dict  # noqa: E402
 from shellmodes.errors import CaseError, MeshError, ShellmodesError  # noqa: E402
 from shellmodes.outputs import mode_field_name, write_outputs  # noqa: E402
 from shellmodes.pictures import PlotExtraMissing, render_modes, spectrum_picture, sphere_ladder  # noqa: E402
+from shellmodes.pipeline import run_case  # noqa: E402
 from shellmodes.report import SAFETY_NOTE, case_toml, find_convergence, load_run, write_report  # noqa: E402
-from shellmodes.run import run_case  # noqa: E402
 
 try:
     import tomllib

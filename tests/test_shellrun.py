@@ -17,7 +17,7 @@ from shellmodes.case import case_from_dict
 from shellmodes.checks import observed_order
 from shellmodes.cli import main
 from shellmodes.errors import CaseError
-from shellmodes.run import run_case
+from shellmodes.pipeline import run_case
 
 
 def _shell(count=10, degree=2, subdivisions=1, layers=3, inner=1.0, outer=2.0, **extra):

@@ -92,7 +92,7 @@ def test_diagonal_problem_exact():
 
 def test_energy_window_with_no_mode_says_so(tmp_path):
     from shellmodes.case import case_from_dict
-    from shellmodes.run import run_case
+    from shellmodes.pipeline import run_case
 
     case = case_from_dict({"surface": {"shape": "cap", "half_angle": 90.0}, "resolution": {"degree": 2,
                            "subdivisions": 2}, "modes": {"below": 1.0}})

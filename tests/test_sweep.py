@@ -279,7 +279,7 @@ def test_rerun_recomputes_only_missing_or_mismatching_steps(tmp_path):
     assert len(second.rows) == len(first.rows) == 4 * len(radii)
     for a, b in zip(first.rows, second.rows):
         assert a["eigenvalue"] == pytest.approx(b["eigenvalue"], rel=1e-12, abs=1e-12)  # same solve, same v0
-    # lam = l(l+1)/R^2 on the sphere; 2e-2 is the level-1 degree-2 mesh's error (162 nodes, DESIGN.md)
+    # lam = l(l+1)/R^2 on the sphere; 2e-2 is the level-1 degree-2 mesh's error (162 nodes, docs/MEASURED.md)
     p_rows = [row for row in second.rows if row["mode"] > 0]
     assert len(p_rows) == 3 * len(radii)
     for row in p_rows:

@@ -6,7 +6,7 @@ from scipy import constants as C
 
 from shellmodes import units
 from shellmodes.case import case_from_dict
-from shellmodes.run import energy_scale
+from shellmodes.model import energy_scale
 
 
 @pytest.mark.parametrize("unit,joules", [

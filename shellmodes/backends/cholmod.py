@@ -1,7 +1,7 @@
 """CHOLMOD sparse Cholesky through the ``cholespy`` wheel (extra ``fast``).
 
 Measured here: 3-D factorizations 8-25x faster than scipy's splu with far
-less fill (DESIGN.md).  cholespy solves in place and wants C-contiguous
+less fill (docs/MEASURED.md).  cholespy solves in place and wants C-contiguous
 float64 arrays, so right-hand sides are copied in.
 """
 
@@ -12,7 +12,7 @@ import importlib.util
 import numpy as np
 import scipy.sparse as sp
 
-from . import register
+from .registry import register
 
 
 def _available() -> bool:

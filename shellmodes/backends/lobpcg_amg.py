@@ -9,7 +9,7 @@ Three pieces:
   picks it while a direct solver is installed;
 - :func:`lobpcg_lowest`, a blocked (BLAS-3) eigen-solver: scipy's LOBPCG with
   the AMG V-cycle of ``K - shift M`` as preconditioner.  A block that ends
-  inside a degenerate multiplet stalls it (DESIGN.md: block 60 on the sphere
+  inside a degenerate multiplet stalls it (docs/MEASURED.md: block 60 on the sphere
   cuts l = 7), so a loose first pass locates the spectrum and the block is
   then ended at the first relative gap above the requested count;
 - :func:`estimate_factor_memory`, a cheap estimate of the Cholesky factor's
@@ -33,7 +33,7 @@ import scipy.sparse.linalg as sla
 from scipy.sparse.csgraph import dijkstra
 
 from ..errors import SolverError
-from . import register
+from .registry import register
 
 __all__ = ["factorize", "lobpcg_lowest", "estimate_factor_memory", "FactorEstimate", "BYTES_PER_ENTRY",
            "choose_eigen_path", "available_memory"]

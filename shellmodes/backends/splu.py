@@ -1,11 +1,11 @@
-"""scipy's SuperLU: always available, slow fill-in in 3-D (see DESIGN.md)."""
+"""scipy's SuperLU: always available, slow fill-in in 3-D (see docs/MEASURED.md)."""
 
 from __future__ import annotations
 
 import scipy.sparse as sp
 import scipy.sparse.linalg as sla
 
-from . import register
+from .registry import register
 
 
 @register("splu", available=lambda: True, priority=0)

@@ -12,6 +12,7 @@ import numpy as np
 
 from ..errors import GeometryError
 from ..harmonics import angles, real_sph_harm
+from .areas import ellipsoid_area, spheroid_area
 from .base import Shape, register
 from .reference import icosphere
 
@@ -73,7 +74,6 @@ class Ellipsoid(_Icospherical):
         return points / s[:, None]
 
     def exact_area(self):
-        from ..references import ellipsoid_area
         return float(ellipsoid_area(*self.axes))
 
     def parameters(self):
@@ -92,7 +92,6 @@ class Spheroid(Ellipsoid):
         super().__init__((equatorial_radius, equatorial_radius, polar_radius))
 
     def exact_area(self):
-        from ..references import spheroid_area
         return float(spheroid_area(self.equatorial_radius, self.polar_radius))
 
     def parameters(self):

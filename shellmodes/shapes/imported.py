@@ -4,7 +4,7 @@ Degree-2 geometry comes from quadratic (triangle6) cells when the file has
 them; with ``snap`` set to an analytic shape every geometry node (of any
 degree) is snapped onto that exact surface.  Otherwise the geometry is the
 flat triangulation, which caps eigenvalue accuracy at O(h^2) whatever the
-element degree (measured: see DESIGN.md), and a warning says so.
+element degree (measured: see docs/MEASURED.md), and a warning says so.
 """
 
 from __future__ import annotations

@@ -34,7 +34,7 @@ from skfem.refdom import RefTri
 from ..errors import GeometryError
 from ..shapes.reference import icosphere
 from ..surface import lagrange_element, lattice_cells
-from .shellmesh import _as_wall, _check_walls
+from .shellmesh import as_wall, check_wall_order
 
 __all__ = ["PrismShell", "prism_shell", "assemble_prisms", "kronecker_factors", "lobatto_nodes", "export_prisms"]
 
@@ -204,7 +204,7 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
         raise GeometryError(f"need at least two walls (one medium), got {len(walls)}")
     if walls[0] is None:
         raise GeometryError("prisms need an inner wall; a ball's centre needs tetrahedra")
-    funcs = tuple(_as_wall(w, i) for i, w in enumerate(walls))
+    funcs = tuple(as_wall(w, i) for i, w in enumerate(walls))
     nreg = len(funcs) - 1
     layers = ((int(layers_per_region),) * nreg if isinstance(layers_per_region, (int, np.integer))
               else tuple(int(n) for n in layers_per_region))
@@ -218,7 +218,7 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
     g = degree if geometry_degree is None else int(geometry_degree)
     if not 1 <= q <= 12:
         raise GeometryError(f"radial degree {q} is outside 1..12")
-    _check_walls(funcs, min(int(level), 6))
+    check_wall_order(funcs, min(int(level), 6))
 
     directions, triangles = icosphere(int(level))
     mesh = skfem.MeshTri(np.ascontiguousarray(directions[:, :2].T), np.ascontiguousarray(triangles.T))

@@ -107,8 +107,7 @@ def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None 
     ``lam_1(mu)`` lies above every mode kept, so no mode is missed.
     Residuals are those of the full Kronecker operator.
     """
-    from ..solve import lowest_modes
-    from ..spectrum import group_multiplets
+    from ..solve import group_multiplets, lowest_modes
 
     solver = surface_solver or (lambda k: lowest_modes(Ks, Ms, count=k, lower_bound=0.0, scale=1.0))
     f = np.asarray(radial_free)

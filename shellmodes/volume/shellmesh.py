@@ -191,7 +191,7 @@ def _radii(wall, directions: np.ndarray, index: int) -> np.ndarray:
     return r
 
 
-def _as_wall(wall, index: int):
+def as_wall(wall, index: int):
     if wall is None:
         if index != 0:
             raise GeometryError(f"wall {index} is None; only the first wall may be None (a ball)")
@@ -204,7 +204,7 @@ def _as_wall(wall, index: int):
         raise GeometryError(f"wall {index} is {wall!r}; give a number or a function of directions") from None
 
 
-def _check_walls(walls: Sequence, level: int) -> float | None:
+def check_wall_order(walls: Sequence, level: int) -> float | None:
     """Check radii on a dense direction set; return the smallest radius of wall 1 for a ball."""
     dense, _ = icosphere(min(max(level + 2, 4), 6))
     radii = [None if w is None else _radii(w, dense, i) for i, w in enumerate(walls)]
@@ -277,7 +277,7 @@ def shell_mesh(
     """
     if len(interfaces) < 2:
         raise GeometryError(f"need at least two walls (one region), got {len(interfaces)}")
-    walls = tuple(_as_wall(w, i) for i, w in enumerate(interfaces))
+    walls = tuple(as_wall(w, i) for i, w in enumerate(interfaces))
     nreg = len(walls) - 1
     if isinstance(layers_per_region, (int, np.integer)):
         layers = (int(layers_per_region),) * nreg
@@ -294,7 +294,7 @@ def shell_mesh(
         raise GeometryError(f"level {level} is outside 0..7")
     if ball and layers[0] > 0 and not 0.0 < core_fraction < 1.0:
         raise GeometryError(f"core_fraction {core_fraction} must lie strictly between 0 and 1")
-    core_scale = _check_walls(walls, level)
+    core_scale = check_wall_order(walls, level)
 
     directions, triangles = icosphere(level)
     nd = len(directions)

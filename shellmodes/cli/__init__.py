@@ -1,0 +1,65 @@
+"""Command line: ``shellmodes run | check | converge | sweep | report | thin-shell | schema | keys``.
+
+The only package that prints or sets exit codes: 0 success, 2 bad input (one
+line on stderr, no traceback), 1 internal failure.  One module per command,
+each with ``add_command(subparsers)``; library modules are imported only when a
+command runs, so ``shellmodes --help`` starts fast.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import logging
+import sys
+import warnings
+
+from ..errors import ShellmodesError
+from .run import default_out
+
+__all__ = ["main", "default_out", "COMMANDS"]
+
+#: the command modules of this package, in the order ``--help`` lists them
+COMMANDS = ("run", "check", "converge", "sweep", "report", "thin_shell", "keys")
+
+
+def _parser() -> argparse.ArgumentParser:
+    from .._version import __version__
+
+    p = argparse.ArgumentParser(prog="shellmodes", description="Eigenmodes of particles on curved surfaces.")
+    p.add_argument("--version", action="version", version=f"shellmodes {__version__}")
+    p.add_argument("-v", "--verbose", action="store_true", help="log progress")
+    sub = p.add_subparsers(dest="command", required=True)
+    for name in COMMANDS:
+        importlib.import_module(f"{__name__}.{name}").add_command(sub)
+    return p
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    print(f"warning: {message}", file=sys.stderr)
+
+
+def main(argv=None) -> int:
+    args = _parser().parse_args(argv)
+    logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING, format="%(message)s")
+    warnings.showwarning = _show_warning
+    try:
+        return args.func(args)
+    except ShellmodesError as exc:
+        print(f"shellmodes: error: {exc}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:  # output piped into a pager or head that closed early
+        return 0
+    except KeyboardInterrupt:
+        print("shellmodes: interrupted; no file was left half-written (finished sweep steps are kept)",
+              file=sys.stderr)
+        return 130
+    except Exception as exc:  # an internal failure, not the user's input
+        print(f"shellmodes: internal error: {type(exc).__name__}: {exc} (please report this)", file=sys.stderr)
+        if args.verbose:
+            raise
+        return 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

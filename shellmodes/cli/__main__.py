@@ -1,0 +1,7 @@
+"""``python -m shellmodes.cli``: the same as the ``shellmodes`` command."""
+
+import sys
+
+from . import main
+
+sys.exit(main())

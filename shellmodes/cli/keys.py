@@ -1,0 +1,26 @@
+"""``shellmodes schema`` and ``shellmodes keys``: the case-file JSON Schema and the key reference."""
+
+from __future__ import annotations
+
+import json
+
+
+def add_command(subparsers) -> None:
+    s = subparsers.add_parser("schema", help="print the case-file JSON Schema")
+    s.set_defaults(func=schema)
+    k = subparsers.add_parser("keys", help="print every case-file key with its meaning (Markdown)")
+    k.set_defaults(func=keys)
+
+
+def schema(args) -> int:
+    from ..case import case_schema
+
+    print(json.dumps(case_schema(), indent=2))
+    return 0
+
+
+def keys(args) -> int:
+    from ..docs import case_keys_markdown
+
+    print(case_keys_markdown())
+    return 0

@@ -1,0 +1,48 @@
+"""``shellmodes run CASE [--out DIR] [--report] [-q]``: solve one case file and write its outputs."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+
+def default_out(case_path: Path) -> Path:
+    """The output folder of a case file: its name without the suffix, beside it."""
+    return case_path.with_suffix("") if case_path.suffix else case_path.parent / (case_path.name + "-out")
+
+
+def add_command(subparsers) -> None:
+    r = subparsers.add_parser("run", help="solve one case file")
+    r.add_argument("case", help="TOML case file")
+    r.add_argument("--out", help="output folder (default: the case file's name beside it)")
+    r.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
+    r.add_argument("--report", action="store_true", help="also write report.html (needs the plot extra)")
+    r.set_defaults(func=main)
+
+
+def main(args) -> int:
+    from ..case import load_case
+    from ..errors import CaseError
+    from ..outputs import write_outputs
+    from ..pipeline import run_case
+
+    case_path = Path(args.case)
+    case = load_case(case_path)
+    out = Path(args.out) if args.out else default_out(case_path)
+    if out.exists() and not out.is_dir():
+        raise CaseError(f"--out {str(out)!r} is an existing file; give a folder", str(case_path))
+    spectrum = run_case(case)
+    files = None if case.output.vtu else ["spectrum.json", "spectrum.csv", "run.log"]
+    write_outputs(spectrum, out, files)
+    if args.report:
+        from ..report import write_report
+
+        write_report(out)
+    if not args.quiet:
+        info = spectrum.info
+        mesh = info["mesh"]
+        print(f"{case.title or case_path.name}: degree {mesh['degree']}, {mesh['dofs']} dofs, "
+              f"{len(spectrum.eigenvalues)} modes, {info['solver']['backend']}, "
+              f"{info['timings']['total']:.2f} s")
+        print(spectrum.summary())
+        print(f"wrote {out}/" + (" (with report.html)" if args.report else ""))
+    return 0

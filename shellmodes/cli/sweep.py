@@ -1,0 +1,50 @@
+"""``shellmodes sweep CASE``: solve a case at every step of its [sweep] table and follow the levels."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+
+def add_command(subparsers) -> None:
+    """Register ``shellmodes sweep CASE [--out DIR] [--workers N] [--scheduler ADDR] [--quiet]``."""
+    p = subparsers.add_parser("sweep", help="solve a case at every step of its [sweep] table and follow the levels")
+    p.add_argument("case", help="TOML case file with a [sweep] table")
+    p.add_argument("--out", help="output folder (default: the case file's name beside it); finished steps "
+                   "in it are reused")
+    p.add_argument("--workers", type=int, help="local worker processes (default: sweep.workers)")
+    p.add_argument("--scheduler", help="address tcp://host:port of a running Dask scheduler (default: "
+                   "sweep.scheduler)")
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress bar, print nothing on success")
+    p.set_defaults(func=main)
+
+
+def main(args) -> int:
+    from ..case import load_case
+    from ..sweep import run_sweep
+    from .run import default_out
+
+    case_path = Path(args.case)
+    case = load_case(case_path)
+    out = Path(args.out) if args.out else default_out(case_path)
+    bars = []  # made at the first report, when the number of steps is known
+
+    def progress(done, total):
+        if args.quiet:
+            return
+        if not bars:
+            from tqdm import tqdm
+
+            bars.append(tqdm(total=total, initial=done, file=sys.stderr, unit="step", desc="sweep"))
+        bars[0].update(done - bars[0].n)
+
+    try:
+        result = run_sweep(case, out, workers=args.workers, scheduler=args.scheduler, progress=progress)
+    finally:
+        for bar in bars:
+            bar.close()
+    if not args.quiet:
+        print(f"{case.title or case_path.name}: {len(result.steps)} steps ({len(result.solved)} solved, "
+              f"{len(result.reused)} reused), {len(result.tracks)} tracks")
+        print(f"wrote {out}/ (sweep.csv, sweep.json, levels.png, series.pvd, steps/)")
+    return 0

@@ -1,0 +1,29 @@
+"""``shellmodes thin-shell CASE --thickness D1,D2``: a surface case beside shells of finite thickness."""
+
+from __future__ import annotations
+
+
+def add_command(subparsers) -> None:
+    p = subparsers.add_parser("thin-shell", help="compare a surface case with shells of finite thickness")
+    p.add_argument("case", help="TOML case file with a [surface] table")
+    p.add_argument("--thickness", required=True, help="comma-separated wall separations d, in units.length")
+    p.add_argument("--layers", type=int, default=None, help="radial element layers across each shell "
+                   "(default 1 for prisms, 6 for tetrahedra)")
+    p.add_argument("--cells", choices=["prisms", "tetrahedra"], default="prisms",
+                   help="shell cells: layered prisms with exact walls (default) or curved P2 tetrahedra")
+    p.set_defaults(func=main)
+
+
+def main(args) -> int:
+    from ..bridge import thin_shell_comparison
+    from ..case import load_case
+    from ..errors import CaseError
+
+    case = load_case(args.case)
+    try:
+        values = [float(v) for v in args.thickness.split(",") if v.strip()]
+    except ValueError:
+        raise CaseError(f"value {args.thickness!r}: give comma-separated numbers", args.case, "--thickness") from None
+    result = thin_shell_comparison(case, values, layers=args.layers, cells=args.cells)
+    print(result.table())
+    return 0

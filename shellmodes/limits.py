@@ -1,0 +1,30 @@
+"""Every default and limit of shellmodes that is not a schema field default, stated once.
+
+A light module (no imports): the case schema, the pipeline, the planner and the
+command line all read their numbers from here, so a limit changes in one place.
+"""
+
+#: most halvings of a surface's reference mesh (the icosahedron at 9 has 5.2 million triangles)
+MAX_SUBDIVISIONS = 9
+#: subdivisions of a surface's reference mesh when a case gives neither subdivisions nor edge_length
+DEFAULT_SUBDIVISIONS = 3
+#: subdivisions of a shell's icosphere of directions by default (3-D meshes grow as 4^level x layers)
+DEFAULT_SHELL_SUBDIVISIONS = 2
+#: most subdivisions of a shell's directions, per cell kind
+MAX_SHELL_SUBDIVISIONS = {"prisms": 8, "tetrahedra": 7}
+#: highest radial degree of layered prisms (Gauss-Lobatto nodes stay well conditioned up to here)
+MAX_RADIAL_DEGREE = 12
+#: modes found when a case gives neither modes.count nor modes.below
+DEFAULT_MODE_COUNT = 20
+#: most modes one case may ask for
+MAX_MODE_COUNT = 100_000
+#: modes a solve by energy window (modes.below) starts from, and assumes when planning memory
+WINDOW_START_COUNT = 40
+#: free unknowns from which deformed prism shells use LOBPCG with the spherical preconditioner
+#: instead of factorizing K - shift M: high-order prisms fill in badly (P4 x Q8, 71,694 unknowns:
+#: 151 s with CHOLMOD shift-invert on a 2-core machine, benchmarks/README.md)
+PRISM_ITERATIVE_FROM = 15_000
+#: finest refinement ``shellmodes converge`` goes to by default
+CONVERGE_MAX_SUBDIVISIONS = 6
+#: multiplets whose first mode a report renders by default
+DEFAULT_RENDERS = 6
