@@ -253,6 +253,22 @@ def discretise(case: Case, shape=None):
 class _Volume(Discretisation):
     labeller = "volume"
 
+    def __init__(self, raw):
+        self.raw = raw
+
+    def assemble(self, media: Media, potential=None) -> Operators:
+        t0 = time.perf_counter()
+        function = point_potential(potential)
+        K, M = self._assembled(media.inverse_mass, media.offsets, function)
+        lower = media.lowest_offset
+        if function is not None:
+            lower = min(lower, float(np.min(function(*self.nodes.T))))
+        return Operators(sp.csr_matrix(K), sp.csr_matrix(M), lower, time.perf_counter() - t0)
+
+    @abstractmethod
+    def _assembled(self, inverse_mass: dict, offsets: dict, function):
+        """(K, M) of the wrapped object's own assembler."""
+
     @property
     def region_ids(self) -> list[int]:
         return self.raw.region_ids
@@ -283,9 +299,6 @@ class TetrahedralDiscretisation(_Volume):
 
     kind = "tetrahedra"
 
-    def __init__(self, raw):
-        self.raw = raw
-
     @property
     def nelements(self) -> int:
         return int(self.raw.mesh.nelements)
@@ -296,14 +309,10 @@ class TetrahedralDiscretisation(_Volume):
         fixed = [w for w in fixed if w != "rim"]
         return free_dofs(self.raw, fixed) if fixed else np.arange(self.ndofs)
 
-    def assemble(self, media: Media, potential=None) -> Operators:
+    def _assembled(self, inverse_mass, offsets, function):
         from .volume.assemble import assemble_volume
 
-        t0 = time.perf_counter()
-        function = point_potential(potential)
-        K, M = assemble_volume(self.raw, media.inverse_mass, media.offsets, function)
-        return Operators(sp.csr_matrix(K), sp.csr_matrix(M), _lower_bound(self, media, function),
-                         time.perf_counter() - t0)
+        return assemble_volume(self.raw, inverse_mass, offsets, function)
 
     def mass_matrix(self) -> sp.csr_matrix:
         from .volume.assemble import assemble_volume
@@ -324,9 +333,6 @@ class PrismDiscretisation(_Volume):
 
     kind = "prisms"
 
-    def __init__(self, raw):
-        self.raw = raw
-
     @property
     def nelements(self) -> int:
         return int(self.raw.nelements)
@@ -337,14 +343,10 @@ class PrismDiscretisation(_Volume):
     def free_radial(self, fixed) -> np.ndarray:
         return self.raw.free_radial([w for w in fixed if w != "rim"])
 
-    def assemble(self, media: Media, potential=None) -> Operators:
+    def _assembled(self, inverse_mass, offsets, function):
         from .volume.prisms import assemble_prisms
 
-        t0 = time.perf_counter()
-        function = point_potential(potential)
-        K, M = assemble_prisms(self.raw, media.inverse_mass, media.offsets, function)
-        return Operators(sp.csr_matrix(K), sp.csr_matrix(M), _lower_bound(self, media, function),
-                         time.perf_counter() - t0)
+        return assemble_prisms(self.raw, inverse_mass, offsets, function)
 
     def separates(self) -> bool:
         """Whether the walls are concentric spheres about the origin (the matrices are Kronecker sums)."""
@@ -377,13 +379,6 @@ class PrismDiscretisation(_Volume):
     def describe(self) -> str:
         return (f"mesh: degree {self.degree} x radial {self.raw.radial_degree}, {self.nelements} prisms, "
                 f"{self.ndofs} dofs, h = {self.h:.4g}")
-
-
-def _lower_bound(disc: Discretisation, media: Media, function) -> float:
-    lower = media.lowest_offset
-    if function is not None:
-        lower = min(lower, float(np.min(function(*disc.nodes.T))))
-    return lower
 
 
 # ------------------------------------------------------------------------------------------------ builders

@@ -44,6 +44,7 @@ from .errors import DoubtfulResultWarning, GeometryError, ProblemError
 from .harmonics import parent_degree
 from .limits import PRISM_ITERATIVE_FROM, WINDOW_START_COUNT
 from .model import Media
+from .problem import expand
 from .solve import Eigenpairs, lowest_modes, resolve_method
 from .volume.assemble import restricted
 
@@ -112,11 +113,7 @@ class Problem:
 
     def expand(self, U: np.ndarray) -> np.ndarray:
         """Vectors on every dof (zero on fixed walls) from vectors on the free dofs."""
-        if U.shape[0] == self.disc.ndofs:
-            return U
-        full = np.zeros((self.disc.ndofs,) + U.shape[1:])
-        full[self.free] = U
-        return full
+        return expand(U, self.free, self.disc.ndofs)
 
     @property
     def separable(self) -> bool:

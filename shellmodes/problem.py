@@ -21,7 +21,7 @@ import skfem
 from skfem import BilinearForm
 from skfem.helpers import dot, grad
 
-from .harmonics import angles
+from .model import point_potential
 from .surface import CurvedSurface
 from .volume.assemble import restricted
 
@@ -45,11 +45,16 @@ def potential_form(u, v, w):
 
 def potential_at(expression, x: np.ndarray) -> np.ndarray:
     """Evaluate a compiled expression at global points x of shape (3, ...)."""
-    flat = x.reshape(3, -1).T
-    theta, phi = angles(flat)
-    r = np.linalg.norm(flat, axis=1)
-    values = expression(x=flat[:, 0], y=flat[:, 1], z=flat[:, 2], r=r, theta=theta, phi=phi)
-    return values.reshape(x.shape[1:])
+    return point_potential(expression)(*x)
+
+
+def expand(U: np.ndarray, free: np.ndarray, ndofs: int) -> np.ndarray:
+    """Vectors on all ``ndofs`` dofs (zero elsewhere) from vectors on the ``free`` dofs."""
+    if U.shape[0] == ndofs:
+        return U
+    full = np.zeros((ndofs,) + U.shape[1:])
+    full[free] = U
+    return full
 
 
 @dataclass(frozen=True, eq=False)
@@ -71,11 +76,7 @@ class SurfaceProblem:
 
     def expand(self, U: np.ndarray) -> np.ndarray:
         """Full nodal vectors (zeros on a hard rim) from free-DOF vectors."""
-        if len(self.free) == self.surface.ndofs:
-            return U
-        full = np.zeros((self.surface.ndofs,) + U.shape[1:])
-        full[self.free] = U
-        return full
+        return expand(U, self.free, self.surface.ndofs)
 
     @property
     def spectral_scale(self) -> float:
