@@ -13,9 +13,9 @@ import time
 
 import numpy as np
 
-from shellmodes.problem import assemble_surface
+from shellmodes.fem.forms import assemble_surface
+from shellmodes.fem.surface import curved_surface
 from shellmodes.shapes.reference import icosahedron
-from shellmodes.surface import curved_surface
 
 
 def geodesic_sphere(nu: int) -> tuple[np.ndarray, np.ndarray]:

@@ -1,7 +1,7 @@
 """The blocked iteration against shift-invert Lanczos on large sphere problems.
 
 For each size, the same assembled P2 problem (unit sphere, geodesic mesh)
-goes through :func:`shellmodes.solve.lowest_modes` once with
+goes through :func:`shellmodes.eigen.solve.lowest_modes` once with
 ``method="lanczos"`` and once with ``method="block"``, each in its own
 process so that peak memory (VmHWM) belongs to one method.  Both use the
 same factorization back-end, shift, mode count and multiplet completion;
@@ -32,7 +32,7 @@ def one(dofs: int, degree: int, count: int, method: str) -> dict:
     """Assemble and solve one problem (runs inside its own process)."""
     from _problems import max_relative_error, peak_memory_gib, sphere_problem
 
-    from shellmodes.solve import lowest_modes
+    from shellmodes.eigen.solve import lowest_modes
 
     problem, build = sphere_problem(dofs, degree)
     t0 = time.perf_counter()

@@ -2,7 +2,7 @@
 
 The unit sphere with degree-2 curved elements on a frequency-158 geodesic
 mesh (998,562 unknowns; see ``_problems.py``), solved through the public
-path :func:`shellmodes.solve.lowest_modes` with ``method="auto"`` (which
+path :func:`shellmodes.eigen.solve.lowest_modes` with ``method="auto"`` (which
 picks the blocked iteration at this size).  The whole run (mesh, assembly,
 factorization, eigen-iteration, checks) is timed; peak memory is the
 process high-water mark (VmHWM).  Every eigenvalue is checked against the
@@ -42,7 +42,7 @@ def main(argv=None) -> int:
 
     from _problems import max_relative_error, peak_memory_gib, sphere_ladder, sphere_problem
 
-    from shellmodes.solve import lowest_modes
+    from shellmodes.eigen.solve import lowest_modes
 
     load = os.getloadavg()
     t0 = time.perf_counter()

@@ -10,7 +10,7 @@ imports included in ``wall``):
   shift-invert on K, M), and the P2-tetrahedron baseline (the best point of
   ``bench_shell.py ladder`` inside 60 s), all in the same run.  Errors are
   against the roots of j_l(ka) y_l(kb) - j_l(kb) y_l(ka) (scipy.special,
-  :func:`shellmodes.references.shell_dirichlet`), each (2l+1)-fold.
+  :func:`shellmodes.studies.references.shell_dirichlet`), each (2l+1)-fold.
 - ``million``: a shell with more than 1,000,000 free DOFs, 50 modes, on the
   separable path: time, peak memory, error; and the only factorization that
   path makes (the surface pencil K_s + M_s) with CHOLMOD and with scipy's
@@ -44,7 +44,7 @@ COUNT = 50
 def _exact(count: int):
     import numpy as np
 
-    from shellmodes.references import shell_dirichlet
+    from shellmodes.studies.references import shell_dirichlet
 
     values = [float(k) ** 2 for l in range(14) for k in shell_dirichlet(l, 3, 1.0, 2.0) for _ in range(2 * l + 1)]
     return np.sort(values)[:count]
@@ -71,7 +71,7 @@ def child(point: dict) -> dict:
     import numpy as np
 
     t0 = time.perf_counter()
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.pipeline import run_case
 
     t_import = time.perf_counter() - t0
@@ -96,7 +96,7 @@ def _factor_both(A, solves: int) -> dict:
     """Factorization time, mean solve time and residual of CHOLMOD and of splu (default ordering) on A."""
     import numpy as np
 
-    from shellmodes.backends import get_backend
+    from shellmodes.eigen.backends import get_backend
 
     b = np.ones(A.shape[0])
     row = {}
@@ -119,10 +119,10 @@ def assembled_factor_child(payload: dict) -> dict:
 
     import numpy as np
 
-    from shellmodes.case import Wall
-    from shellmodes.model import wall_function
-    from shellmodes.volume import restricted
-    from shellmodes.volume.prisms import assemble_prisms, prism_shell
+    from shellmodes.case.model import wall_function
+    from shellmodes.case.schema import Wall
+    from shellmodes.fem.assemble import restricted
+    from shellmodes.fem.prisms import assemble_prisms, prism_shell
 
     outer = wall_function(Wall(**ELLIPSOID))
     disc = prism_shell([1.0, outer], payload["level"], payload["layers"], degree=payload["degree"],
@@ -142,7 +142,7 @@ def factor_child(level: int, degree: int) -> dict:
     """CHOLMOD and splu (default ordering) on the separable path's one matrix, K_s + M_s."""
     import resource
 
-    from shellmodes.volume.prisms import kronecker_factors, prism_shell
+    from shellmodes.fem.prisms import kronecker_factors, prism_shell
 
     disc = prism_shell([1.0, 2.0], level, 1, degree=degree, radial_degree=1)
     Ks, Ms = kronecker_factors(disc, {0: 1.0})[:2]

@@ -5,21 +5,21 @@ child's high-water mark, VmHWM):
 
 - ``ladder``: P1 and P2 curved tetrahedra with the icosphere level of the
   directions and the radial layers refined together, (level, layers) =
-  (L, 2^(L-1)), CHOLMOD through :func:`shellmodes.solve.lowest_modes`.  The
+  (L, 2^(L-1)), CHOLMOD through :func:`shellmodes.eigen.solve.lowest_modes`.  The
   max relative error of the first 50 eigenvalues against the exact values
-  (:func:`shellmodes.references.shell_dirichlet`, lambda = k^2, each
+  (:func:`shellmodes.studies.references.shell_dirichlet`, lambda = k^2, each
   (2l+1)-fold), wall times (mesh, assembly, factorization, eigen-solve) and
   peak memory; fits of log error and log time against log DOFs give the time
   to reach 1e-4 and 1e-6 (extrapolated beyond the largest point, and said so).
 - ``compare``: the same matrices (the mesh is deterministic) solved with
   scipy's ``splu`` (default ordering) and CHOLMOD through ``lowest_modes``,
-  and with LOBPCG + AMG (:func:`shellmodes.backends.lobpcg_amg.lobpcg_lowest`),
+  and with LOBPCG + AMG (:func:`shellmodes.eigen.backends.lobpcg_amg.lobpcg_lowest`),
   interleaved in one run; ratios are against CHOLMOD measured in the same run.
 - ``large``: one P2 point near a million DOFs (CHOLMOD, ``method="auto"``)
   under a hard timeout and a memory guard (the parent kills the child when
   its VmRSS passes ``--memory-guard`` GiB or the machine's MemAvailable falls
   below 1 GiB; RLIMIT_AS in the child is a backstop), with
-  :func:`~shellmodes.backends.lobpcg_amg.choose_eigen_path`'s verdict and
+  :func:`~shellmodes.eigen.backends.lobpcg_amg.choose_eigen_path`'s verdict and
   factor estimate beside the measured peak.
 
 Usage:
@@ -62,7 +62,7 @@ def exact_eigenvalues(count: int = COUNT, l_max: int = 8, radial: int = 3) -> np
     Built from l = 0..l_max and n = 1..radial; refuses when a value left out
     (l = l_max + 1 or n = radial + 1) could belong among the first ``count``.
     """
-    from shellmodes.references import shell_dirichlet
+    from shellmodes.studies.references import shell_dirichlet
 
     values = []
     for l in range(l_max + 1):
@@ -97,7 +97,9 @@ def _available_gib() -> float:
 
 def build(degree: int, level: int, layers: int):
     """Restricted (K, M) of the hard-wall shell, the free nodes and build timings."""
-    from shellmodes.volume import assemble_volume, discretise, free_dofs, restricted, shell_mesh
+    from shellmodes.fem.assemble import assemble_volume, free_dofs, restricted
+    from shellmodes.fem.shellmesh import shell_mesh
+    from shellmodes.fem.tetrahedra import discretise
 
     t0 = time.perf_counter()
     disc = discretise(shell_mesh([INNER, OUTER], level=level, layers_per_region=layers), degree)
@@ -122,9 +124,9 @@ def point(degree: int, level: int, layers: int, solver: str, estimate: bool, mem
     if memory_limit:
         limit = int(memory_limit * 2**30)
         resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
-    from shellmodes.backends import get_backend
-    from shellmodes.backends.lobpcg_amg import choose_eigen_path, lobpcg_lowest
-    from shellmodes.solve import lowest_modes
+    from shellmodes.eigen.backends import get_backend
+    from shellmodes.eigen.backends.lobpcg_amg import choose_eigen_path, lobpcg_lowest
+    from shellmodes.eigen.solve import lowest_modes
 
     t_start = time.perf_counter()
     K, M, points, row = build(degree, level, layers)

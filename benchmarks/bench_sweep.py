@@ -36,9 +36,9 @@ from pathlib import Path
 
 import numpy as np
 
-from shellmodes.case import case_from_dict
-from shellmodes.references import sphere_eigenvalues
-from shellmodes.sweep import run_sweep
+from shellmodes.case.schema import case_from_dict
+from shellmodes.studies.references import sphere_eigenvalues
+from shellmodes.studies.sweep import run_sweep
 
 
 def sweep_case(steps: int, modes: int, degree: int, subdivisions: int):

@@ -24,7 +24,7 @@ TABLE = ROOT / "tests" / "data" / "eigenvalue_baseline.json"
 
 def current(only: str | None = None) -> dict:
     from shellmodes import load_case, run_case
-    from shellmodes.checks import run_checks
+    from shellmodes.studies.checks import run_checks
 
     out = {"cases": {}, "checks": {}}
     for path in sorted((ROOT / "cases").glob("*.toml")):

@@ -23,7 +23,7 @@ meshio version that writes them):
   chord midpoints projected radially), so the curved triangles follow the
   shape to third order in the edge length.
 
-Each file is read back and validated with :func:`shellmodes.meshfile.read_surface_mesh`
+Each file is read back and validated with :func:`shellmodes.meshfiles.surface.read_surface_mesh`
 before the script reports success.
 """
 
@@ -35,7 +35,7 @@ from pathlib import Path
 import meshio
 import numpy as np
 
-from shellmodes.meshfile import read_surface_mesh
+from shellmodes.meshfiles.surface import read_surface_mesh
 from shellmodes.shapes.reference import icosphere
 
 FLAT_LEVEL = 3

@@ -1,9 +1,9 @@
 """The one pipeline: case -> discretisation -> problem -> solver plan -> eigenpairs -> labels -> spectrum.
 
 :func:`run_case` does everything ``shellmodes run`` does except writing files
-(:func:`shellmodes.outputs.write_outputs`) and printing.  Surfaces, shells and
+(:func:`shellmodes.io.outputs.write_outputs`) and printing.  Surfaces, shells and
 balls go through the same steps; they differ only in their discretisation
-(:mod:`shellmodes.discretisation`) and their labeller (:mod:`shellmodes.labelling`).
+(:mod:`shellmodes.fem.discretisation`) and their labeller (:mod:`shellmodes.spectrum.labelling`).
 Errors of the lower layers that name a case key (:class:`~shellmodes.errors.ProblemError`)
 become :class:`~shellmodes.errors.CaseError` with the case file here.
 """
@@ -16,11 +16,7 @@ import warnings
 
 import numpy as np
 
-from .case import Case
-from .discretisation import Discretisation, build_discretisation, fixed_walls
-from .errors import CaseError, ProblemError, ShellmodesError
-from .labelling import Labels, label_modes
-from .model import (
+from shellmodes.case.model import (
     EnergyScale,
     compiled_potential,
     energy_scale,
@@ -29,8 +25,12 @@ from .model import (
     spherically_symmetric,
     versions,
 )
-from .planner import Problem, Solved, SolverPlan, plan_solver, solve_plan
-from .spectrum import Spectrum
+from shellmodes.case.schema import Case
+from shellmodes.eigen.planner import Problem, Solved, SolverPlan, plan_solver, solve_plan
+from shellmodes.errors import CaseError, ProblemError, ShellmodesError
+from shellmodes.fem.discretisation import Discretisation, build_discretisation, fixed_walls
+from shellmodes.spectrum.labelling import Labels, label_modes
+from shellmodes.spectrum.multiplets import Spectrum
 
 __all__ = ["run_case", "build_problem", "solve_case"]
 
@@ -40,7 +40,7 @@ log = logging.getLogger(__name__)
 def build_problem(case: Case, disc: Discretisation, scale: EnergyScale) -> Problem:
     """The discretised problem of a case: media, potential and walls on ``disc`` (assembled lazily)."""
     if case.surface is not None:
-        from .model import Media
+        from shellmodes.case.model import Media
 
         problem_media = Media.uniform(disc.region_ids)
         symmetric = False
@@ -85,7 +85,7 @@ def run_case(case: Case) -> Spectrum:
 
     Examples
     --------
-    >>> from shellmodes.case import case_from_dict
+    >>> from shellmodes.case.schema import case_from_dict
     >>> s = run_case(case_from_dict({"surface": {"shape": "sphere"}, "resolution": {"degree": 2,
     ...     "subdivisions": 2}, "modes": {"count": 4}}))
     >>> [m.size for m in s.multiplets]

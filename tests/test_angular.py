@@ -1,4 +1,4 @@
-"""Angular content of finite-element modes (shellmodes.angular)."""
+"""Angular content of finite-element modes (shellmodes.spectrum.angular)."""
 
 from __future__ import annotations
 
@@ -13,13 +13,13 @@ from scipy.special import sph_harm_y
 from skfem import asm
 from skfem.models.poisson import laplace, mass
 
-import shellmodes.angular
-from shellmodes.angular import angular_content, harmonic_projector, multiplet_content
+import shellmodes.spectrum.angular
 from shellmodes.errors import MeshQualityWarning
+from shellmodes.fem.surface import curved_surface
 from shellmodes.harmonics import angles, harmonic_labels, real_sph_harm, real_sph_harm_basis
-from shellmodes.perturbation import sphere_quadrature
 from shellmodes.shapes.reference import icosphere
-from shellmodes.surface import curved_surface
+from shellmodes.spectrum.angular import angular_content, harmonic_projector, multiplet_content
+from shellmodes.spectrum.perturbation import sphere_quadrature
 
 
 def _unit(x):
@@ -54,7 +54,7 @@ SPHERE_TOL = 1e-6
 
 
 def test_doc_examples_run():
-    assert doctest.testmod(shellmodes.angular).failed == 0
+    assert doctest.testmod(shellmodes.spectrum.angular).failed == 0
 
 
 def test_real_harmonics_orthonormal_by_quadrature():

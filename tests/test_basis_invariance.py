@@ -12,12 +12,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from shellmodes.case import case_from_dict
-from shellmodes.labelling import label_modes
-from shellmodes.model import energy_scale
+from shellmodes.case.model import energy_scale
+from shellmodes.case.schema import case_from_dict
+from shellmodes.eigen.planner import Solved
+from shellmodes.eigen.solve import Eigenpairs
 from shellmodes.pipeline import run_case
-from shellmodes.planner import Solved
-from shellmodes.solve import Eigenpairs
+from shellmodes.spectrum.labelling import label_modes
 
 SURFACES = {
     # the sphere: every multiplet is (2l+1)-fold degenerate

@@ -20,7 +20,7 @@ from scipy import constants
 from scipy.optimize import brentq
 from scipy.special import lpmv
 
-from shellmodes.case import load_case
+from shellmodes.case.schema import load_case
 from shellmodes.pipeline import run_case
 
 CASES_DIR = Path(__file__).resolve().parent.parent / "cases"
@@ -196,7 +196,7 @@ def hard_rim_cap(case, spectrum):
 
 def fine_shell_prisms(case, spectrum):
     # 50 modes against the roots of j_l(ka) y_l(kb) - j_l(kb) y_l(ka) = 0 (scipy.special), each (2l+1)-fold
-    from shellmodes.references import shell_dirichlet
+    from shellmodes.studies.references import shell_dirichlet
 
     exact = np.sort([float(k) ** 2 for l in range(10) for k in shell_dirichlet(l, 2, 1.0, 2.0)
                      for _ in range(2 * l + 1)])[:50]

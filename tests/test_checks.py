@@ -2,8 +2,8 @@
 
 import pytest
 
-from shellmodes.checks import CHECKS, format_table, run_checks
 from shellmodes.cli import main
+from shellmodes.studies.checks import CHECKS, format_table, run_checks
 
 QUICK = ("area of", "rigid rotor", "electron on", "hemisphere", "cap of 120")
 

@@ -31,9 +31,12 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from shellmodes import references as ref
-from shellmodes.case import case_from_dict
-from shellmodes.convergence import (
+from shellmodes.case.model import build_shape
+from shellmodes.case.schema import case_from_dict
+from shellmodes.case.units import ENERGY_UNITS
+from shellmodes.errors import CaseError, DoubtfulResultWarning
+from shellmodes.studies import references as ref
+from shellmodes.studies.convergence import (
     ConvergenceStudy,
     convergence_study,
     expected_order,
@@ -42,9 +45,6 @@ from shellmodes.convergence import (
     order_range,
     shared_groups,
 )
-from shellmodes.errors import CaseError, DoubtfulResultWarning
-from shellmodes.model import build_shape
-from shellmodes.units import ENERGY_UNITS
 
 
 def sphere_case(degree, subdivisions, count=9, **extra):
@@ -316,7 +316,7 @@ def test_shell_cases_converge_with_layers_refined_alongside():
     # together (h halves in every direction). Degree-2 prisms between exact spheres converge at h^4
     # (common practice for conforming elements); measured 3.52, 3.32, 2.90 from 486 to 23,058 DOFs
     # against k from j_l(ka) y_l(kb) - j_l(kb) y_l(ka) = 0 (scipy.special)
-    from shellmodes.references import shell_dirichlet
+    from shellmodes.studies.references import shell_dirichlet
 
     case = case_from_dict({"shell": {"inner": {"shape": "sphere", "radius": 1.0},
                                      "outer": {"shape": "sphere", "radius": 2.0}, "cells": "prisms", "layers": 1},

@@ -2,7 +2,7 @@
 
 from pathlib import Path
 
-from shellmodes.docs import case_keys_markdown
+from shellmodes.case.keys import case_keys_markdown
 
 ROOT = Path(__file__).resolve().parent.parent
 

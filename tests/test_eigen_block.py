@@ -7,13 +7,13 @@ import pytest
 import scipy.linalg as la
 import scipy.sparse as sp
 
-from shellmodes.backends import get_backend
-from shellmodes.eigen_block import block_lowest
+from shellmodes.eigen.backends import get_backend
+from shellmodes.eigen.block import block_lowest
+from shellmodes.eigen.solve import lowest_modes
 from shellmodes.errors import SolverError
-from shellmodes.problem import assemble_surface
+from shellmodes.fem.forms import assemble_surface
+from shellmodes.fem.surface import curved_surface
 from shellmodes.shapes.reference import icosphere
-from shellmodes.solve import lowest_modes
-from shellmodes.surface import curved_surface
 
 
 def _sphere(level: int, degree: int):

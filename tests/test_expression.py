@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from shellmodes.expression import ExpressionError, compile_expression
+from shellmodes.case.expression import ExpressionError, compile_expression
 
 
 def test_arithmetic_and_functions_vectorised():

@@ -1,4 +1,4 @@
-"""Reading and validating surface mesh files (shellmodes.meshfile).
+"""Reading and validating surface mesh files (shellmodes.meshfiles.surface).
 
 Write-then-read through every registered format, then one test per defect
 that feeds the bad input and checks what the message says.
@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 
 from shellmodes.errors import MeshError, ShellmodesError
-from shellmodes.meshfile import (
+from shellmodes.meshfiles.surface import (
     DEGENERATE_TOLERANCE,
     DUPLICATE_TOLERANCE,
     SURFACE_FORMATS,
@@ -277,7 +277,7 @@ def test_meshio_warnings_go_to_logging(tmp_path, caplog, capsys):
     assert "$EndMeshFormat" in text
     path.write_text(text.replace("$EndElements", ""))
     capsys.readouterr()  # drop what meshio's writer printed
-    with caplog.at_level(logging.WARNING, logger="shellmodes.meshfile"):
+    with caplog.at_level(logging.WARNING, logger="shellmodes.meshfiles.surface"):
         mesh = read_surface_mesh(path)
     assert len(mesh.triangles) == 4
     assert capsys.readouterr().err == ""

@@ -6,7 +6,7 @@ spectrum.json (fields, order, internal consistency), spectrum.csv (one row
 per mode, equal to the JSON), modes.vtu (one point field per mode, the cell
 kind of the degree, the values are the M-orthonormal eigenvectors) and
 run.log.  Then the JSON Schema of the case file, the ``keys`` listing, and
-write-then-read of :func:`shellmodes.outputs.write_outputs` (atomic
+write-then-read of :func:`shellmodes.io.outputs.write_outputs` (atomic
 replacement, a failing writer leaves everything as it was).
 """
 
@@ -25,11 +25,11 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from shellmodes import outputs
-from shellmodes.case import case_from_dict, case_schema, load_case
-from shellmodes.discretisation import discretise
+from shellmodes.case.schema import case_from_dict, case_schema, load_case
+from shellmodes.fem.discretisation import discretise
+from shellmodes.fem.forms import assemble_surface
+from shellmodes.io import outputs
 from shellmodes.pipeline import run_case
-from shellmodes.problem import assemble_surface
 
 if sys.version_info >= (3, 11):
     import tomllib

@@ -1,4 +1,4 @@
-"""First-order splitting on star-shaped surfaces (shellmodes.perturbation)."""
+"""First-order splitting on star-shaped surfaces (shellmodes.spectrum.perturbation)."""
 
 from __future__ import annotations
 
@@ -12,17 +12,17 @@ import scipy.sparse.linalg
 from skfem import asm
 from skfem.models.poisson import laplace, mass
 
-import shellmodes.perturbation
+import shellmodes.spectrum.perturbation
+from shellmodes.fem.surface import curved_surface
 from shellmodes.harmonics import angles, real_sph_harm
-from shellmodes.perturbation import (
+from shellmodes.shapes.reference import icosphere
+from shellmodes.spectrum.perturbation import (
     first_order_levels,
     first_order_matrix,
     sphere_quadrature,
     splitting_table,
     triple_integral,
 )
-from shellmodes.shapes.reference import icosphere
-from shellmodes.surface import curved_surface
 
 C20 = sqrt(5 / (4 * np.pi))  # Y_20 = C20 P_2(cos theta) (DLMF 14.30.1)
 
@@ -81,7 +81,7 @@ def real_gaunt_reference(l1, m1, l2, m2, l3, m3) -> float:
 
 
 def test_doc_examples_run():
-    assert doctest.testmod(shellmodes.perturbation).failed == 0
+    assert doctest.testmod(shellmodes.spectrum.perturbation).failed == 0
 
 
 def test_wigner_3j_reference_values():

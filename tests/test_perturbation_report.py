@@ -1,13 +1,13 @@
 """First-order perturbation theory printed beside the finite-element splitting of a run.
 
 Reference: degenerate first-order (Rayleigh-Schroedinger) theory for r = R(1 + eps f),
-implemented in shellmodes.perturbation and checked there against finite elements.
+implemented in shellmodes.spectrum.perturbation and checked there against finite elements.
 """
 
 import numpy as np
 
-from shellmodes.case import case_from_dict
-from shellmodes.outputs import spectrum_json
+from shellmodes.case.schema import case_from_dict
+from shellmodes.io.outputs import spectrum_json
 from shellmodes.pipeline import run_case
 
 

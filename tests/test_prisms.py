@@ -3,9 +3,9 @@
 References named beside each check:
 - hard-wall and free-wall shells: the cross-product equations of spherical Bessel functions,
   roots with scipy.special (DLMF 10.47, 10.51; Abramowitz and Stegun 9.5),
-  :func:`shellmodes.references.shell_dirichlet` / ``shell_neumann``;
+  :func:`shellmodes.studies.references.shell_dirichlet` / ``shell_neumann``;
 - two media with a mass jump: BenDaniel-Duke matching (Phys. Rev. 152, 683 (1966)),
-  :func:`shellmodes.references.layered_shell_dirichlet`;
+  :func:`shellmodes.studies.references.layered_shell_dirichlet`;
 - volumes of spherical and ellipsoidal shells: 4 pi abc / 3 (elementary geometry).
 """
 
@@ -15,18 +15,18 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
+from shellmodes.eigen.separable import separable_modes
+from shellmodes.eigen.solve import lowest_modes
 from shellmodes.errors import GeometryError
-from shellmodes.references import layered_shell_dirichlet, shell_dirichlet, shell_neumann
-from shellmodes.solve import lowest_modes
-from shellmodes.volume import restricted
-from shellmodes.volume.prisms import (
+from shellmodes.fem.assemble import restricted
+from shellmodes.fem.prisms import (
     assemble_prisms,
     export_prisms,
     kronecker_factors,
     lobatto_nodes,
     prism_shell,
 )
-from shellmodes.volume.separable import separable_modes
+from shellmodes.studies.references import layered_shell_dirichlet, shell_dirichlet, shell_neumann
 
 
 def exact_shell(count, a=1.0, b=2.0, reference=shell_dirichlet, l_max=10, radial=3):
@@ -128,7 +128,7 @@ def test_deformed_walls_agree_with_curved_tetrahedra_and_keep_the_volume():
     # ellipsoidal outer wall: volume 4 pi (abc - 1) / 3; the lowest levels of the assembled prisms
     # (degree 3 x 4) agree with the independent P2 tetrahedra, whose own error here is about 6e-4
     # (measured against finer prisms: 7.15388 at degree 4 x 6, levels 2 and 3 agreeing to 2e-7)
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.pipeline import run_case
 
     base = {"shell": {"inner": {"shape": "sphere", "radius": 1.0},
@@ -201,7 +201,7 @@ def test_prism_case_through_the_cli_writes_wedges_and_exact_labels(tmp_path):
     ({"cells": "prisms", "radial_degree": 13}, "shell.radial_degree", "13"),
 ])
 def test_bad_prism_requests_name_the_key(edit, key, fragment):
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.errors import CaseError
     from shellmodes.pipeline import run_case
 
@@ -241,7 +241,7 @@ def _prism_case(count, **extra):
 
 def test_a_constant_potential_shifts_the_exact_shell_levels():
     # V = 3 everywhere: lambda = k^2 + 3 with k from j_l(ka) y_l(kb) - j_l(kb) y_l(ka) = 0 (scipy.special)
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.pipeline import run_case
 
     s = run_case(case_from_dict(_prism_case(4, potential={"expression": "3.0"})))
@@ -253,7 +253,7 @@ def test_a_constant_potential_shifts_the_exact_shell_levels():
 def test_a_radial_trap_potential_separates_and_agrees_with_the_assembled_pencil():
     # a shell-shaped trap V = 40 (r - 1.5)^2: the separable path and the assembled 3-D pencil (block
     # shift-invert on the same prisms) solve one discrete problem, so they agree to solver accuracy
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.pipeline import run_case
 
     trap = {"expression": "40*(r - 1.5)**2"}
@@ -269,7 +269,7 @@ def test_a_radial_trap_potential_separates_and_agrees_with_the_assembled_pencil(
 def test_deformed_prisms_by_lobpcg_with_the_spherical_preconditioner_match_shift_invert():
     # one discrete problem, two solvers: CHOLMOD shift-invert Lanczos and LOBPCG preconditioned by the
     # mean-radius sphere's exact inverse; parent labels come from overlaps with that sphere's modes
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.pipeline import run_case
 
     data = _prism_case(9, shell={"outer": {"shape": "spheroid", "equatorial_radius": 2.0, "polar_radius": 2.3}})
@@ -286,7 +286,7 @@ def test_deformed_prisms_by_lobpcg_with_the_spherical_preconditioner_match_shift
 
 
 def test_spherical_preconditioner_is_the_exact_inverse_on_a_sphere():
-    from shellmodes.volume.separable import SphericalPreconditioner
+    from shellmodes.eigen.separable import SphericalPreconditioner
 
     disc = prism_shell([1.0, 2.0], 1, 2, degree=2, radial_degree=2)
     K, M = assemble_prisms(disc, {0: 1.0})
@@ -319,7 +319,7 @@ def test_star_walls_deformed_independently():
     # independent curved P2 tetrahedra (whose error here is about 4e-4; finer prisms give 9.740084)
     from scipy.integrate import dblquad
 
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.harmonics import real_sph_harm
     from shellmodes.pipeline import run_case
 
@@ -345,7 +345,7 @@ def test_an_empty_energy_window_names_the_lowest_level():
     # the lowest hard-wall level of 1 < r < 2 is pi^2 (l = 0, k = pi / (b - a))
     import warnings
 
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.pipeline import run_case
 
     data = _prism_case(1)

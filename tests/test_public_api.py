@@ -12,13 +12,13 @@ def test_all_names_exist():
 
 
 def test_docstring_examples():
-    import shellmodes.case
-    import shellmodes.expression
+    import shellmodes.case.expression
+    import shellmodes.case.schema
+    import shellmodes.case.units
+    import shellmodes.eigen.solve
     import shellmodes.harmonics
-    import shellmodes.solve
-    import shellmodes.units
 
-    for module in (shellmodes, shellmodes.case, shellmodes.expression, shellmodes.harmonics, shellmodes.solve,
-                   shellmodes.units):
+    for module in (shellmodes, shellmodes.case.schema, shellmodes.case.expression, shellmodes.harmonics,
+                   shellmodes.eigen.solve, shellmodes.case.units):
         failures, tried = doctest.testmod(module)
         assert failures == 0, module.__name__

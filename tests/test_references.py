@@ -1,4 +1,4 @@
-"""Checks of shellmodes.references against sources that do not share its code.
+"""Checks of shellmodes.studies.references against sources that do not share its code.
 
 Independent sources used: scipy.special functions evaluated at the returned
 roots (residuals), published table values (recalled from memory, marked so),
@@ -13,8 +13,8 @@ import pytest
 from scipy import constants
 from scipy.special import elliprg, jn_zeros, jnp_zeros, lpmv, spherical_jn, spherical_kn, spherical_yn
 
-from shellmodes import references as ref
 from shellmodes.errors import GeometryError
+from shellmodes.studies import references as ref
 
 
 def gauss_grid(lo0, hi0, lo1, hi1, n=200):

@@ -23,12 +23,12 @@ import pytest
 pytest.importorskip("matplotlib")
 pytest.importorskip("pyvista")
 
-from shellmodes.case import case_from_dict  # noqa: E402
+from shellmodes.case.schema import case_from_dict  # noqa: E402
 from shellmodes.errors import CaseError, MeshError, ShellmodesError  # noqa: E402
-from shellmodes.outputs import mode_field_name, write_outputs  # noqa: E402
-from shellmodes.pictures import PlotExtraMissing, render_modes, spectrum_picture, sphere_ladder  # noqa: E402
+from shellmodes.io.outputs import mode_field_name, write_outputs  # noqa: E402
+from shellmodes.io.pictures import PlotExtraMissing, render_modes, spectrum_picture, sphere_ladder  # noqa: E402
+from shellmodes.io.report import SAFETY_NOTE, case_toml, find_convergence, load_run, write_report  # noqa: E402
 from shellmodes.pipeline import run_case  # noqa: E402
-from shellmodes.report import SAFETY_NOTE, case_toml, find_convergence, load_run, write_report  # noqa: E402
 
 try:
     import tomllib
@@ -142,8 +142,9 @@ def test_volume_render_cuts_a_tetra10_shell(tmp_path):
     import meshio
     from scipy.sparse.linalg import eigsh
 
-    from shellmodes.volume import assemble_volume, discretise, export_cells, shell_mesh
-    from shellmodes.volume.assemble import free_dofs, restricted
+    from shellmodes.fem.assemble import assemble_volume, free_dofs, restricted
+    from shellmodes.fem.shellmesh import shell_mesh
+    from shellmodes.fem.tetrahedra import discretise, export_cells
 
     disc = discretise(shell_mesh([1.0, 2.0], 1, 2), degree=2)
     K, M = assemble_volume(disc, 1.0)
@@ -345,7 +346,7 @@ def test_load_run_errors_are_case_errors(tmp_path):
 
 
 def test_a_real_convergence_study_is_tabled(run_dir):
-    convergence = pytest.importorskip("shellmodes.convergence")
+    convergence = pytest.importorskip("shellmodes.studies.convergence")
     case = case_from_dict({"title": "squashed test shell", "surface": SQUASHED["surface"],
                            "resolution": {"degree": 2, "subdivisions": 1}, "modes": {"count": 9}}, "<test>")
     study = convergence.convergence_study(case, refinements=3)

@@ -1,7 +1,7 @@
 """Shell and ball cases through the whole pipeline (case file -> spectrum -> outputs).
 
 References: roots of j_l(ka) y_l(kb) - j_l(kb) y_l(ka) and zeros of j_l from
-shellmodes.references (checked there against scipy.special and Abramowitz and
+shellmodes.studies.references (checked there against scipy.special and Abramowitz and
 Stegun Table 10.6); the thin-shell limit pi^2/d^2 + l(l+1)/R^2 for hard walls
 (the separation of the radial and angular parts; common practice).
 """
@@ -11,13 +11,13 @@ import json
 import numpy as np
 import pytest
 
-from shellmodes import references as ref
-from shellmodes.bridge import thin_shell_comparison
-from shellmodes.case import case_from_dict
-from shellmodes.checks import observed_order
+from shellmodes.case.schema import case_from_dict
 from shellmodes.cli import main
 from shellmodes.errors import CaseError
 from shellmodes.pipeline import run_case
+from shellmodes.studies import references as ref
+from shellmodes.studies.checks import observed_order
+from shellmodes.studies.thin_shell import thin_shell_comparison
 
 
 def _shell(count=10, degree=2, subdivisions=1, layers=3, inner=1.0, outer=2.0, **extra):
@@ -153,7 +153,8 @@ def _named_dot(tmp_path):
     """A ball core r < 1 in a shell 1 < r < 2 written as gmsh with physical names core (1), shell (2)."""
     import meshio
 
-    from shellmodes.volume import discretise, export_cells, shell_mesh
+    from shellmodes.fem.shellmesh import shell_mesh
+    from shellmodes.fem.tetrahedra import discretise, export_cells
 
     disc = discretise(shell_mesh([None, 1.0, 2.0], 1, 1), degree=1)
     points, cells, data = export_cells(disc)

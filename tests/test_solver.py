@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
+from shellmodes.eigen.solve import group_multiplets, lowest_modes
 from shellmodes.errors import DoubtfulResultWarning, SolverError
-from shellmodes.problem import assemble_surface
+from shellmodes.fem.forms import assemble_surface
+from shellmodes.fem.surface import curved_surface
 from shellmodes.shapes import make_shape
-from shellmodes.solve import group_multiplets, lowest_modes
-from shellmodes.surface import curved_surface
 
 
 def _sphere_problem(degree=2, level=2):
@@ -91,7 +91,7 @@ def test_diagonal_problem_exact():
 
 
 def test_energy_window_with_no_mode_says_so(tmp_path):
-    from shellmodes.case import case_from_dict
+    from shellmodes.case.schema import case_from_dict
     from shellmodes.pipeline import run_case
 
     case = case_from_dict({"surface": {"shape": "cap", "half_angle": 90.0}, "resolution": {"degree": 2,

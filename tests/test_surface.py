@@ -2,7 +2,7 @@
 
 Reference values: the unit sphere's spectrum l(l+1) with multiplicity 2l+1
 (DLMF 14.30.10); spheroid areas from the closed form in
-shellmodes.references (checked there against the ellipsoid formula); the
+shellmodes.studies.references (checked there against the ellipsoid formula); the
 spheroid's eigenvalues have no closed form, so a degree-4 solve two
 refinements finer serves as reference (its error, ~1e-10, is far below the
 errors being fitted).  Expected orders: 2k for isoparametric degree k when
@@ -15,14 +15,14 @@ import numpy as np
 import pytest
 import skfem
 
-from shellmodes import references as ref
-from shellmodes.checks import observed_order
-from shellmodes.curvature import total_gaussian_curvature
-from shellmodes.problem import assemble_surface, mass
+from shellmodes.eigen.solve import lowest_modes
+from shellmodes.fem.curvature import total_gaussian_curvature
+from shellmodes.fem.forms import assemble_surface, mass
+from shellmodes.fem.surface import curved_surface, lagrange_element, lattice_cells
 from shellmodes.shapes import make_shape
 from shellmodes.shapes.reference import icosphere, subdivide
-from shellmodes.solve import lowest_modes
-from shellmodes.surface import curved_surface, lagrange_element, lattice_cells
+from shellmodes.studies import references as ref
+from shellmodes.studies.checks import observed_order
 
 SPHERE_9 = np.array([0, 2, 2, 2, 6, 6, 6, 6, 6], dtype=float)  # l(l+1), l <= 2
 

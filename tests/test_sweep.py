@@ -13,12 +13,12 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-from shellmodes.case import case_from_dict
+from shellmodes.case.schema import case_from_dict
 from shellmodes.errors import CaseError, ShellmodesError
 from shellmodes.harmonics import angles, real_sph_harm
-from shellmodes.perturbation import first_order_matrix
-from shellmodes.sweep import SweepStopped, _mass_matrix, load_step, plan_steps, run_sweep
-from shellmodes.sweep_track import LevelTracker, StepModes, TrackingWarning
+from shellmodes.spectrum.perturbation import first_order_matrix
+from shellmodes.studies.sweep import SweepStopped, _mass_matrix, load_step, plan_steps, run_sweep
+from shellmodes.studies.sweep_track import LevelTracker, StepModes, TrackingWarning
 
 AMPLITUDE = "surface.deformation[0].amplitude"
 
@@ -70,7 +70,7 @@ def m_weights(points, M, u, l=2):
 def test_levels_keep_identity_through_the_l2_crossing(tmp_path, values):
     """r = 1 + a Y_20: the l = 2 levels m = 0 and |m| = 2 cross at a = 0 and must pass straight through.
 
-    First-order perturbation theory (shellmodes.perturbation, Messiah vol. II
+    First-order perturbation theory (shellmodes.spectrum.perturbation, Messiah vol. II
     ch. XVI) gives lam = l(l+1)(1 - 2 a F_mm) with F_mm = int Y_20 Y_2m^2 dOmega,
     i.e. slopes proportional to l(l+1) - 3 m^2 with opposite signs for m = 0
     and |m| = 2.  Identity is checked by the |m| content about z.

@@ -4,9 +4,9 @@ import numpy as np
 import pytest
 from scipy import constants as C
 
-from shellmodes import units
-from shellmodes.case import case_from_dict
-from shellmodes.model import energy_scale
+from shellmodes.case import units
+from shellmodes.case.model import energy_scale
+from shellmodes.case.schema import case_from_dict
 
 
 @pytest.mark.parametrize("unit,joules", [

@@ -8,18 +8,11 @@ import pytest
 import skfem
 
 from shellmodes.errors import CaseError, GeometryError, MeshError
+from shellmodes.fem.assemble import assemble_volume, free_dofs, restricted
+from shellmodes.fem.shellmesh import shell_mesh, signed_volumes
+from shellmodes.fem.tetrahedra import discretise, discretise_tetrahedra, export_cells
 from shellmodes.harmonics import real_sph_harm
-from shellmodes.volume import (
-    assemble_volume,
-    discretise,
-    discretise_tetrahedra,
-    export_cells,
-    free_dofs,
-    read_volume_mesh,
-    restricted,
-    shell_mesh,
-    signed_volumes,
-)
+from shellmodes.meshfiles.volume import read_volume_mesh
 
 
 def bumpy(radius, amplitude):

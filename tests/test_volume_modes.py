@@ -2,11 +2,11 @@
 
 Reference values:
 - hard-wall and free-wall shells and balls: roots of the spherical Bessel
-  cross products / zeros of j_l and j_l' from ``shellmodes.references``
+  cross products / zeros of j_l and j_l' from ``shellmodes.studies.references``
   (scipy.special.spherical_jn / spherical_yn with brentq), re-checked here
   against the defining equations with scipy.special and, for the ball,
   against zeros recalled from Abramowitz and Stegun Table 10.6;
-- finite spherical well with a mass jump: ``shellmodes.references.finite_spherical_well``
+- finite spherical well with a mass jump: ``shellmodes.studies.references.finite_spherical_well``
   (BenDaniel-Duke matching of j_l inside and k_l outside);
 - isotropic harmonic oscillator: lambda = omega (2N + 3) for -Laplacian + omega^2 r^2
   (common practice; e.g. Sakurai, Modern Quantum Mechanics, 3-D oscillator).
@@ -21,18 +21,14 @@ import pytest
 import scipy.sparse.linalg as sla
 from scipy.special import spherical_jn, spherical_yn
 
-from shellmodes import references
-from shellmodes.volume import (
-    assemble_volume,
-    discretise,
-    free_dofs,
-    radial_angular_labels,
-    restricted,
-    shell_mesh,
-)
+from shellmodes.fem.assemble import assemble_volume, free_dofs, restricted
+from shellmodes.fem.shellmesh import shell_mesh
+from shellmodes.fem.tetrahedra import discretise
+from shellmodes.spectrum.radial_labels import radial_angular_labels
+from shellmodes.studies import references
 
 pytest.importorskip("cholespy")
-from shellmodes.backends.cholmod import factorize as factorize_cholmod  # noqa: E402
+from shellmodes.eigen.backends.cholmod import factorize as factorize_cholmod  # noqa: E402
 
 
 def lowest_modes(K, M, count, shift=0.0):
@@ -235,7 +231,7 @@ def small_shell_problem():
 
 def test_lobpcg_amg_matches_cholmod_and_ends_at_a_gap():
     pytest.importorskip("pyamg")
-    from shellmodes.backends.lobpcg_amg import lobpcg_lowest
+    from shellmodes.eigen.backends.lobpcg_amg import lobpcg_lowest
 
     _, K, M, _ = small_shell_problem()
     reference, _ = lowest_modes(K, M, 9)
@@ -249,8 +245,8 @@ def test_lobpcg_amg_matches_cholmod_and_ends_at_a_gap():
 
 def test_amg_backend_inverts_and_registers():
     pytest.importorskip("pyamg")
-    from shellmodes.backends import BACKENDS, get_backend
-    from shellmodes.backends.lobpcg_amg import factorize
+    from shellmodes.eigen.backends import BACKENDS, get_backend
+    from shellmodes.eigen.backends.lobpcg_amg import factorize
 
     _, K, M, _ = small_shell_problem()
     assert get_backend("amg") == ("amg", factorize)
@@ -266,7 +262,7 @@ def test_amg_backend_inverts_and_registers():
 def test_factor_memory_estimate_is_close_to_a_real_factor():
     import scipy.sparse.linalg as spla
 
-    from shellmodes.backends.lobpcg_amg import estimate_factor_memory
+    from shellmodes.eigen.backends.lobpcg_amg import estimate_factor_memory
 
     disc, K, M, free = small_shell_problem()
     # a real symmetric factor: SuperLU with minimum-degree ordering on A + A^T and no pivoting
@@ -279,7 +275,7 @@ def test_factor_memory_estimate_is_close_to_a_real_factor():
 
 
 def test_path_choice_follows_the_memory_budget():
-    from shellmodes.backends.lobpcg_amg import choose_eigen_path
+    from shellmodes.eigen.backends.lobpcg_amg import choose_eigen_path
 
     disc, K, _, free = small_shell_problem()
     path, estimate = choose_eigen_path(K, 10, disc.nodes[free], memory_budget=2**30)

@@ -14,8 +14,8 @@ import logging
 import sys
 import warnings
 
-from ..errors import ShellmodesError
-from .run import default_out
+from shellmodes.cli.run import default_out
+from shellmodes.errors import ShellmodesError
 
 __all__ = ["main", "default_out", "COMMANDS"]
 
@@ -24,7 +24,7 @@ COMMANDS = ("run", "check", "converge", "sweep", "report", "thin_shell", "keys")
 
 
 def _parser() -> argparse.ArgumentParser:
-    from .._version import __version__
+    from shellmodes._version import __version__
 
     p = argparse.ArgumentParser(prog="shellmodes", description="Eigenmodes of particles on curved surfaces.")
     p.add_argument("--version", action="version", version=f"shellmodes {__version__}")

@@ -10,7 +10,7 @@ def add_command(subparsers) -> None:
 
 
 def main(args) -> int:
-    from ..checks import format_table, run_checks
+    from shellmodes.studies.checks import format_table, run_checks
 
     results = run_checks(args.only)
     print(format_table(results))

@@ -6,7 +6,7 @@ import sys
 import warnings
 from pathlib import Path
 
-from ..limits import CONVERGE_MAX_SUBDIVISIONS, MAX_SUBDIVISIONS
+from shellmodes.limits import CONVERGE_MAX_SUBDIVISIONS, MAX_SUBDIVISIONS
 
 
 def add_command(subparsers) -> None:
@@ -23,9 +23,9 @@ def add_command(subparsers) -> None:
 
 
 def main(args) -> int:
-    from ..case import load_case
-    from ..convergence import convergence_study, range_text, write_study
-    from .run import default_out
+    from shellmodes.case.schema import load_case
+    from shellmodes.cli.run import default_out
+    from shellmodes.studies.convergence import convergence_study, range_text, write_study
 
     case_path = Path(args.case)
     case = load_case(case_path)

@@ -13,14 +13,14 @@ def add_command(subparsers) -> None:
 
 
 def schema(args) -> int:
-    from ..case import case_schema
+    from shellmodes.case.schema import case_schema
 
     print(json.dumps(case_schema(), indent=2))
     return 0
 
 
 def keys(args) -> int:
-    from ..docs import case_keys_markdown
+    from shellmodes.case.keys import case_keys_markdown
 
     print(case_keys_markdown())
     return 0

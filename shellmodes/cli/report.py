@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from ..limits import DEFAULT_RENDERS
+from shellmodes.limits import DEFAULT_RENDERS
 
 
 def _count(text: str) -> int:
@@ -30,7 +30,7 @@ def add_command(subparsers) -> None:
 
 
 def main(args) -> int:
-    from ..report import write_report
+    from shellmodes.io.report import write_report
 
     path = write_report(args.run_dir, checks=args.checks, modes=args.modes, keep_images=args.keep_images)
     if not args.quiet:

@@ -20,10 +20,10 @@ def add_command(subparsers) -> None:
 
 
 def main(args) -> int:
-    from ..case import load_case
-    from ..errors import CaseError
-    from ..outputs import write_outputs
-    from ..pipeline import run_case
+    from shellmodes.case.schema import load_case
+    from shellmodes.errors import CaseError
+    from shellmodes.io.outputs import write_outputs
+    from shellmodes.pipeline import run_case
 
     case_path = Path(args.case)
     case = load_case(case_path)
@@ -34,7 +34,7 @@ def main(args) -> int:
     files = None if case.output.vtu else ["spectrum.json", "spectrum.csv", "run.log"]
     write_outputs(spectrum, out, files)
     if args.report:
-        from ..report import write_report
+        from shellmodes.io.report import write_report
 
         write_report(out)
     if not args.quiet:

@@ -20,9 +20,9 @@ def add_command(subparsers) -> None:
 
 
 def main(args) -> int:
-    from ..case import load_case
-    from ..sweep import run_sweep
-    from .run import default_out
+    from shellmodes.case.schema import load_case
+    from shellmodes.cli.run import default_out
+    from shellmodes.studies.sweep import run_sweep
 
     case_path = Path(args.case)
     case = load_case(case_path)

@@ -15,9 +15,9 @@ def add_command(subparsers) -> None:
 
 
 def main(args) -> int:
-    from ..bridge import thin_shell_comparison
-    from ..case import load_case
-    from ..errors import CaseError
+    from shellmodes.case.schema import load_case
+    from shellmodes.errors import CaseError
+    from shellmodes.studies.thin_shell import thin_shell_comparison
 
     case = load_case(args.case)
     try:

@@ -9,8 +9,8 @@ list of valid ones.
 
 from __future__ import annotations
 
-from . import analytic, cap, imported, torus  # noqa: F401  (modules register their shapes)
-from .base import SHAPES, Shape, register
+from shellmodes.shapes import analytic, cap, imported, torus  # noqa: F401  (modules register their shapes)
+from shellmodes.shapes.base import SHAPES, Shape, register
 
 __all__ = ["SHAPES", "Shape", "register", "make_shape"]
 

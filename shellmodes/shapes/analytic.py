@@ -10,11 +10,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import GeometryError
-from ..harmonics import angles, real_sph_harm
-from .areas import ellipsoid_area, spheroid_area
-from .base import Shape, register
-from .reference import icosphere
+from shellmodes.errors import GeometryError
+from shellmodes.harmonics import angles, real_sph_harm
+from shellmodes.shapes.areas import ellipsoid_area, spheroid_area
+from shellmodes.shapes.base import Shape, register
+from shellmodes.shapes.reference import icosphere
 
 # edge of the icosahedron inscribed in the unit sphere: 4 / sqrt(10 + 2 sqrt 5)
 _ICOSA_EDGE = 4.0 / np.sqrt(10.0 + 2.0 * np.sqrt(5.0))

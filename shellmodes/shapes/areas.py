@@ -1,6 +1,6 @@
 """Closed-form areas of the analytic shapes (what ``Shape.exact_area`` returns).
 
-Kept with the shapes, which use them; :mod:`shellmodes.references` re-exports
+Kept with the shapes, which use them; :mod:`shellmodes.studies.references` re-exports
 them beside the other exact results.
 """
 
@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import elliprd, elliprf
 
-from ..errors import GeometryError
+from shellmodes.errors import GeometryError
 
 __all__ = ["spheroid_area", "ellipsoid_area", "torus_area", "cap_area", "positive_values"]
 

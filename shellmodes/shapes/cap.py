@@ -15,9 +15,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import GeometryError
-from .base import Shape, register
-from .reference import subdivide
+from shellmodes.errors import GeometryError
+from shellmodes.shapes.base import Shape, register
+from shellmodes.shapes.reference import subdivide
 
 _APOTHEM = np.sqrt(3.0) / 2.0
 

@@ -1,4 +1,4 @@
-"""User meshes read through :mod:`shellmodes.meshfile` (meshio formats).
+"""User meshes read through :mod:`shellmodes.meshfiles.surface` (meshio formats).
 
 Degree-2 geometry comes from quadratic (triangle6) cells when the file has
 them; with ``snap`` set to an analytic shape every geometry node (of any
@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .base import Shape, register
+from shellmodes.shapes.base import Shape, register
 
 
 @register
@@ -19,7 +19,7 @@ class MeshFileShape(Shape):
     name = "mesh"
 
     def __init__(self, file, snap: Shape | None = None):
-        from ..meshfile import read_surface_mesh
+        from shellmodes.meshfiles.surface import read_surface_mesh
         self.file = str(file)
         self.data = read_surface_mesh(file)
         self.snap_shape = snap
@@ -32,7 +32,7 @@ class MeshFileShape(Shape):
 
     def reference(self, subdivisions):
         if subdivisions:
-            from .reference import subdivide
+            from shellmodes.shapes.reference import subdivide
             p, t = self.data.points, self.data.triangles
             for _ in range(subdivisions):
                 p, t = subdivide(p, t)

@@ -9,9 +9,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import GeometryError
-from .base import Shape, register
-from .reference import torus_grid
+from shellmodes.errors import GeometryError
+from shellmodes.shapes.base import Shape, register
+from shellmodes.shapes.reference import torus_grid
 
 
 @register

@@ -1,0 +1,539 @@
+"""Case files: TOML text validated into immutable objects.
+
+The schema is a set of pydantic models (one per TOML table) with unknown
+keys forbidden, NaN/inf refused and every default in one place.  Errors come
+out as :class:`~shellmodes.errors.CaseError` naming the file, the dotted key,
+the offending value and what is allowed (nearest valid key for typos).
+``case_schema()`` returns the JSON Schema editors use for completion.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import sys
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, NonNegativeInt, ValidationError, field_validator, model_validator
+
+from shellmodes.case.expression import ExpressionError, compile_expression
+from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
+from shellmodes.errors import CaseError
+from shellmodes.limits import DEFAULT_MODE_COUNT, MAX_MODE_COUNT, MAX_RADIAL_DEGREE, MAX_SUBDIVISIONS
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+__all__ = ["Case", "load_case", "case_from_dict", "case_schema", "CASE_TABLES"]
+
+Positive = Annotated[float, Field(gt=0)]
+LengthUnit = Literal[tuple(LENGTH_UNITS)]
+EnergyUnit = Literal[tuple(ENERGY_UNITS)]
+MassUnit = Literal[tuple(MASS_UNITS)]
+InertiaUnit = Literal[tuple(INERTIA_UNITS)]
+Rim = Literal["dirichlet", "neumann"]
+
+
+class _Table(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+
+
+class DeformationTerm(_Table):
+    """One term a_lm Y_lm of a star-shaped radius r = R (1 + sum a_lm Y_lm)."""
+
+    l: int = Field(ge=0, le=40, description="degree of the real spherical harmonic")
+    m: int = Field(description="order, -l <= m <= l (m > 0 cosine-like, m < 0 sine-like)")
+    amplitude: float = Field(description="dimensionless amplitude a_lm")
+
+    @model_validator(mode="after")
+    def _order(self):
+        if abs(self.m) > self.l:
+            raise ValueError(f"m = {self.m} is outside -l..l for l = {self.l}")
+        return self
+
+
+class SphereSurface(_Table):
+    shape: Literal["sphere"]
+    radius: Positive = Field(1.0, description="radius, in units.length")
+
+
+class EllipsoidSurface(_Table):
+    shape: Literal["ellipsoid"]
+    axes: tuple[Positive, Positive, Positive] = Field(description="semi-axes along x, y, z")
+
+
+class SpheroidSurface(_Table):
+    shape: Literal["spheroid"]
+    equatorial_radius: Positive = Field(description="semi-axis in the x-y plane")
+    polar_radius: Positive = Field(description="semi-axis along z")
+
+
+class StarSurface(_Table):
+    shape: Literal["star"]
+    radius: Positive = Field(1.0, description="mean radius R")
+    deformation: tuple[DeformationTerm, ...] = Field((), description="terms of r = R(1 + sum a_lm Y_lm)")
+
+
+class TorusSurface(_Table):
+    shape: Literal["torus"]
+    major_radius: Positive = Field(description="distance from the z axis to the tube centre")
+    minor_radius: Positive = Field(description="tube radius, smaller than major_radius")
+
+
+class CapSurface(_Table):
+    shape: Literal["cap"]
+    radius: Positive = Field(1.0, description="sphere radius")
+    half_angle: float = Field(90.0, gt=0, lt=180, description="polar half-angle of the cap in degrees")
+    rim: Rim = Field("dirichlet", description="hard rim (dirichlet) or free rim (neumann)")
+
+
+def _check_shape_keys(table, keys: dict, what: str):
+    """Refuse keys that do not belong to ``table.shape`` and require the ones it needs."""
+    required, optional = keys[table.shape]
+    given = {k for k in type(table).model_fields if k != "shape" and getattr(table, k) is not None}
+    extra = sorted(given - set(required) - set(optional))
+    if extra:
+        allowed = ", ".join(required + optional) or "none"
+        raise ValueError(f"key {extra[0]!r} does not belong to a {table.shape} {what}; allowed: {allowed}")
+    missing = [k for k in required if getattr(table, k) is None]
+    if missing:
+        raise ValueError(f"a {table.shape} {what} needs {', '.join(missing)}")
+    return table
+
+
+_WALL_KEYS = {"sphere": (("radius",), ()), "ellipsoid": (("axes",), ()),
+              "spheroid": (("equatorial_radius", "polar_radius"), ()), "star": (("radius",), ("deformation",))}
+
+_SNAP_KEYS = {  # shape -> (required keys, optional keys)
+    "sphere": ((), ("radius",)),
+    "ellipsoid": (("axes",), ()),
+    "spheroid": (("equatorial_radius", "polar_radius"), ()),
+    "star": ((), ("radius", "deformation")),
+    "torus": (("major_radius", "minor_radius"), ()),
+}
+
+
+class SnapTarget(_Table):
+    """An analytic shape to snap an imported mesh's geometry nodes onto (keys as for that shape)."""
+
+    shape: Literal["sphere", "ellipsoid", "spheroid", "star", "torus"]
+    radius: Positive | None = None
+    axes: tuple[Positive, Positive, Positive] | None = None
+    equatorial_radius: Positive | None = None
+    polar_radius: Positive | None = None
+    deformation: tuple[DeformationTerm, ...] | None = None
+    major_radius: Positive | None = None
+    minor_radius: Positive | None = None
+
+    @model_validator(mode="after")
+    def _keys_of_shape(self):
+        return _check_shape_keys(self, _SNAP_KEYS, "snap target")
+
+
+class MeshSurface(_Table):
+    shape: Literal["mesh"]
+    file: str = Field(description="mesh file (.vtu .vtk .msh .stl .obj .ply), relative to the case file")
+    snap: SnapTarget | None = Field(None, description="snap geometry nodes onto this exact shape")
+    rim: Rim = Field("dirichlet", description="condition on the rim of an open mesh")
+
+
+Surface = Annotated[
+    SphereSurface | EllipsoidSurface | SpheroidSurface | StarSurface | TorusSurface | CapSurface | MeshSurface,
+    Field(discriminator="shape"),
+]
+
+
+class Wall(_Table):
+    """A closed wall of a shell: sphere, ellipsoid, spheroid or star-shaped surface about the origin."""
+
+    shape: Literal["sphere", "ellipsoid", "spheroid", "star"]
+    radius: Positive | None = Field(None, description="sphere or star: radius R")
+    axes: tuple[Positive, Positive, Positive] | None = Field(None, description="ellipsoid: semi-axes")
+    equatorial_radius: Positive | None = Field(None, description="spheroid: semi-axis in the x-y plane")
+    polar_radius: Positive | None = Field(None, description="spheroid: semi-axis along z")
+    deformation: tuple[DeformationTerm, ...] | None = Field(None, description="star: r = R(1 + sum a_lm Y_lm)")
+
+    @model_validator(mode="after")
+    def _keys_of_shape(self):
+        return _check_shape_keys(self, _WALL_KEYS, "wall")
+
+
+class Region(_Table):
+    """One medium of a shell (core, shell, outer medium): its effective mass and band offset."""
+
+    name: str = Field("", description="label used in reports")
+    tag: NonNegativeInt | str | None = Field(None, description="region id, or its physical name, in a mesh file "
+                                             "(default: position, inside out)")
+    effective_mass: Positive | None = Field(None, description="mass as a multiple of particle.mass "
+                                                              "(default: particle.effective_mass)")
+    offset: float = Field(0.0, description="potential offset (band offset), in potential.unit or units.energy")
+
+
+class Shell(_Table):
+    """A 3-D region between closed walls (or a ball), possibly layered into several media."""
+
+    inner: Wall | None = Field(None, description="innermost wall; omit for a ball")
+    interfaces: tuple[Wall, ...] = Field((), description="walls between media, inside out")
+    outer: Wall | None = Field(None, description="outermost wall")
+    file: str | None = Field(None, description="tetrahedral mesh file instead of walls (tetra or tetra10)")
+    inner_condition: Rim = Field("dirichlet", description="condition on the inner wall")
+    outer_condition: Rim = Field("dirichlet", description="condition on the outer wall")
+    layers: int | tuple[int, ...] = Field(4, description="radial element layers per medium (one number for all)")
+    regions: tuple[Region, ...] = Field((), description="media inside out; default: one medium per layer gap")
+    cells: Literal["tetrahedra", "prisms"] = Field(
+        "tetrahedra", description="tetrahedra (degree 1-2, balls and mesh files) or layered curved prisms "
+        "(triangle degree 1-4 times a radial degree, needs an inner wall)")
+    radial_degree: int | None = Field(None, ge=1, le=MAX_RADIAL_DEGREE, description="prisms: polynomial degree "
+                                      "across each layer (default resolution.degree)")
+
+    @model_validator(mode="after")
+    def _walls_or_file(self):
+        if self.cells == "prisms":
+            if self.file is not None:
+                raise ValueError("cells = 'prisms' builds its cells from walls; a mesh file gives tetrahedra")
+            if self.inner is None:
+                raise ValueError("cells = 'prisms' needs an inner wall; use cells = 'tetrahedra' for a ball")
+        elif self.radial_degree is not None:
+            raise ValueError("radial_degree applies to cells = 'prisms' only")
+        if self.file is None and self.outer is None:
+            raise ValueError("give outer (and inner, interfaces) walls, or a mesh file")
+        if self.file is not None and (self.outer is not None or self.inner is not None or self.interfaces):
+            raise ValueError("give walls or a mesh file, not both")
+        layers = (self.layers,) if isinstance(self.layers, int) else self.layers
+        if any(n < 1 for n in layers):
+            raise ValueError(f"layers {self.layers!r}: every medium needs at least one layer")
+        if self.file is None:
+            media = len(self.interfaces) + 1
+            if not isinstance(self.layers, int) and len(self.layers) != media:
+                raise ValueError(f"layers has {len(self.layers)} entries for {media} media")
+            if self.regions and len(self.regions) != media:
+                raise ValueError(f"regions has {len(self.regions)} entries but the walls make {media} media")
+        return self
+
+
+class Resolution(_Table):
+    """Element degree and mesh refinement (give subdivisions or edge_length, not both)."""
+
+    degree: int = Field(2, ge=1, le=4, description="polynomial degree of elements and geometry (1..4)")
+    geometry_degree: int | None = Field(
+        None, ge=1, le=4, description="degree of the geometry map (default: degree; higher = superparametric)")
+    subdivisions: int | None = Field(None, ge=0, le=MAX_SUBDIVISIONS, description="halvings of the reference mesh")
+    edge_length: Positive | None = Field(None, description="largest reference edge, in units.length")
+    quadrature_order: int | None = Field(None, ge=1, le=20, description="exactness of the cell rule")
+
+    @model_validator(mode="after")
+    def _one_size(self):
+        if self.subdivisions is not None and self.edge_length is not None:
+            raise ValueError("give either subdivisions or edge_length, not both")
+        if self.geometry_degree is not None and self.geometry_degree < self.degree:
+            raise ValueError(f"geometry_degree {self.geometry_degree} must be at least degree {self.degree}")
+        return self
+
+
+class Particle(_Table):
+    """The particle: a mass (times an effective-mass factor) or a rigid rotor's moment of inertia."""
+
+    mass: Positive | None = Field(None, description="particle mass in mass_unit")
+    mass_unit: MassUnit = Field("electron", description="unit of mass")
+    effective_mass: Positive = Field(1.0, description="factor multiplying mass (band effective mass)")
+    moment_of_inertia: Positive | None = Field(None, description="rigid rotor: I = m R^2, in inertia_unit")
+    inertia_unit: InertiaUnit = Field("amu angstrom2", description="unit of moment_of_inertia")
+
+    @model_validator(mode="after")
+    def _one_kind(self):
+        if self.mass is not None and self.moment_of_inertia is not None:
+            raise ValueError("give either mass or moment_of_inertia, not both")
+        return self
+
+
+class Units(_Table):
+    length: LengthUnit = Field("1", description="unit of every length in the case ('1': dimensionless)")
+    energy: EnergyUnit = Field("1", description="unit of reported energies ('1': the eigenvalue lambda)")
+
+
+class Potential(_Table):
+    """A scalar potential V(x, y, z) added to the kinetic energy."""
+
+    expression: str = Field(description="arithmetic in x, y, z, r, theta, phi (lengths in units.length)")
+    unit: EnergyUnit = Field("1", description="energy unit of the expression's value")
+
+    @field_validator("expression")
+    @classmethod
+    def _parse(cls, text):
+        try:
+            compile_expression(text)
+        except ExpressionError as exc:
+            raise ValueError(f"{text!r}: {exc}") from None
+        return text
+
+
+class Modes(_Table):
+    """Which modes to find and how to group them."""
+
+    count: int | None = Field(None, ge=1, le=MAX_MODE_COUNT, description="number of lowest modes")
+    below: float | None = Field(None, description="all modes with energy below this, in units.energy")
+    multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
+    backend: Literal["auto", "splu", "cholmod"] = Field("auto", description="factorization for shift-invert")
+    method: Literal["auto", "lanczos", "block", "lobpcg", "separable"] = Field(
+        "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, "
+                            "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor, "
+                            "or separation into surface and radial problems (prisms between concentric spheres, "
+                            "the default there)")
+    residual_limit: Positive = Field(1e-6, description="largest acceptable relative residual")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _one_target(cls, data):
+        if isinstance(data, dict):
+            if data.get("count") is not None and data.get("below") is not None:
+                raise ValueError("give either count or below, not both")
+            if data.get("count") is None and data.get("below") is None:
+                data = {**data, "count": DEFAULT_MODE_COUNT}
+        return data
+
+
+class SweepParameter(_Table):
+    """One swept case key: a list of values, or an evenly spaced range."""
+
+    key: str = Field(description="dotted case key, e.g. 'surface.deformation[0].amplitude' or 'surface.radius'")
+    values: tuple[float, ...] | None = Field(None, min_length=1, description="the values, in order")
+    start: float | None = Field(None, description="first value of an evenly spaced range")
+    stop: float | None = Field(None, description="last value of the range (included)")
+    steps: int | None = Field(None, ge=1, le=10000, description="number of values in the range")
+
+    @model_validator(mode="after")
+    def _values_or_range(self):
+        ranged = (self.start, self.stop, self.steps)
+        if self.values is None and any(v is None for v in ranged):
+            raise ValueError("give values, or start, stop and steps")
+        if self.values is not None and any(v is not None for v in ranged):
+            raise ValueError("give values or a range (start, stop, steps), not both")
+        return self
+
+    def resolved(self) -> tuple[float, ...]:
+        if self.values is not None:
+            return tuple(self.values)
+        if self.steps == 1:
+            return (float(self.start),)
+        return tuple(float(self.start + (self.stop - self.start) * i / (self.steps - 1)) for i in range(self.steps))
+
+
+class Sweep(_Table):
+    """Solve the case once per step while one or more keys change together."""
+
+    parameters: tuple[SweepParameter, ...] = Field(min_length=1, description="keys swept together, equal lengths")
+    workers: int = Field(2, ge=1, le=256, description="parallel local worker processes")
+    scheduler: str | None = Field(None, description="address of a running Dask distributed scheduler")
+
+    @model_validator(mode="after")
+    def _equal_lengths(self):
+        lengths = {len(p.resolved()) for p in self.parameters}
+        if len(lengths) > 1:
+            raise ValueError(f"swept parameters must have equal numbers of values, got {sorted(lengths)}")
+        return self
+
+
+class Output(_Table):
+    """Which files to write besides spectrum.json, spectrum.csv and run.log."""
+
+    vtu: bool = Field(True, description="write modes.vtu with every mode as a point field")
+    pictures: bool = Field(False, description="also write levels.png and off-screen renders mode-NNNN.png "
+                                              "(cut views for shells; needs the plot extra and vtu = true)")
+    picture_modes: int = Field(4, ge=1, le=100, description="how many multiplets to render (one mode each)")
+
+
+class Case(_Table):
+    """A whole case file."""
+
+    title: str = Field("", description="free text shown in reports")
+    surface: Surface | None = Field(None, description="a curved surface (give surface or shell)")
+    shell: Shell | None = Field(None, description="a 3-D shell or ball (give surface or shell)")
+    resolution: Resolution = Resolution()
+    particle: Particle = Particle()
+    units: Units = Units()
+    potential: Potential | None = None
+    modes: Modes = Modes()
+    output: Output = Output()
+    sweep: Sweep | None = None
+    source: str = Field("<case>", exclude=True, description="where the case came from (not a TOML key)")
+
+    @model_validator(mode="after")
+    def _consistent(self):
+        if (self.surface is None) == (self.shell is None):
+            raise ValueError("give exactly one of the tables [surface] and [shell]")
+        if self.shell is not None:
+            if self.resolution.degree > 2 and self.shell.cells == "tetrahedra":
+                raise ValueError(f"resolution.degree {self.resolution.degree}: tetrahedra support degrees 1 and 2; "
+                                 "shell.cells = 'prisms' allows 1 to 4")
+            if self.particle.moment_of_inertia is not None:
+                raise ValueError("particle.moment_of_inertia describes a rotor on a sphere, not a shell")
+        if self.modes.method == "separable" and (self.shell is None or self.shell.cells != "prisms"
+                                                 or self.potential is not None):
+            raise ValueError("modes.method 'separable' needs shell.cells = 'prisms', concentric spherical walls "
+                             "and no [potential]")
+        rotor = self.particle.moment_of_inertia is not None
+        if self.units.length == "1" and self.units.energy != "1" and not rotor:
+            raise ValueError("units.energy needs a physical units.length (m, um, nm, angstrom, bohr) "
+                             "or a rotor's particle.moment_of_inertia")
+        if self.potential is not None and (self.potential.unit == "1") != (self.units.energy == "1"):
+            raise ValueError("potential.unit and units.energy must both be physical or both be '1'")
+        if rotor and self.surface is not None and self.surface.shape != "sphere":
+            raise ValueError("particle.moment_of_inertia describes a rigid rotor: use surface.shape = 'sphere'")
+        return self
+
+    @property
+    def base_dir(self) -> Path:
+        return Path(self.source).parent if self.source != "<case>" else Path.cwd()
+
+
+CASE_TABLES = {"surface": Surface, "shell": Shell, "resolution": Resolution, "particle": Particle, "units": Units,
+               "potential": Potential, "modes": Modes, "output": Output, "sweep": Sweep}
+
+
+def _allowed_keys(loc: tuple) -> list[str]:
+    """Valid keys of the table at ``loc`` (a pydantic location without the last element)."""
+    model: Any = Case
+    for part in loc:
+        if isinstance(part, int):
+            continue
+        fields = getattr(model, "model_fields", None)
+        if fields is None:
+            return []
+        if part in fields:
+            ann = fields[part].annotation
+            model = _model_of(ann)
+        else:  # a discriminator tag, e.g. 'sphere'
+            model = _variant(part)
+        if model is None:
+            return []
+    return list(getattr(model, "model_fields", {}))
+
+
+def _model_of(annotation):
+    args = getattr(annotation, "__args__", ())
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return annotation
+    for a in args:
+        found = _model_of(a)
+        if found is not None:
+            return found
+    metadata = getattr(annotation, "__metadata__", None)
+    if metadata is not None:
+        return _model_of(annotation.__origin__)
+    return None
+
+
+def _variant(tag):
+    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
+                MeshSurface):
+        if cls.model_fields["shape"].annotation.__args__[0] == tag:
+            return cls
+    return None
+
+
+_TAGS = {"sphere", "ellipsoid", "spheroid", "star", "torus", "cap", "mesh"}
+
+
+def _format_error(error: dict) -> tuple[str, str]:
+    loc = tuple(error["loc"])
+    # drop discriminator tags and pydantic's function-validator labels from the key path
+    key_parts = [str(p) if not isinstance(p, int) else f"[{p}]" for p in loc
+                 if not (isinstance(p, str) and (p in _TAGS and len(loc) > 1 and p != loc[0]))]
+    key = ".".join(key_parts).replace(".[", "[")
+    value = error.get("input")
+    kind = error["type"]
+    if kind == "extra_forbidden":
+        allowed = _allowed_keys(tuple(p for p in loc[:-1]))
+        allowed = [a for a in allowed if a != "source"]
+        near = difflib.get_close_matches(str(loc[-1]), allowed, n=1)
+        hint = f"did you mean '{near[0]}'? " if near else ""
+        return key, f"unknown key; {hint}allowed: {', '.join(allowed)}"
+    if kind == "missing":
+        return key, "required key is missing"
+    if kind == "union_tag_not_found":
+        return (key + ".shape" if not key.endswith("shape") else key,
+                f"required key is missing; allowed: {', '.join(sorted(_TAGS))}")
+    if kind == "union_tag_invalid":
+        return key + ".shape" if not key.endswith("shape") else key, (
+            f"unknown shape {error.get('ctx', {}).get('tag', value)!r}; allowed: {', '.join(sorted(_TAGS))}")
+    msg = error["msg"].replace("Value error, ", "")
+    if isinstance(value, float) and math.isnan(value):
+        value_text = "nan"
+    else:
+        value_text = repr(value)
+    if kind == "value_error" and not loc:
+        return "", msg
+    return key, f"value {value_text}: {msg}"
+
+
+def case_from_dict(data: dict, source: str = "<case>") -> Case:
+    """Validate case data (the parsed TOML tables) into a :class:`Case`.
+
+    Raises
+    ------
+    CaseError
+        For the first problem found, naming the key and the value.
+
+    Examples
+    --------
+    >>> case = case_from_dict({"surface": {"shape": "sphere"}, "modes": {"count": 4}})
+    >>> case.resolution.degree
+    2
+    """
+    if not isinstance(data, dict):
+        raise CaseError("a case must be a table of tables", source)
+    if "source" in data:
+        raise CaseError("unknown key; 'source' is reserved", source, "source")
+    # a table given as None (e.g. from Case.model_dump) counts as absent
+    data = {k: v for k, v in data.items() if not (k in ("surface", "shell", "potential", "sweep") and v is None)}
+    if "surface" not in data and "shell" not in data:
+        raise CaseError("required table is missing; give [surface] (a curved surface) or [shell] "
+                        "(a 3-D shell or ball)", source, "surface")
+    if "surface" in data and "shell" in data:
+        raise CaseError("give [surface] or [shell], not both", source, "shell")
+    try:
+        return Case.model_validate({**data, "source": source})
+    except ValidationError as exc:
+        errors = exc.errors()
+        # a typo'd key usually also leaves a required key missing: report the typo first
+        first = next((e for e in errors if e["type"] == "extra_forbidden"), errors[0])
+        key, message = _format_error(first)
+        raise CaseError(message, source, key or None) from None
+
+
+def load_case(path) -> Case:
+    """Read and validate a TOML case file.
+
+    Raises
+    ------
+    CaseError
+        Missing or unreadable file, malformed TOML, or invalid contents.
+    """
+    path = Path(path)
+    source = str(path)
+    if not path.is_file():
+        raise CaseError("no such case file", source)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise CaseError(f"cannot read the case file ({exc.__class__.__name__})", source) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise CaseError(f"malformed TOML: {exc}", source) from None
+    return case_from_dict(data, source)
+
+
+def case_schema() -> dict:
+    """JSON Schema of the case file (for editors: completion and validation)."""
+    schema = Case.model_json_schema(mode="validation")
+    schema.get("properties", {}).pop("source", None)
+    schema["title"] = "shellmodes case file"
+    # exactly one geometry table (the model validator's rule, in schema form)
+    schema["oneOf"] = [{"required": ["surface"], "not": {"required": ["shell"]}},
+                       {"required": ["shell"], "not": {"required": ["surface"]}}]
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    return schema

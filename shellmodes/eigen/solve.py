@@ -1,0 +1,256 @@
+"""The eigen-solver: lowest modes of K u = lambda M u, or all below a value.
+
+Shift-invert Lanczos (scipy's ARPACK ``eigsh``) with the shift strictly below
+the spectrum, so ``K - sigma M`` is positive definite even when K is singular
+(closed surfaces, free rims) and a Cholesky factorization applies.  The start
+vector is fixed, so results are reproducible.  The returned set never ends
+inside a multiplet: it is extended to the next relative gap.  Every pair
+carries its residual and the set is M-orthonormalised and checked.
+Large problems may use the blocked shift-invert iteration of
+:mod:`shellmodes.eigen.block` instead of Lanczos (``method``), from the
+same factor, shift and checks.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg as la
+import scipy.sparse as sp
+import scipy.sparse.linalg as sla
+
+from shellmodes.eigen.backends import get_backend
+from shellmodes.eigen.block import block_lowest
+from shellmodes.errors import DoubtfulResultWarning, SolverError
+from shellmodes.limits import WINDOW_START_COUNT
+
+__all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals", "resolve_method"]
+
+log = logging.getLogger(__name__)
+
+#: below this size a dense generalized eigensolver is cheaper and exact
+DENSE_LIMIT = 600
+#: from this size on ``method="auto"`` uses the blocked iteration (measured: benchmarks/README.md)
+BLOCK_THRESHOLD = 50_000
+#: iterations on assembled matrices ("separable" is a plan of :mod:`shellmodes.eigen.planner`, not an iteration)
+METHODS = ("auto", "lanczos", "block", "lobpcg")
+
+
+@dataclass(frozen=True, eq=False)
+class Eigenpairs:
+    """Eigenvalues (ascending), M-orthonormal vectors and their residuals."""
+
+    lam: np.ndarray
+    vectors: np.ndarray
+    residuals: np.ndarray
+    orthogonality: float
+    shift: float
+    backend: str
+    requested: int | None
+    timings: dict = field(default_factory=dict)
+    method: str = "lanczos"
+
+    def __repr__(self):
+        lows = ", ".join(f"{v:.6g}" for v in self.lam[:4])
+        return (f"Eigenpairs(n={len(self.lam)}, lam=[{lows}{', ...' if len(self.lam) > 4 else ''}], "
+                f"max_residual={np.max(self.residuals):.2e}, backend={self.backend!r}, method={self.method!r})")
+
+
+def resolve_method(n: int, method: str = "auto") -> str:
+    """The eigen-iteration for ``n`` unknowns: ``"dense"`` at most :data:`DENSE_LIMIT`, else ``method``,
+    with ``"auto"`` meaning ``"block"`` from :data:`BLOCK_THRESHOLD` on and ``"lanczos"`` below."""
+    if method not in (*METHODS, "dense"):
+        raise ValueError(f"unknown eigen-iteration {method!r}; allowed: {', '.join(METHODS)}")
+    if n <= DENSE_LIMIT or method == "dense":
+        return "dense"
+    if method == "auto":
+        return "block" if n >= BLOCK_THRESHOLD else "lanczos"
+    return method
+
+
+def relative_residuals(K, M, lam, U, floor: float) -> np.ndarray:
+    """||K u - lam M u|| / (max(|lam|, floor) ||M u||), column by column.
+
+    ``floor`` keeps the measure finite at lam = 0 (a constant mode); it is the
+    distance of the shift from zero, a natural spectral scale of the problem.
+    """
+    MU = M @ U
+    R = K @ U - MU * lam
+    return np.linalg.norm(R, axis=0) / (np.maximum(np.abs(lam), floor) * np.linalg.norm(MU, axis=0))
+
+
+def group_multiplets(lam: np.ndarray, tolerance: float, scale: float) -> list[np.ndarray]:
+    """Split ascending eigenvalues into runs whose neighbours differ by <= tolerance * size.
+
+    ``size`` is max(|lam|, scale), so near-zero eigenvalues group on an
+    absolute scale.
+    """
+    if len(lam) == 0:
+        return []
+    gaps = np.diff(lam) > tolerance * np.maximum(np.abs(lam[1:]), scale)
+    cuts = np.flatnonzero(gaps) + 1
+    return np.split(np.arange(len(lam)), cuts)
+
+
+def _m_orthonormalise(U, M):
+    G = U.T @ (M @ U)
+    error = float(np.max(np.abs(G - np.eye(G.shape[0])))) if G.size else 0.0
+    if error > 1e-10:
+        L = la.cholesky(0.5 * (G + G.T), lower=True)
+        U = la.solve_triangular(L, U.T, lower=True).T
+    return U, error
+
+
+def _dense(K, M, k):
+    lam, U = la.eigh(K.toarray(), M.toarray(), subset_by_index=[0, k - 1])
+    return lam, U
+
+
+def _shift_invert(K, M, k, sigma, factorize, v0):
+    A = (K - sigma * M).tocsc()
+    solve = factorize(A)
+    n = K.shape[0]
+    op = sla.LinearOperator((n, n), matvec=solve, matmat=solve, dtype=float)
+    ncv = min(n, max(2 * k + 1, k + 32))
+    try:
+        lam, U = sla.eigsh(K, k=k, M=M, sigma=sigma, which="LM", OPinv=op, v0=v0, ncv=ncv,
+                           tol=1e-13, maxiter=max(1000, 20 * k))
+    except sla.ArpackNoConvergence as exc:
+        raise SolverError(f"the Lanczos iteration did not converge for {k} modes "
+                          f"({len(exc.eigenvalues)} converged); reduce the count or refine the mesh") from None
+    order = np.argsort(lam)
+    return lam[order], U[:, order]
+
+
+def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, lower_bound: float = 0.0,
+                 scale: float = 1.0, backend: str = "auto", multiplet_tolerance: float = 1e-4,
+                 residual_limit: float = 1e-6, method: str = "auto", preconditioner=None,
+                 start=None) -> Eigenpairs:
+    """Lowest ``count`` eigenpairs of K u = lam M u (or all with lam < ``below``).
+
+    Parameters
+    ----------
+    K, M
+        Symmetric sparse stiffness (positive semi-definite up to a potential) and
+        positive definite mass.
+    count, below
+        Give one: the number of lowest modes, or an upper bound on lam.
+    lower_bound
+        A guaranteed lower bound of the spectrum (0 without a potential, the
+        potential's minimum otherwise).
+    scale
+        A typical eigenvalue spacing (e.g. 1/R^2); the shift is
+        ``lower_bound - scale``, strictly below every eigenvalue.
+    backend
+        Linear solver for shift-invert (see :mod:`shellmodes.eigen.backends`).
+    multiplet_tolerance
+        Relative gap used to extend the set to a whole multiplet.
+    residual_limit
+        Residuals above this raise a :class:`DoubtfulResultWarning`.
+    method
+        ``"lanczos"`` (ARPACK), ``"block"`` (:mod:`shellmodes.eigen.block`) or
+        ``"auto"``: block from :data:`BLOCK_THRESHOLD` degrees of freedom on.
+        Problems below :data:`DENSE_LIMIT` are solved densely either way.
+    preconditioner, start
+        ``method = "lobpcg"`` only: a preconditioner approximating
+        ``(K - shift M)^-1`` instead of AMG, and start vectors (see
+        :func:`shellmodes.eigen.backends.lobpcg_amg.lobpcg_lowest`).
+
+    Returns
+    -------
+    Eigenpairs
+
+    Raises
+    ------
+    SolverError
+        More modes than degrees of freedom, or no convergence.
+
+    Examples
+    --------
+    >>> import scipy.sparse as sp
+    >>> K = sp.diags([2.0, 1.0, 3.0]).tocsr(); M = sp.identity(3, format="csr")
+    >>> lowest_modes(K, M, 2).lam.round(6).tolist()
+    [1.0, 2.0]
+    """
+    n = K.shape[0]
+    if (count is None) == (below is None):
+        raise ValueError("give exactly one of count and below")
+    if count is not None and count > n:
+        raise SolverError(f"{count} modes were requested but the discretisation has only {n} "
+                          "degrees of freedom; refine the mesh or ask for fewer modes")
+    method = resolve_method(n, method)
+    K = sp.csr_matrix(K)
+    M = sp.csr_matrix(M)
+    sigma = float(lower_bound - scale)
+    if method == "dense":
+        name, factorize = "dense", None
+    elif method == "lobpcg":  # no factorization: LOBPCG preconditioned by algebraic multigrid (or as given)
+        name, factorize = ("amg" if preconditioner is None else getattr(preconditioner, "name", "given")), None
+    else:
+        name, factorize = get_backend(backend)
+    solve = None  # the block path factorizes once and keeps the factor across extensions
+    extra: dict = {}
+    rng = np.random.default_rng(20261202)
+    v0 = rng.standard_normal(n)
+    t0 = time.perf_counter()
+    target = count if count is not None else min(n, WINDOW_START_COUNT)
+    k = min(n, target + max(6, int(np.ceil(0.15 * target))))
+    while True:
+        if name == "dense" or k >= n - 1:
+            lam, U = _dense(K, M, min(k, n))
+            name_used, method_used = "dense", "dense"
+        elif method == "block" and 4 * k < n:
+            if solve is None:
+                t_factor = time.perf_counter()
+                solve = factorize((K - sigma * M).tocsc())
+                extra["factorization"] = time.perf_counter() - t_factor
+            found = block_lowest(K, M, k, sigma, solve, gap=multiplet_tolerance, scale=scale)
+            lam, U = found.lam, found.vectors
+            extra["block"] = found.stats
+            name_used, method_used = name, "block"
+        elif method == "lobpcg":
+            from shellmodes.eigen.backends.lobpcg_amg import lobpcg_lowest
+
+            lam, U = lobpcg_lowest(K, M, k, shift=sigma, tol=1e-9, preconditioner=preconditioner, start=start)
+            order = np.argsort(lam)
+            lam, U = lam[order], U[:, order]
+            name_used, method_used = name, "lobpcg"
+        else:
+            lam, U = _shift_invert(K, M, k, sigma, factorize, v0)
+            name_used, method_used = name, "lanczos"
+        groups = group_multiplets(lam, multiplet_tolerance, scale)
+        if below is not None:
+            inside = np.flatnonzero(lam < below)
+            if len(inside) == len(lam) and len(lam) < n:
+                k = min(n, 2 * k)
+                continue
+            last = inside[-1] if len(inside) else -1
+        else:
+            last = count - 1
+        if last < 0:
+            keep = 0
+        else:
+            group = next(g for g in groups if last in g)
+            keep = group[-1] + 1
+            if keep == len(lam) and len(lam) < n:  # the multiplet may continue beyond what we have
+                k = min(n, k + max(8, len(group) + 8))
+                continue
+        break
+    lam, U = lam[:keep], U[:, :keep]
+    U, orth = _m_orthonormalise(U, M)
+    residuals = relative_residuals(K, M, lam, U, floor=abs(sigma) if sigma else 1.0)
+    elapsed = time.perf_counter() - t0
+    log.info("solved %d modes with %s (%s) in %.2f s", keep, name_used, method_used, elapsed)
+    if count is not None and keep > count:
+        log.info("extended %d requested modes to %d to complete the last multiplet", count, keep)
+    worst = float(np.max(residuals)) if keep else 0.0
+    if worst > residual_limit:
+        warnings.warn(f"largest relative residual {worst:.2e} exceeds the limit {residual_limit:.1e} "
+                      f"(mode {int(np.argmax(residuals))}); do not trust these modes without checking",
+                      DoubtfulResultWarning, stacklevel=2)
+    return Eigenpairs(lam=lam, vectors=U, residuals=residuals, orthogonality=orth, shift=sigma,
+                      backend=name_used, requested=count, timings={"eigensolve": elapsed, **extra}, method=method_used)

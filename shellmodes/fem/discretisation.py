@@ -1,0 +1,487 @@
+"""One interface for every discretisation: curved surfaces, curved tetrahedra, layered curved prisms.
+
+The pipeline (:mod:`shellmodes.pipeline`), the solver planner
+(:mod:`shellmodes.eigen.planner`) and the outputs only ever talk to a
+:class:`Discretisation`: nodes, dof count, size h, free dofs for given walls,
+assembled operators for given media and potential, the mass matrix, cells for
+VTK, a one-line description and a mesh record.  Each kind wraps the object its
+own module builds (:class:`~shellmodes.fem.surface.CurvedSurface`,
+:class:`~shellmodes.volume.VolumeDiscretisation`,
+:class:`~shellmodes.fem.prisms.PrismShell`) and registers a builder from a
+case under its name; :func:`build_discretisation` picks the builder.  Adding a
+discretisation is one class and one ``@register_builder`` function: nothing in
+the pipeline, the planner or the outputs changes.
+
+Lower layers raise :class:`~shellmodes.errors.GeometryError` and
+:class:`~shellmodes.errors.MeshError`; the builders here turn them into a
+:class:`~shellmodes.errors.CaseError` naming the case key.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from abc import ABC, abstractmethod
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import ClassVar
+
+import numpy as np
+import scipy.sparse as sp
+
+from shellmodes.case.model import (
+    Media,
+    build_shape,
+    dirichlet_walls,
+    point_potential,
+    shell_level,
+    shell_walls,
+    subdivision_level,
+)
+from shellmodes.case.schema import Case
+from shellmodes.errors import CaseError, GeometryError, MeshError
+from shellmodes.fem.shellmesh import check_wall_order
+
+__all__ = ["Discretisation", "Operators", "ExportCells", "SurfaceDiscretisation", "TetrahedralDiscretisation",
+           "PrismDiscretisation", "build_discretisation", "register_builder", "BUILDERS", "discretise",
+           "check_walls", "fixed_walls"]
+
+
+@dataclass(frozen=True, eq=False)
+class Operators:
+    """Assembled K (kinetic + potential) and M on every dof, in lambda units.
+
+    ``lower_bound`` is a guaranteed lower bound of the spectrum (0, or the
+    potential's and the offsets' minimum); ``extra`` holds what a kind
+    measures on the way (a surface's area, a shell's volume).
+    """
+
+    K: sp.csr_matrix
+    M: sp.csr_matrix
+    lower_bound: float
+    seconds: float
+    extra: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True, eq=False)
+class ExportCells:
+    """Points, meshio cell blocks and cell data for a VTU file (mode values are point data)."""
+
+    points: np.ndarray
+    cells: list
+    cell_data: dict = field(default_factory=dict)
+
+    def as_dict(self) -> dict:
+        return {"points": self.points, "cells": self.cells, "cell_data": self.cell_data}
+
+
+class Discretisation(ABC):
+    """What every discretisation provides (see the module docstring).
+
+    Attributes
+    ----------
+    kind
+        ``"surface"``, ``"tetrahedra"`` or ``"prisms"``.
+    labeller
+        Name of the labeller in :mod:`shellmodes.spectrum.labelling` that gives modes
+        their parent labels (``"surface"`` or ``"volume"``).
+    raw
+        The wrapped object of the kind's own module.
+    """
+
+    kind: ClassVar[str]
+    labeller: ClassVar[str]
+    raw: object
+
+    @property
+    def nodes(self) -> np.ndarray:
+        """(ndofs, 3) position of every degree of freedom."""
+        return self.raw.nodes
+
+    @property
+    def ndofs(self) -> int:
+        return int(self.raw.ndofs)
+
+    @property
+    def h(self) -> float:
+        """Mesh size: the largest reference edge."""
+        return float(self.raw.h)
+
+    @property
+    def degree(self) -> int:
+        return int(self.raw.degree)
+
+    @property
+    @abstractmethod
+    def nelements(self) -> int:
+        """Number of cells."""
+
+    @property
+    def region_ids(self) -> list[int]:
+        return [0]
+
+    @property
+    def region_names(self) -> dict:
+        return {}
+
+    @abstractmethod
+    def free_dofs(self, fixed) -> np.ndarray:
+        """Sorted dofs left free when the walls named in ``fixed`` (``"rim"``, ``"inner"``, ``"outer"``) are 0."""
+
+    @abstractmethod
+    def assemble(self, media: Media, potential=None) -> Operators:
+        """K and M on every dof for the given media and compiled potential (lambda units)."""
+
+    @abstractmethod
+    def mass_matrix(self) -> sp.csr_matrix:
+        """The consistent mass matrix on every dof."""
+
+    @abstractmethod
+    def export(self) -> ExportCells:
+        """Cells for VTK."""
+
+    def spectral_scale(self, operators: Operators | None = None) -> float:
+        """A typical eigenvalue spacing (1/R^2 for the object's size R); sets the shift below the spectrum."""
+        return 1.0 / float(np.max(np.linalg.norm(self.nodes, axis=1))) ** 2
+
+    def mesh_info(self) -> dict:
+        """The mesh record written to spectrum.json."""
+        return {"kind": self.kind, "degree": self.degree, "elements": int(self.nelements), "dofs": self.ndofs,
+                "h": self.h}
+
+    def problem_info(self, problem) -> dict:
+        """What the problem on this mesh adds to the mesh record (walls, media)."""
+        return {}
+
+    def describe(self) -> str:
+        """One line for run.log."""
+        return f"{self.kind}: degree {self.degree}, {self.nelements} elements, {self.ndofs} dofs, h = {self.h:.4g}"
+
+    def __repr__(self) -> str:
+        return repr(self.raw)
+
+
+# ------------------------------------------------------------------------------------------------ surfaces
+class SurfaceDiscretisation(Discretisation):
+    """A curved Lagrange surface (:class:`~shellmodes.fem.surface.CurvedSurface`) of an analytic or mesh shape."""
+
+    kind = "surface"
+    labeller = "surface"
+
+    def __init__(self, surface, shape, rim: str | None = None):
+        self.raw = surface
+        self.shape = shape
+        #: the case's rim condition; None for closed surfaces
+        self.rim = rim if (not shape.closed and len(surface.boundary_dofs)) else None
+
+    @property
+    def nelements(self) -> int:
+        return int(self.raw.mesh.nelements)
+
+    def free_dofs(self, fixed) -> np.ndarray:
+        free = np.arange(self.ndofs)
+        boundary = self.raw.boundary_dofs
+        if "rim" in fixed and len(boundary):
+            free = np.setdiff1d(free, boundary)
+        return free
+
+    def assemble(self, media: Media, potential=None) -> Operators:
+        from shellmodes.fem.forms import assemble_surface
+
+        problem = assemble_surface(self.raw, potential)
+        return Operators(problem.K, problem.M, problem.lower_bound, problem.timings["assembly"],
+                         {"area": problem.area})
+
+    def mass_matrix(self) -> sp.csr_matrix:
+        import skfem
+
+        from shellmodes.fem.forms import mass
+
+        return skfem.asm(mass, self.raw.basis).tocsr()
+
+    def spectral_scale(self, operators: Operators | None = None) -> float:
+        """4 pi / area = 1/R_eq^2, the first nonzero eigenvalue of the sphere of the same area over 2."""
+        area = operators.extra["area"] if operators is not None else float(
+            np.ones(self.ndofs) @ (self.mass_matrix() @ np.ones(self.ndofs)))
+        return 4.0 * np.pi / area
+
+    def export(self) -> ExportCells:
+        from shellmodes.fem.surface import lagrange_element, lattice_cells
+
+        degree = self.raw.degree
+        t = self.raw.basis.element_dofs
+        if degree == 2:
+            return ExportCells(self.raw.nodes, [("triangle6", t.T.copy())])
+        sub = lattice_cells(lagrange_element(degree), degree)
+        cells = t[sub.T]  # (3, k^2, Nel)
+        return ExportCells(self.raw.nodes, [("triangle", cells.transpose(2, 1, 0).reshape(-1, 3))])
+
+    def mesh_info(self) -> dict:
+        shape = self.shape
+        return {"kind": "surface", "shape": shape.parameters(), "degree": self.degree,
+                "geometry_degree": self.raw.geometry_degree, "elements": self.nelements, "dofs": self.ndofs,
+                "h": self.h, "exact_area": shape.exact_area(), "closed": bool(shape.closed)}
+
+    def problem_info(self, problem) -> dict:
+        return {"rim": self.rim}
+
+    def describe(self) -> str:
+        return f"mesh: degree {self.degree}, {self.nelements} elements, {self.ndofs} dofs, h = {self.h:.4g}"
+
+
+def discretise(case: Case, shape=None):
+    """The curved Lagrange surface (:class:`~shellmodes.fem.surface.CurvedSurface`) of a surface case."""
+    from shellmodes.fem.surface import curved_surface
+
+    shape = build_shape(case) if shape is None else shape
+    res = case.resolution
+    level = subdivision_level(case, shape)
+    points, triangles = shape.reference(level)
+    element_nodes = getattr(shape, "quadratic_nodes", None) if level == 0 else None
+    if shape.name == "mesh" and shape.snap_shape is None and res.degree > 1 and (
+            element_nodes is None or res.degree != 2):
+        warnings.warn(f"{case.source}: degree {res.degree} elements on the flat triangles of "
+                      f"{shape.file}: the geometry limits eigenvalue accuracy to O(h^2); give quadratic "
+                      "cells with degree 2 or set surface.snap", UserWarning, stacklevel=2)
+    return curved_surface(points, triangles, res.degree, project=shape.project,
+                          quadrature_order=res.quadrature_order, element_nodes=element_nodes,
+                          unwrap=shape.unwrap, geometry_degree=res.geometry_degree)
+
+
+# ------------------------------------------------------------------------------------------------- volumes
+class _Volume(Discretisation):
+    labeller = "volume"
+
+    def __init__(self, raw):
+        self.raw = raw
+
+    def assemble(self, media: Media, potential=None) -> Operators:
+        t0 = time.perf_counter()
+        function = point_potential(potential)
+        K, M = self._assembled(media.inverse_mass, media.offsets, function)
+        lower = media.lowest_offset
+        if function is not None:
+            lower = min(lower, float(np.min(function(*self.nodes.T))))
+        return Operators(sp.csr_matrix(K), sp.csr_matrix(M), lower, time.perf_counter() - t0)
+
+    @abstractmethod
+    def _assembled(self, inverse_mass: dict, offsets: dict, function):
+        """(K, M) of the wrapped object's own assembler."""
+
+    @property
+    def region_ids(self) -> list[int]:
+        return self.raw.region_ids
+
+    @property
+    def region_names(self) -> dict:
+        return getattr(self.raw, "region_names", {})
+
+    @property
+    def walls(self) -> dict:
+        return getattr(self.raw, "walls", {})
+
+    @property
+    def source(self) -> str:
+        return self.raw.source
+
+    def mesh_info(self) -> dict:
+        return {"kind": "shell", "source": self.source, "cells": self.kind, "degree": self.degree,
+                "elements": int(self.nelements), "dofs": self.ndofs, "h": self.h}
+
+    def problem_info(self, problem) -> dict:
+        return {"regions": problem.media.as_dict(), "dirichlet_walls": list(problem.fixed),
+                "spherically_symmetric": problem.symmetric}
+
+
+class TetrahedralDiscretisation(_Volume):
+    """Curved P1/P2 tetrahedra (:class:`~shellmodes.volume.VolumeDiscretisation`): shells, balls, mesh files."""
+
+    kind = "tetrahedra"
+
+    @property
+    def nelements(self) -> int:
+        return int(self.raw.mesh.nelements)
+
+    def free_dofs(self, fixed) -> np.ndarray:
+        from shellmodes.fem.assemble import free_dofs
+
+        fixed = [w for w in fixed if w != "rim"]
+        return free_dofs(self.raw, fixed) if fixed else np.arange(self.ndofs)
+
+    def _assembled(self, inverse_mass, offsets, function):
+        from shellmodes.fem.assemble import assemble_volume
+
+        return assemble_volume(self.raw, inverse_mass, offsets, function)
+
+    def mass_matrix(self) -> sp.csr_matrix:
+        from shellmodes.fem.assemble import assemble_volume
+
+        return assemble_volume(self.raw, {r: 1.0 for r in self.region_ids})[1].tocsr()
+
+    def export(self) -> ExportCells:
+        from shellmodes.fem.tetrahedra import export_cells
+
+        return ExportCells(*export_cells(self.raw))
+
+    def describe(self) -> str:
+        return f"mesh: degree {self.degree}, {self.nelements} tetrahedra, {self.ndofs} dofs, h = {self.h:.4g}"
+
+
+class PrismDiscretisation(_Volume):
+    """Layered curved prisms (:class:`~shellmodes.fem.prisms.PrismShell`): surface degree x radial degree."""
+
+    kind = "prisms"
+
+    @property
+    def nelements(self) -> int:
+        return int(self.raw.nelements)
+
+    def free_dofs(self, fixed) -> np.ndarray:
+        return self.raw.free_dofs([w for w in fixed if w != "rim"])
+
+    def free_radial(self, fixed) -> np.ndarray:
+        return self.raw.free_radial([w for w in fixed if w != "rim"])
+
+    def _assembled(self, inverse_mass, offsets, function):
+        from shellmodes.fem.prisms import assemble_prisms
+
+        return assemble_prisms(self.raw, inverse_mass, offsets, function)
+
+    def separates(self) -> bool:
+        """Whether the walls are concentric spheres about the origin (the matrices are Kronecker sums)."""
+        return self.raw.concentric_spheres()
+
+    def kronecker_factors(self, media: Media, radial=None):
+        """(K_s, M_s, A, B, C) with K = K_s (x) B + M_s (x) A, M = M_s (x) C (concentric spheres only)."""
+        from shellmodes.fem.prisms import kronecker_factors
+
+        return kronecker_factors(self.raw, media.inverse_mass, media.offsets, radial)
+
+    def mass_matrix(self) -> sp.csr_matrix:
+        from shellmodes.fem.prisms import assemble_prisms, kronecker_factors
+
+        if self.separates():
+            Ks, Ms, A, B, C = kronecker_factors(self.raw, {})
+            return sp.kron(Ms, C).tocsr()
+        return assemble_prisms(self.raw, {})[1].tocsr()
+
+    def export(self) -> ExportCells:
+        from shellmodes.fem.prisms import export_prisms
+
+        return ExportCells(*export_prisms(self.raw))
+
+    def mesh_info(self) -> dict:
+        raw = self.raw
+        return {**super().mesh_info(), "radial_degree": raw.radial_degree, "geometry_degree": raw.geometry_degree,
+                "surface_dofs": raw.n_surface, "radial_dofs": raw.n_radial}
+
+    def describe(self) -> str:
+        return (f"mesh: degree {self.degree} x radial {self.raw.radial_degree}, {self.nelements} prisms, "
+                f"{self.ndofs} dofs, h = {self.h:.4g}")
+
+
+# ------------------------------------------------------------------------------------------------ builders
+#: builder name -> function(case) -> Discretisation
+BUILDERS: dict[str, Callable[[Case], Discretisation]] = {}
+
+
+def register_builder(name: str):
+    """Register ``function(case) -> Discretisation`` under ``name``."""
+
+    def wrap(function):
+        BUILDERS[name] = function
+        return function
+
+    return wrap
+
+
+def builder_name(case: Case) -> str:
+    """Which builder a case needs: ``"surface"``, ``"tetrahedra"`` or ``"prisms"``."""
+    if case.surface is not None:
+        return "surface"
+    return "prisms" if case.shell.cells == "prisms" else "tetrahedra"
+
+
+def build_discretisation(case: Case) -> Discretisation:
+    """The discretisation a case describes (see :data:`BUILDERS`)."""
+    return BUILDERS[builder_name(case)](case)
+
+
+@register_builder("surface")
+def _surface(case: Case) -> SurfaceDiscretisation:
+    shape = build_shape(case)
+    return SurfaceDiscretisation(discretise(case, shape), shape, getattr(case.surface, "rim", None))
+
+
+@register_builder("tetrahedra")
+def _tetrahedra(case: Case) -> TetrahedralDiscretisation:
+    from shellmodes.fem.shellmesh import shell_mesh
+    from shellmodes.fem.tetrahedra import discretise as discretise_volume
+    from shellmodes.meshfiles.volume import read_volume_mesh
+
+    shell, res = case.shell, case.resolution
+    if shell.file is not None:
+        path = Path(shell.file)
+        if not path.is_absolute():
+            path = case.base_dir / path
+        try:
+            return TetrahedralDiscretisation(read_volume_mesh(
+                path, degree=res.degree, require_regions=bool(shell.regions), quadrature_order=res.quadrature_order))
+        except MeshError as exc:
+            raise CaseError(exc.reason, exc.source or case.source, "shell.file") from None
+    with _shell_errors(case):
+        mesh = shell_mesh(shell_walls(case), level=shell_level(case), layers_per_region=_layers(case))
+        return TetrahedralDiscretisation(discretise_volume(mesh, res.degree, quadrature_order=res.quadrature_order))
+
+
+@register_builder("prisms")
+def _prisms(case: Case) -> PrismDiscretisation:
+    from shellmodes.fem.prisms import prism_shell
+
+    shell, res = case.shell, case.resolution
+    with _shell_errors(case):
+        return PrismDiscretisation(prism_shell(
+            shell_walls(case), shell_level(case), _layers(case), degree=res.degree,
+            radial_degree=shell.radial_degree, geometry_degree=res.geometry_degree,
+            quadrature_order=res.quadrature_order))
+
+
+def _layers(case: Case):
+    layers = case.shell.layers
+    return layers if isinstance(layers, int) else list(layers)
+
+
+class _shell_errors:
+    """Turn geometry and mesh errors of a shell's construction into case errors on the key ``shell``."""
+
+    def __init__(self, case: Case):
+        self.case = case
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, kind, exc, tb):
+        if isinstance(exc, GeometryError):
+            raise CaseError(str(exc), self.case.source, "shell") from None
+        if isinstance(exc, MeshError):
+            raise CaseError(exc.reason, self.case.source, "shell") from None
+        return False
+
+
+def check_walls(case: Case) -> None:
+    """The walls' radii and ordering, checked cheaply (no mesh): what a sweep validates per step."""
+    if case.shell.file is not None:
+        return
+    try:
+        check_wall_order(shell_walls(case), min(shell_level(case), 6))
+    except GeometryError as exc:
+        raise CaseError(str(exc), case.source, "shell") from None
+
+
+def fixed_walls(case: Case, disc: Discretisation) -> list[str]:
+    """Walls held at zero: a surface's hard rim, a shell's Dirichlet walls."""
+    if case.surface is not None:
+        closed = disc.shape.closed
+        return ["rim"] if (not closed and getattr(case.surface, "rim", None) == "dirichlet") else []
+    return dirichlet_walls(case, disc)

@@ -1,0 +1,2 @@
+"""Files and pictures: the output writers (atomic folder), level diagrams and renders, the HTML report.
+"""

@@ -1,0 +1,428 @@
+"""Pictures of a run: the level diagram and off-screen renders of modes.
+
+Two functions, both reading what ``shellmodes run`` wrote:
+
+- :func:`spectrum_picture` draws the levels of ``spectrum.json`` grouped by
+  multiplet; for closed sphere-like surfaces it draws them beside the ladder
+  E_l = E0 l(l+1) / R_eq^2 of the sphere of the same area (R_eq^2 = A / 4 pi,
+  the labelling rule of :mod:`shellmodes.spectrum.multiplets`), with a thin line from
+  each rung to the multiplets that descend from it.
+- :func:`render_modes` renders chosen modes of ``modes.vtu`` on the surface,
+  or on a cut through the centre for volume meshes (tetra, tetra10), with a
+  diverging colour map centred at zero and symmetric limits.
+
+matplotlib and pyvista belong to the optional ``plot`` extra: they are
+imported inside the functions, and a missing one raises
+:class:`PlotExtraMissing`.  Nothing here prints; VTK's own chatter is turned
+off while rendering.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from shellmodes.errors import MeshError, ShellmodesError
+
+__all__ = ["PlotExtraMissing", "LevelDiagram", "spectrum_picture", "render_modes", "mode_fields",
+           "sphere_ladder", "DIVERGING_COLOURS"]
+
+#: our diverging map for mode amplitudes: deep slate blue through warm paper to brick red
+DIVERGING_COLOURS = ("#203a5c", "#4f7fae", "#a9c6de", "#f6f2ea", "#e9b28f", "#c0603a", "#6e2414")
+#: one colour per parent degree l (cycled), chosen to stay apart in print
+LEVEL_COLOURS = ("#3a6ea5", "#c2702f", "#2e8b6f", "#8e4f9e", "#b5443f", "#5b7f2a", "#a8862b", "#4a5a6a")
+LADDER_COLOUR = "#9aa3ad"
+
+_FIELD = re.compile(r"^mode(\d+)_E=(.+)$")
+# VTK cell types that fill a volume (tetra, voxel, hexahedron, wedge, pyramid,
+# quadratic tetra/hexa/wedge/pyramid); everything else is drawn as a surface
+_VOLUME_CELLS = frozenset({10, 11, 12, 13, 14, 24, 25, 26, 27, 29, 32, 33})
+
+
+class PlotExtraMissing(ShellmodesError, ImportError):
+    """matplotlib or pyvista (the ``plot`` extra) is not installed."""
+
+
+def _matplotlib():
+    try:
+        import matplotlib
+    except ImportError:
+        raise PlotExtraMissing("pictures need matplotlib: pip install 'shellmodes[plot]'") from None
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+
+    return matplotlib, plt
+
+
+def _pyvista():
+    try:
+        import pyvista
+    except ImportError:
+        raise PlotExtraMissing("mode renders need pyvista: pip install 'shellmodes[plot]'") from None
+    return pyvista
+
+
+def _write_atomic_png(path: Path, save) -> Path:
+    """Call ``save(tmp_path)`` for a temporary .png beside ``path``, then rename it into place."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=".png", dir=path.parent)
+    os.close(fd)
+    try:
+        save(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+@dataclass(frozen=True)
+class LevelDiagram:
+    """What :func:`spectrum_picture` drew.
+
+    Attributes
+    ----------
+    path
+        The PNG written.
+    levels
+        One record per drawn bar (one per mode): ``mode``, ``multiplet``,
+        ``energy`` and the bar's horizontal extent ``x0``, ``x1``.
+    ladder
+        ``(l, energy)`` of each sphere rung drawn (empty without a ladder).
+    unit
+        Energy unit of the vertical axis.
+    """
+
+    path: Path
+    levels: list = field(default_factory=list)
+    ladder: list = field(default_factory=list)
+    unit: str = "1"
+
+    def __repr__(self):
+        return (f"LevelDiagram({self.path.name}, bars={len(self.levels)}, rungs={len(self.ladder)}, "
+                f"unit={self.unit!r})")
+
+
+def sphere_ladder(spectrum_json: dict) -> list[tuple[int, float]]:
+    """Rungs ``(l, E0 l(l+1) / R_eq^2)`` up to one above the highest parent degree, or ``[]``.
+
+    A ladder exists only for closed surfaces whose multiplets carry parent
+    degrees and whose mesh records its area (R_eq^2 = area / 4 pi).
+    """
+    mesh = spectrum_json.get("mesh") or {}
+    multiplets = spectrum_json.get("multiplets") or []
+    ls = [m.get("l") for m in multiplets if m.get("l") is not None]
+    area = mesh.get("area")
+    if not (mesh.get("closed") and ls and area):
+        return []
+    e0 = (spectrum_json.get("units") or {}).get("energy_per_lambda")
+    e0 = 1.0 if e0 is None else float(e0)  # dimensionless runs: energies are the eigenvalues
+    radius_eq2 = float(area) / (4.0 * np.pi)
+    return [(l, e0 * l * (l + 1) / radius_eq2) for l in range(0, max(ls) + 2)]
+
+
+def spectrum_picture(spectrum_json: dict, path, *, title: str | None = None) -> LevelDiagram:
+    """Draw the levels of one run, grouped by multiplet, as a PNG.
+
+    Each multiplet of size n is drawn as n short bars side by side at the
+    energies of its modes, centred on one column, coloured by parent degree.
+    For closed sphere-like surfaces the sphere's ladder l(l+1)/R_eq^2
+    (scaled by E0 to the same energy unit) stands on the left, each rung
+    labelled with l and 2l+1, joined by thin lines to its descendants.
+
+    Parameters
+    ----------
+    spectrum_json
+        The parsed ``spectrum.json`` of a run.
+    path
+        PNG file to write (atomically).
+    title
+        Figure title (default: the case title).
+
+    Returns
+    -------
+    LevelDiagram
+        What was drawn: one level record per mode, the ladder rungs.
+
+    Raises
+    ------
+    PlotExtraMissing
+        matplotlib is not installed.
+
+    Examples
+    --------
+    >>> import json, tempfile, pathlib
+    >>> data = {"modes": [{"index": 0, "energy": 0.0, "multiplet": 0}],
+    ...         "multiplets": [{"index": 0, "energy": 0.0, "size": 1, "l": 0, "modes": [0]}]}
+    >>> d = spectrum_picture(data, pathlib.Path(tempfile.mkdtemp()) / "levels.png")
+    >>> len(d.levels)
+    1
+    """
+    _, plt = _matplotlib()
+    modes = spectrum_json.get("modes") or []
+    multiplets = sorted(spectrum_json.get("multiplets") or [], key=lambda m: float(m["energy"]))
+    unit = (spectrum_json.get("units") or {}).get("energy") or "1"
+    energy_of = {int(m["index"]): float(m["energy"]) for m in modes}
+    ladder = sphere_ladder(spectrum_json)
+    top = max(energy_of.values(), default=1.0)
+    if ladder:
+        # the rungs up to the first one above the highest computed level
+        above = [k for k, (_, e) in enumerate(ladder) if e > top * (1 + 1e-9)]
+        ladder = ladder[:above[0] + 1] if above else ladder
+    groups = _level_groups(multiplets, by_degree=bool(ladder))
+
+    bar, gap, space = 0.16, 0.05, 0.22
+
+    def members_of(m):
+        return [int(i) for i in m.get("modes", [])] or [int(m["index"])]
+
+    def width(group):
+        sizes = [len(members_of(m)) for m in group]
+        return sum(n * bar + (n - 1) * gap for n in sizes) + space * (len(sizes) - 1)
+
+    widest = max((width(g) for g in groups), default=bar)
+    ladder_right = -widest / 2 - 1.0
+    rung_energy = dict(ladder)
+
+    fig, ax = plt.subplots(figsize=(7.2, 5.6), dpi=110)
+    fig.patch.set_facecolor("#fbfaf7")
+    ax.set_facecolor("#fbfaf7")
+    levels = []
+    for group in groups:
+        x = -width(group) / 2
+        for m in group:
+            members = members_of(m)
+            l = m.get("l")
+            colour = LEVEL_COLOURS[(l if l is not None else int(m["index"])) % len(LEVEL_COLOURS)]
+            e_m = float(m["energy"])
+            if ladder and l in rung_energy and m is group[0]:  # one thin line from each rung
+                ax.plot([ladder_right + 0.04, x - 0.03], [rung_energy[l], e_m], color=colour, lw=0.6,
+                        alpha=0.6, ls=(0, (3, 2)))
+            for i in members:
+                e = energy_of.get(i, e_m)
+                ax.plot([x, x + bar], [e, e], color=colour, lw=2.6, solid_capstyle="butt")
+                levels.append({"mode": i, "multiplet": int(m["index"]), "energy": e, "x0": x, "x1": x + bar})
+                x += bar + gap
+            x += space - gap
+        sizes = [len(members_of(m)) for m in group]
+        if len(sizes) > 1 or sizes[0] > 1:
+            ax.text(widest / 2 + 0.15, float(np.mean([float(m["energy"]) for m in group])),
+                    "+".join(map(str, sizes)), va="center", fontsize=7, color="#5a6470")
+    for l, e in ladder:
+        ax.plot([ladder_right - 0.8, ladder_right], [e, e], color=LADDER_COLOUR, lw=2.0, solid_capstyle="butt")
+        ax.text(ladder_right - 0.85, e, f"l={l} ({2 * l + 1})", ha="right", va="center", fontsize=7,
+                color="#5a6470")
+
+    ax.set_ylabel(f"energy [{unit}]" if unit != "1" else "energy (eigenvalue, dimensionless)")
+    ax.set_xticks([])
+    for side in ("top", "right", "bottom"):
+        ax.spines[side].set_visible(False)
+    ax.spines["left"].set_color("#7d8792")
+    ax.tick_params(colors="#3b4652", labelsize=8)
+    ax.set_xlim((ladder_right - 2.0) if ladder else -widest / 2 - 0.5, widest / 2 + 1.4)
+    y_top = ax.get_ylim()[1]
+    if ladder:
+        ax.text(ladder_right - 0.4, y_top, "sphere of equal area", ha="center", va="bottom", fontsize=8,
+                color="#5a6470")
+    ax.text(0.0, y_top, "computed (multiplet sizes at right)", ha="center", va="bottom", fontsize=8,
+            color="#5a6470")
+    heading = title if title is not None else ((spectrum_json.get("case") or {}).get("title") or "levels")
+    ax.set_title(heading, fontsize=10, color="#1d2a3a", pad=16, loc="left")
+    fig.tight_layout()
+    try:
+        out = _write_atomic_png(Path(path), lambda tmp: fig.savefig(tmp, format="png",
+                                                                      facecolor=fig.get_facecolor()))
+    finally:
+        plt.close(fig)
+    return LevelDiagram(path=out, levels=levels, ladder=list(ladder), unit=unit)
+
+
+def _level_groups(multiplets, by_degree: bool) -> list[list[dict]]:
+    """Multiplets laid side by side: one group per parent degree, else runs of close levels.
+
+    Without parent degrees, neighbours closer than 2% of the energy range
+    share a group so nearly coincident levels do not hide each other.
+    """
+    if not multiplets:
+        return []
+    if by_degree:
+        groups: dict = {}
+        for m in multiplets:
+            groups.setdefault(m.get("l"), []).append(m)
+        return list(groups.values())
+    energies = [float(m["energy"]) for m in multiplets]
+    close = 0.02 * ((max(energies) - min(energies)) or 1.0)
+    out = [[multiplets[0]]]
+    for prev, m in zip(multiplets, multiplets[1:]):
+        if float(m["energy"]) - float(prev["energy"]) <= close:
+            out[-1].append(m)
+        else:
+            out.append([m])
+    return out
+
+
+def mode_fields(names) -> dict[int, tuple[str, str]]:
+    """``{mode index: (array name, energy text)}`` for the point arrays named ``mode0007_E=...``."""
+    out = {}
+    for name in names:
+        match = _FIELD.match(name)
+        if match:
+            out[int(match.group(1))] = (name, match.group(2))
+    return out
+
+
+def _diverging_map():
+    from matplotlib.colors import LinearSegmentedColormap
+
+    return LinearSegmentedColormap.from_list("shellmodes_diverging", DIVERGING_COLOURS, N=256)
+
+
+def _is_volume(grid) -> bool:
+    return bool(set(int(c) for c in np.unique(grid.celltypes)) & _VOLUME_CELLS)
+
+
+# Linear pieces of the quadratic tetrahedron in VTK/meshio tetra10 order
+# (vertices 0-3, then edge nodes 01, 12, 02, 03, 13, 23): four corner tetrahedra
+# and the inner octahedron split along the diagonal 02-13 (nodes 6-8).
+_TETRA10_PIECES = np.array([[0, 4, 6, 7], [4, 1, 5, 8], [6, 5, 2, 9], [7, 8, 9, 3],
+                            [6, 8, 4, 5], [6, 8, 5, 9], [6, 8, 9, 7], [6, 8, 7, 4]])
+_VTK_TETRA, _VTK_QUADRATIC_TETRA, _VTK_WEDGE = 10, 24, 13
+# Wedges (triangles 0-1-2 and 3-4-5, node i above node i + 3) become three tetrahedra on their own
+# nodes, split conformingly by the smallest-index rule of Dompierre, Labbe, Vallet and Camarero
+# (Proc. 8th International Meshing Roundtable, 1999): turn the wedge so its smallest global node is
+# node 0, then cut the opposite quadrilateral 1-2-5-4 along the diagonal through its smallest node.
+_WEDGE_TURNS = np.array([[0, 1, 2, 3, 4, 5], [1, 2, 0, 4, 5, 3], [2, 0, 1, 5, 3, 4],
+                         [3, 5, 4, 0, 2, 1], [4, 3, 5, 1, 0, 2], [5, 4, 3, 2, 1, 0]])
+_WEDGE_CUTS = (np.array([[0, 1, 2, 5], [0, 1, 5, 4], [0, 4, 5, 3]]),
+               np.array([[0, 1, 2, 4], [0, 4, 2, 5], [0, 4, 5, 3]]))
+
+
+def _wedge_tetrahedra(wedges: np.ndarray) -> np.ndarray:
+    turned = np.take_along_axis(wedges, _WEDGE_TURNS[np.argmin(wedges, axis=1)], axis=1)
+    through_15 = np.minimum(turned[:, 1], turned[:, 5]) < np.minimum(turned[:, 2], turned[:, 4])
+    pieces = np.where(through_15[:, None, None], _WEDGE_CUTS[0][None], _WEDGE_CUTS[1][None])
+    return np.take_along_axis(turned, pieces.reshape(len(wedges), 12), axis=1).reshape(-1, 4)
+
+
+def _linear_volume(pv, grid):
+    """The cells of ``grid`` as linear tetrahedra (tetra10 split into 8, wedges into 3, on their own nodes).
+
+    VTK's clip filter cuts quadratic tetrahedra into broken faces and its
+    tessellator makes millions of cells; the eight-piece split uses every
+    node exactly once and keeps the field's nodal values.
+    """
+    cells = grid.cells_dict
+    tets = [np.asarray(cells[_VTK_TETRA])] if _VTK_TETRA in cells else []
+    if _VTK_QUADRATIC_TETRA in cells:
+        quad = np.asarray(cells[_VTK_QUADRATIC_TETRA])
+        tets.append(quad[:, _TETRA10_PIECES].reshape(-1, 4))
+    if _VTK_WEDGE in cells:
+        tets.append(_wedge_tetrahedra(np.asarray(cells[_VTK_WEDGE])))
+    if not tets:
+        raise MeshError("volume renders support tetra, tetra10 and wedge cells only")
+    linear = pv.UnstructuredGrid({_VTK_TETRA: np.concatenate(tets)}, np.asarray(grid.points))
+    return linear
+
+
+def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
+                 window_size=(640, 560)) -> list[Path]:
+    """Render modes of a ``modes.vtu`` off-screen, one PNG each.
+
+    Surfaces are drawn whole (quadratic triangles subdivided by VTK so their
+    curved edges and quadratic fields show); volume meshes (tetra, tetra10)
+    are cut by the plane x = x_centre and the half x <= x_centre is drawn
+    with its cut face towards the camera.  Colours are a diverging map
+    centred at zero with symmetric limits +-max|u|; the scalar bar is titled
+    with the mode's energy taken from its array name.
+
+    Parameters
+    ----------
+    vtu_path
+        A ``modes.vtu`` written by ``shellmodes run``.
+    indices
+        Mode indices to render.
+    path_pattern
+        Output path with a ``{index}`` field, e.g. ``"out/mode{index:04d}.png"``.
+    unit
+        Energy unit for the scalar-bar title (optional).
+    window_size
+        Pixels (width, height).
+
+    Returns
+    -------
+    list of Path
+        The PNGs written, in the order of ``indices``.
+
+    Raises
+    ------
+    MeshError
+        The file is missing or unreadable, or a mode is not in it.
+    PlotExtraMissing
+        pyvista or matplotlib is not installed.
+    """
+    pv = _pyvista()
+    _matplotlib()
+    vtu_path = Path(vtu_path)
+    indices = [int(i) for i in indices]
+    if not vtu_path.is_file():
+        raise MeshError("no such mode file; run with output.vtu = true to write modes.vtu", str(vtu_path))
+    with pv.vtk_verbosity("off"):
+        try:
+            grid = pv.read(vtu_path)
+        except Exception as exc:  # vtk raises assorted types for unreadable files
+            raise MeshError(f"cannot read the mode file ({type(exc).__name__}: {exc})".replace("\n", " "),
+                            str(vtu_path)) from None
+        fields = mode_fields(grid.point_data.keys())
+        missing = [i for i in indices if i not in fields]
+        if missing:
+            raise MeshError(f"mode(s) {missing} not in the file; it holds {len(fields)} modes", str(vtu_path))
+        volume = _is_volume(grid)
+        base = _linear_volume(pv, grid) if volume else pv.UnstructuredGrid(grid.cells, grid.celltypes,
+                                                                            np.asarray(grid.points))
+        cmap = _diverging_map()
+        written = []
+        for i in indices:
+            name, energy = fields[i]
+            values = np.asarray(grid.point_data[name], dtype=float)
+            top = float(np.max(np.abs(values))) if values.size else 0.0
+            limit = top if top > 0 else 1.0
+            view = base.copy()
+            view.point_data["u"] = values
+            if volume:
+                view = view.clip(normal=(1.0, 0.0, 0.0), origin=grid.center, invert=True, crinkle=False)
+            surface = view.extract_surface(nonlinear_subdivision=3, algorithm="dataset_surface")
+            surface = surface.compute_normals(split_vertices=False, auto_orient_normals=not volume)
+            out = Path(str(path_pattern).format(index=i))
+            title = f"mode {i}   E = {energy}" + (f" {unit}" if unit and unit != "1" else "")
+            written.append(_write_atomic_png(out, lambda tmp, s=surface, t=title, c=limit: _shoot(
+                pv, s, t, cmap, c, volume, window_size, tmp)))
+    return written
+
+
+def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename):
+    plotter = pv.Plotter(off_screen=True, window_size=list(window_size))
+    try:
+        plotter.set_background("#fbfaf7")
+        plotter.add_mesh(surface, scalars="u", cmap=cmap, clim=(-limit, limit), smooth_shading=True,
+                         ambient=0.4, diffuse=0.7, specular=0.05, show_scalar_bar=False)
+        plotter.add_scalar_bar(title=title, n_labels=5, fmt="%.2g", color="#1d2a3a", vertical=False,
+                               position_x=0.18, position_y=0.04, width=0.64, height=0.09, title_font_size=22,
+                               label_font_size=16)
+        if volume:
+            # look at the cut face: the plane x = centre bounds the kept half x <= centre
+            plotter.camera_position = "yz"
+            plotter.camera.Azimuth(35.0)
+            plotter.camera.Elevation(20.0)
+        else:
+            plotter.camera_position = "iso"
+        plotter.reset_camera()
+        plotter.camera.zoom(1.1)
+        plotter.screenshot(filename)
+    finally:
+        plotter.close()

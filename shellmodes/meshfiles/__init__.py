@@ -1,0 +1,2 @@
+"""Reading user meshes with meshio: surfaces (triangles, triangle6) and volumes (tetra, tetra10).
+"""

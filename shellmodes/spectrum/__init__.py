@@ -1,0 +1,3 @@
+"""Solved spectra: multiplets, angular content, first-order perturbation theory, (n, l) labels
+and the labellers that give modes their parent labels.
+"""

@@ -1,0 +1,127 @@
+"""Labellers: parent labels and angular content of solved modes, one per family of discretisation.
+
+A labeller takes the problem, the plan and the solved modes and returns
+:class:`Labels`: the multiplets (with parent l and, where analysed, the
+basis-independent content of each multiplet's subspace), per-mode columns
+for the tables (``n``, ``dominant_l``, ``l_weight``, ...), per-mode angular
+content, and which rule gave the labels.  Labellers register by name; each
+discretisation names its own (:attr:`shellmodes.fem.discretisation.Discretisation.labeller`).
+
+``surface``
+    Closed sphere-like surfaces: the parent l of a multiplet is the nearest l
+    of lam R_eq^2 with R_eq^2 = area / 4 pi; per-mode and per-multiplet
+    angular content by least squares on the radial map (:mod:`shellmodes.spectrum.angular`).
+``volume``
+    Shells and balls: (n, l) exact on the separable path, by overlap with the
+    mean-radius spherical shell's modes on the LOBPCG path for deformed prisms,
+    and otherwise from the angular content with radial factors
+    (:func:`shellmodes.volume.radial_angular_labels`).
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from shellmodes.spectrum.multiplets import Multiplet, build_multiplets
+
+__all__ = ["Labels", "LABELLERS", "register_labeller", "label_modes"]
+
+
+@dataclass(frozen=True, eq=False)
+class Labels:
+    multiplets: list[Multiplet]
+    columns: dict = field(default_factory=dict)
+    angular: object | None = None
+    rule: str | None = None
+    #: extra records for spectrum.json (e.g. ``perturbation`` rows of star-shaped surfaces)
+    info: dict = field(default_factory=dict)
+
+
+#: name -> function(problem, plan, solved, scale, tolerance) -> Labels
+LABELLERS: dict[str, Callable] = {}
+
+
+def register_labeller(name: str):
+    def wrap(function):
+        LABELLERS[name] = function
+        return function
+
+    return wrap
+
+
+def label_modes(problem, plan, solved, scale, tolerance: float) -> Labels:
+    """Labels of solved modes by the labeller the discretisation names (``scale``: the case's EnergyScale)."""
+    return LABELLERS[problem.disc.labeller](problem, plan, solved, scale, tolerance)
+
+
+@register_labeller("surface")
+def _surface(problem, plan, solved, scale, tolerance) -> Labels:
+    from shellmodes.spectrum.angular import angular_content, harmonic_projector, multiplet_content
+    from shellmodes.spectrum.perturbation import perturbation_rows
+
+    disc, lam, vectors = problem.disc, solved.pairs.lam, solved.vectors
+    shape = disc.shape
+    sphere_like = shape.closed and shape.sphere_like
+    radius_eq2 = problem.operators.extra["area"] / (4 * np.pi) if sphere_like else None
+    multiplets = build_multiplets(lam, scale.energies(lam), tolerance, plan.scale, radius_eq2)
+    rows = perturbation_rows(shape, lam, multiplets, scale.factor)
+    info = {"perturbation": rows} if rows else {}
+    if not sphere_like or vectors.shape[1] == 0:
+        return Labels(multiplets, info=info)
+    top = max((m.l for m in multiplets if m.l is not None), default=0)
+    # (l_max + 1)^2 harmonics must stay well below the number of nodes to be resolved
+    resolvable = int(np.sqrt(disc.ndofs / 8.0)) - 1
+    l_max = max(0, min(top + 3, resolvable))
+    axisymmetric = shape.name in ("sphere", "spheroid") or (
+        shape.name == "star" and all(m == 0 for _, m, _ in shape.deformation))
+    M = problem.operators.M
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # l_max is chosen within the resolvable range above
+        projector = harmonic_projector(disc.nodes, M, l_max, center=shape.center)
+        per_mode = angular_content(disc.nodes, vectors, M, l_max, axisymmetric=axisymmetric, projector=projector)
+        content = multiplet_content(disc.nodes, vectors, M, [m.members for m in multiplets], l_max,
+                                    projector=projector)
+    return Labels([m.with_content(row) for m, row in zip(multiplets, content, strict=True)], angular=per_mode,
+                  rule="parent l: nearest l(l+1) to lambda R_eq^2 (sphere of the same area)", info=info)
+
+
+@register_labeller("volume")
+def _volume(problem, plan, solved, scale, tolerance) -> Labels:
+    lam = solved.pairs.lam
+    energies = scale.energies(lam)
+    given = solved.labels
+    if "n" in given:  # exact (separable) or by overlap with a spherical reference (deformed prisms)
+        n, l, weight, rule = given["n"], given["l"], given["weight"], given["rule"]
+        columns = {"n": [int(v) for v in n], "dominant_l": [int(v) for v in l],
+                   "l_weight": [float(v) for v in weight]}
+        return Labels(build_multiplets(lam, energies, tolerance, plan.scale, mode_l=l), columns, rule=rule)
+    fitted = _fitted(problem, solved.vectors)
+    if fitted is None:
+        return Labels(build_multiplets(lam, energies, tolerance, plan.scale))
+    columns = {"n": [int(v) for v in fitted.n], "dominant_l": [int(v) for v in fitted.l],
+               "l_weight": [float(fitted.content[i, fitted.l[i]]) for i in range(len(lam))]}
+    symmetric = problem.symmetric
+    rule = "(n, l) from angular content" + ("" if symmetric else " (parent labels, deformed)")
+    return Labels(build_multiplets(lam, energies, tolerance, plan.scale, mode_l=fitted.l), columns, rule=rule)
+
+
+def _fitted(problem, vectors):
+    """(n, l) per mode from the angular content with radial factors, or None when it cannot be fitted."""
+    from shellmodes.spectrum.radial_labels import radial_angular_labels
+
+    if vectors.shape[1] == 0:
+        return None
+    radial_degree = 6
+    # (l_max + 1)^2 (radial_degree + 1) fitting functions must stay below 1/8 of the nodes to be resolved,
+    # and the count of modes bounds the degrees present (l <= sqrt(count) for a ladder of 2l+1 multiplets)
+    resolvable = int(np.sqrt(problem.disc.ndofs / (8.0 * (radial_degree + 1)))) - 1
+    l_max = max(1, min(12, resolvable, int(np.sqrt(vectors.shape[1])) + 2))
+    try:
+        return radial_angular_labels(problem.disc.nodes, vectors, problem.operators.M, l_max,
+                                     radial_degree=radial_degree)
+    except (ValueError, np.linalg.LinAlgError):
+        return None

@@ -1,0 +1,304 @@
+"""The built-in validation set behind ``shellmodes check``.
+
+Each check solves a small problem through the public pipeline and compares
+one number with an exact or published value, with a stated tolerance and
+source.  Checks register with :func:`check`; adding one is one function.
+"""
+
+from __future__ import annotations
+
+import functools
+import time
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import constants
+
+from shellmodes.case.schema import case_from_dict
+from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS
+from shellmodes.fem.discretisation import discretise
+from shellmodes.pipeline import run_case
+from shellmodes.studies import references as ref
+
+__all__ = ["CheckResult", "CHECKS", "check", "run_checks", "format_table", "observed_order"]
+
+CHECKS: dict = {}
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    name: str
+    value: float
+    reference: float
+    error: float
+    tolerance: float
+    source: str
+    seconds: float
+
+    @property
+    def passed(self) -> bool:
+        return bool(np.isfinite(self.error) and self.error <= self.tolerance)
+
+
+def check(name: str, source: str, tolerance: float):
+    """Register ``fn() -> (value, reference, error)`` as a validation check."""
+
+    def wrap(fn):
+        CHECKS[name] = (fn, source, tolerance)
+        return fn
+
+    return wrap
+
+
+@functools.lru_cache(maxsize=8)
+def _solve_cached(key):
+    import json
+
+    return run_case(case_from_dict(json.loads(key), "<check>"))
+
+
+def _solve(surface, degree, subdivisions, count, **extra):
+    import json
+
+    data = {"surface": surface, "resolution": {"degree": degree, "subdivisions": subdivisions},
+            "modes": {"count": count}, **extra}
+    # checks that share a problem share its solve
+    return _solve_cached(json.dumps(data, sort_keys=True))
+
+
+def _max_rel(values, exact, skip_zero=True):
+    values, exact = np.asarray(values), np.asarray(exact)
+    n = min(len(values), len(exact))
+    mask = np.abs(exact[:n]) > 1e-12 if skip_zero else np.ones(n, bool)
+    return float(np.max(np.abs(values[:n][mask] - exact[:n][mask]) / np.abs(exact[:n][mask])))
+
+
+def observed_order(h, errors) -> float:
+    """Least-squares slope of log(error) against log(h)."""
+    return float(np.polyfit(np.log(h), np.log(errors), 1)[0])
+
+
+@check("sphere: first 100 eigenvalues l(l+1), degree 4", "exact: l(l+1) on the unit sphere "
+       "(DLMF 14.30.10)", 1e-6)
+def _sphere100():
+    s = _solve({"shape": "sphere"}, 4, 3, 100)
+    exact = ref.sphere_eigenvalues(100)
+    return np.nan, 0.0, _max_rel(s.eigenvalues[:100], exact)
+
+
+@check("sphere: multiplet sizes 2l+1 for l <= 9", "exact: (2l+1)-fold degeneracy (DLMF 14.30)", 0)
+def _sphere_sizes():
+    s = _solve({"shape": "sphere"}, 4, 3, 100)
+    sizes = [m.size for m in s.multiplets]
+    wrong = sum(1 for l, size in enumerate(sizes) if size != 2 * l + 1) + abs(len(sizes) - 10)
+    return float(len(sizes)), 10.0, float(wrong)
+
+
+def _convergence(shape, degree, levels, count, exact):
+    h, err = [], []
+    for level in levels:
+        s = _solve(shape, degree, level, count)
+        h.append(s.info["mesh"]["h"])
+        err.append(_max_rel(s.eigenvalues[:count], exact))
+    return observed_order(h, err)
+
+
+@check("sphere: eigenvalue convergence order, degree 1", "surface FEM theory, order 2k "
+       "(Dziuk 1988; Demlow 2009)", 0.3)
+def _order1():
+    p = _convergence({"shape": "sphere"}, 1, (2, 3, 4), 9, ref.sphere_eigenvalues(9))
+    return p, 2.0, abs(p - 2.0)
+
+
+@check("sphere: eigenvalue convergence order, degree 2", "surface FEM theory, order 2k "
+       "(Demlow 2009; Bonito, Demlow and Owen 2018)", 0.4)
+def _order2():
+    p = _convergence({"shape": "sphere"}, 2, (1, 2, 3), 9, ref.sphere_eigenvalues(9))
+    return p, 4.0, abs(p - 4.0)
+
+
+@check("hemisphere, hard rim: 16 eigenvalues, l+m odd", "exact: l(l+1) with l+m odd (odd in z)", 1e-5)
+def _hemi_d():
+    s = _solve({"shape": "cap", "half_angle": 90.0, "rim": "dirichlet"}, 4, 4, 16)
+    return np.nan, 0.0, _max_rel(s.eigenvalues[:16], ref.hemisphere_eigenvalues(16, "dirichlet"))
+
+
+@check("hemisphere, free rim: 16 eigenvalues, l+m even", "exact: l(l+1) with l+m even (even in z)", 1e-5)
+def _hemi_n():
+    s = _solve({"shape": "cap", "half_angle": 90.0, "rim": "neumann"}, 4, 4, 16)
+    return np.nan, 0.0, _max_rel(s.eigenvalues[:16], ref.hemisphere_eigenvalues(16, "neumann"))
+
+
+@check("cap of 120 degrees, hard rim: 12 eigenvalues", "nu(nu+1) with P_nu^-m(cos theta0) = 0 (Mehler-Dirichlet "
+       "integral and degree recurrence, DLMF 14.12.1, 14.10.3)", 1e-5)
+def _cap120():
+    s = _solve({"shape": "cap", "half_angle": 120.0, "rim": "dirichlet"}, 4, 4, 12)
+    return np.nan, 0.0, _max_rel(s.eigenvalues[:12], ref.cap_eigenvalues(np.radians(120.0), 12, "dirichlet"))
+
+
+def _area(shape, exact):
+    s = discretise(case_from_dict({"surface": shape, "resolution": {"degree": 4, "subdivisions": 3}}))
+    one = np.ones(s.ndofs)
+    from skfem import asm
+
+    from shellmodes.fem.forms import mass
+
+    area = float(one @ (asm(mass, s.basis) @ one))
+    return area, exact, abs(area - exact) / exact
+
+
+@check("area of the unit sphere, degree 4", "exact: 4 pi R^2", 1e-8)
+def _area_sphere():
+    return _area({"shape": "sphere"}, 4 * np.pi)
+
+
+@check("area of a prolate spheroid 1 x 1 x 2, degree 4", "closed form for spheroids "
+       "(e.g. CRC Standard Mathematical Tables)", 1e-8)
+def _area_spheroid():
+    return _area({"shape": "spheroid", "equatorial_radius": 1.0, "polar_radius": 2.0},
+                 float(ref.spheroid_area(1.0, 2.0)))
+
+
+@check("area of a torus R = 2, r = 1, degree 4", "exact: 4 pi^2 R r (Pappus)", 1e-8)
+def _area_torus():
+    return _area({"shape": "torus", "major_radius": 2.0, "minor_radius": 1.0}, float(ref.torus_area(2.0, 1.0)))
+
+
+@check("Gauss-Bonnet on an ellipsoid 1 x 1.2 x 0.8: integral of K", "Gauss-Bonnet, 2 pi chi = 4 pi "
+       "(do Carmo 4-5); elementwise curvature converges as h^2", 0.1)
+def _gauss_bonnet():
+    from shellmodes.fem.curvature import total_gaussian_curvature
+
+    s = discretise(case_from_dict({"surface": {"shape": "ellipsoid", "axes": [1.0, 1.2, 0.8]},
+                                   "resolution": {"degree": 4, "subdivisions": 3}}))
+    total = total_gaussian_curvature(s)
+    return total, 4 * np.pi, abs(total - 4 * np.pi)
+
+
+@check("rigid rotor I = 2 amu A^2: E(l=1) = 2B in cm^-1", "B = h/(8 pi^2 c I), scipy.constants", 1e-8)
+def _rotor():
+    s = _solve({"shape": "sphere"}, 4, 3, 4, particle={"moment_of_inertia": 2.0, "inertia_unit": "amu angstrom2"},
+               units={"length": "1", "energy": "cm-1"})
+    B = float(ref.rotational_constant_cm(2.0 * INERTIA_UNITS["amu angstrom2"]))
+    e1 = float(np.mean(s.energies[1:4]))
+    return e1, 2 * B, abs(e1 - 2 * B) / (2 * B)
+
+
+@check("electron on a 1 nm sphere: E(l=1) in meV", "hbar^2 l(l+1)/(2 m_e R^2), scipy.constants", 1e-8)
+def _electron():
+    s = _solve({"shape": "sphere", "radius": 1.0}, 4, 3, 4, units={"length": "nm", "energy": "meV"})
+    exact = constants.hbar**2 * 2 / (2 * constants.m_e * constants.nano**2) / ENERGY_UNITS["meV"]
+    e1 = float(np.mean(s.energies[1:4]))
+    return e1, exact, abs(e1 - exact) / exact
+
+
+def run_checks(only: str | None = None) -> list[CheckResult]:
+    out = []
+    for name, (fn, source, tol) in CHECKS.items():
+        if only and only not in name:
+            continue
+        t0 = time.perf_counter()
+        value, reference, error = fn()
+        out.append(CheckResult(name, float(value), float(reference), float(error), float(tol), source,
+                               time.perf_counter() - t0))
+    return out
+
+
+def format_table(results: list[CheckResult]) -> str:
+    width = max((len(r.name) for r in results), default=10)
+    head = f"{'check':<{width}}  {'result':<6} {'error':>10} {'tolerance':>10} {'time':>6}  source"
+    lines = [head, "-" * len(head)]
+    for r in results:
+        lines.append(f"{r.name:<{width}}  {'pass' if r.passed else 'FAIL':<6} {r.error:>10.2e} "
+                     f"{r.tolerance:>10.1e} {r.seconds:>5.1f}s  {r.source}")
+    passed = sum(r.passed for r in results)
+    lines.append(f"{passed} passed, {len(results) - passed} failed")
+    return "\n".join(lines)
+
+
+def _shell_case(inner, outer, count, degree=2, subdivisions=2, layers=6, **shell):
+    walls = {"outer": {"shape": "sphere", "radius": outer}, "layers": layers, **shell}
+    if inner is not None:
+        walls["inner"] = {"shape": "sphere", "radius": inner}
+    data = {"shell": walls, "resolution": {"degree": degree, "subdivisions": subdivisions},
+            "modes": {"count": count}}
+    return run_case(case_from_dict(data, "<check>"))
+
+
+def _by_l(spectrum, l, count):
+    """Eigenvalues of the modes labelled with degree l (multiplet means), lowest first."""
+    means = [m.eigenvalue for m in spectrum.multiplets if m.l == l]
+    return np.array(means[:count])
+
+
+@check("hard-wall shell 1 < r < 2: l = 0, k = n pi", "exact: k = n pi / (b - a) (j_0, y_0 cross product)", 5e-4)
+def _shell_l0():
+    s = _shell_case(1.0, 2.0, 30)
+    got = _by_l(s, 0, 2)
+    exact = np.array([np.pi**2, (2 * np.pi) ** 2])
+    return float(got[0]), float(exact[0]), _max_rel(got, exact[:len(got)])
+
+
+# tolerance: degree 2 on 162 directions (subdivisions 2); the angular error grows like l^4 h^4, 2e-3 at l = 3
+@check("hard-wall shell 1 < r < 2: l = 1, 2, 3", "roots of j_l(ka) y_l(kb) - j_l(kb) y_l(ka), "
+       "scipy.special.spherical_jn/yn", 3e-3)
+def _shell_l123():
+    s = _shell_case(1.0, 2.0, 30)
+    got = np.array([_by_l(s, l, 1)[0] for l in (1, 2, 3)])
+    exact = np.array([ref.shell_dirichlet(l, 1, 1.0, 2.0)[0] ** 2 for l in (1, 2, 3)])
+    return float(got[0]), float(exact[0]), _max_rel(got, exact)
+
+
+@check("hard-wall ball r < 1: l = 0, 1, 2", "zeros of j_l (Abramowitz and Stegun Table 10.6; "
+       "scipy.special.spherical_jn)", 1e-3)
+def _ball():
+    s = _shell_case(None, 1.0, 16, subdivisions=2, layers=4)
+    got = np.array([_by_l(s, l, 1)[0] for l in (0, 1, 2)])
+    exact = np.array([ref.ball_dirichlet(l, 1, 1.0)[0] ** 2 for l in (0, 1, 2)])
+    return float(got[0]), float(exact[0]), _max_rel(got, exact)
+
+
+@check("free-wall shell 1 < r < 2: zero mode and l = 1", "roots with j_l', y_l' (scipy.special)", 5e-4)
+def _shell_neumann():
+    s = _shell_case(1.0, 2.0, 6, inner_condition="neumann", outer_condition="neumann")
+    zero = abs(float(s.eigenvalues[0]))
+    got = _by_l(s, 1, 1)[0]
+    exact = float(ref.shell_neumann(1, 1, 1.0, 2.0)[0] ** 2)
+    return float(got), exact, max(abs(got - exact) / exact, zero)
+
+
+@check("hard-wall shell 1 < r < 2 on prisms: first 50 modes", "roots of j_l(ka) y_l(kb) - j_l(kb) y_l(ka), "
+       "scipy.special.spherical_jn/yn, each (2l+1)-fold", 1e-6)
+def _shell_prisms50():
+    # degree 4 x radial 8 on 642 directions (92,178 dofs): 6.9e-8 measured
+    s = _shell_case(1.0, 2.0, 50, degree=4, subdivisions=3, layers=1, cells="prisms", radial_degree=8)
+    exact = np.sort([float(k) ** 2 for l in range(10) for k in ref.shell_dirichlet(l, 2, 1.0, 2.0)
+                     for _ in range(2 * l + 1)])[:50]
+    got = np.asarray(s.eigenvalues[:50])
+    return float(got[-1]), float(exact[-1]), _max_rel(got, exact)
+
+
+@check("two-media hard-wall shell with a mass jump (prisms)", "j_l, y_l in each medium, continuity of R and "
+       "(1/m) dR/dr at r = 1.5 (BenDaniel and Duke 1966)", 1e-6)
+def _layered_prisms():
+    data = {"shell": {"inner": {"shape": "sphere", "radius": 1.0}, "interfaces": [{"shape": "sphere", "radius": 1.5}],
+                      "outer": {"shape": "sphere", "radius": 2.0}, "cells": "prisms", "layers": [1, 1],
+                      "radial_degree": 8, "regions": [{"effective_mass": 1.0}, {"effective_mass": 0.4}]},
+            "resolution": {"degree": 4, "subdivisions": 2}, "modes": {"count": 9}}
+    s = run_case(case_from_dict(data, "<check>"))
+    exact = np.sort([v for l in range(3) for v in ref.layered_shell_dirichlet(l, 2, 1.0, 1.5, 2.0, 1.0, 0.4)
+                     for _ in range(2 * l + 1)])[:9]
+    got = np.asarray(s.eigenvalues[:9])
+    return float(got[0]), float(exact[0]), _max_rel(got, exact)
+
+
+@check("finite spherical well with a mass jump: ground state", "j_l inside, k_l outside, continuity of psi and "
+       "(1/m) dpsi/dr (BenDaniel and Duke 1966)", 5e-3)
+def _finite_well():
+    data = {"shell": {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 2.5},
+                      "layers": [6, 6], "regions": [{"effective_mass": 1.0}, {"effective_mass": 2.0, "offset": 30.0}]},
+            "resolution": {"degree": 2, "subdivisions": 2}, "modes": {"count": 1}}
+    s = run_case(case_from_dict(data, "<check>"))
+    exact = float(ref.finite_spherical_well(0, 30.0, 1.0, 1.0, 2.0)[0])
+    got = float(s.eigenvalues[0])
+    return got, exact, abs(got - exact) / exact
