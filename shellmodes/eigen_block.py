@@ -298,6 +298,8 @@ def _krylov_schur(K, M, count: int, sigma: float, solve: Callable, *, gap: float
         S[m_old:m] = R.T
         stats["time_orthogonalise"] += time.perf_counter() - tg
         stats["iterations"] += 1
+        if m <= count + b and m + b <= m_max:
+            continue  # no pair can be accepted yet (that needs count + b < m) and no restart is due
 
         mu, Y = la.eigh(H[:m, :m])
         mu, Y = mu[::-1], Y[:, ::-1]  # largest mu = lowest lam first

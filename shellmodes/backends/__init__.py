@@ -43,4 +43,4 @@ def get_backend(name: str = "auto") -> tuple[str, Callable]:
     return name, BACKENDS[name]["factorize"]
 
 
-from . import cholmod, lobpcg_amg, splu  # noqa: E402,F401  (register)
+from . import cholmod, cholmod_system, lobpcg_amg, mumps_seq, pardiso, splu  # noqa: E402,F401  (register)
