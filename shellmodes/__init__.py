@@ -11,10 +11,6 @@ Pipeline: case -> shape -> curved mesh -> problem -> solve -> spectrum -> output
 """
 
 from ._version import __version__
-from .angular import AngularContent, angular_content, multiplet_content
-from .bridge import ThinShellComparison, thin_shell_comparison
-from .case import Case, case_from_dict, case_schema, load_case
-from .convergence import ConvergenceStudy, convergence_study
 from .errors import (
                      CaseError,
                      DoubtfulResultWarning,
@@ -25,17 +21,42 @@ from .errors import (
                      ShellmodesError,
                      SolverError,
 )
-from .harmonics import real_sph_harm
-from .meshfile import SurfaceMeshData, read_surface_mesh
-from .outputs import write_outputs
-from .perturbation import first_order_levels, splitting_table
-from .problem import SurfaceProblem, assemble_surface
-from .run import build_shape, discretise, run_case
-from .shapes import SHAPES, make_shape
-from .solve import Eigenpairs, lowest_modes
-from .spectrum import Multiplet, Spectrum
-from .surface import CurvedSurface, SurfaceMapping, curved_surface
-from .sweep import SweepResult, run_sweep
+
+#: public name -> module that defines it; imported on first access (PEP 562), so that
+#: ``import shellmodes`` and the command line start without loading every stage
+_LAZY = {
+    "AngularContent": "angular", "angular_content": "angular", "multiplet_content": "angular",
+    "ThinShellComparison": "bridge", "thin_shell_comparison": "bridge",
+    "Case": "case", "case_from_dict": "case", "case_schema": "case", "load_case": "case",
+    "ConvergenceStudy": "convergence", "convergence_study": "convergence",
+    "real_sph_harm": "harmonics",
+    "SurfaceMeshData": "meshfile", "read_surface_mesh": "meshfile",
+    "write_outputs": "outputs",
+    "first_order_levels": "perturbation", "splitting_table": "perturbation",
+    "SurfaceProblem": "problem", "assemble_surface": "problem",
+    "build_shape": "run", "discretise": "run", "run_case": "run",
+    "SHAPES": "shapes", "make_shape": "shapes",
+    "Eigenpairs": "solve", "lowest_modes": "solve",
+    "Multiplet": "spectrum", "Spectrum": "spectrum",
+    "CurvedSurface": "surface", "SurfaceMapping": "surface", "curved_surface": "surface",
+    "SweepResult": "sweep", "run_sweep": "sweep",
+}
+
+
+def __getattr__(name):
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'shellmodes' has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(f".{module}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LAZY))
+
 
 __all__ = [
     "__version__",

@@ -6,6 +6,7 @@ writing files (:func:`shellmodes.outputs.write_outputs`) and printing.
 
 from __future__ import annotations
 
+import functools
 import logging
 import platform
 import time
@@ -34,6 +35,11 @@ log = logging.getLogger(__name__)
 
 
 def versions() -> dict:
+    return dict(_versions())
+
+
+@functools.cache
+def _versions() -> dict:
     import meshio
     import scipy
     import skfem

@@ -101,7 +101,7 @@ def _release(lib, pt, n, mtype):
         ctypes.byref(error))
 
 
-@register("pardiso", available=_available, priority=20)
+@register("pardiso", available=_available, priority=12)
 def factorize(A):
     """PARDISO Cholesky of the SPD matrix ``A``; ``solve(b)`` for a vector or an (n, k) block."""
     handle = _Pardiso(A)
