@@ -35,6 +35,10 @@ log = logging.getLogger(__name__)
 DENSE_LIMIT = 600
 #: from this size on ``method="auto"`` uses the blocked iteration (measured: benchmarks/README.md)
 BLOCK_THRESHOLD = 50_000
+#: ... and from this many modes on at any size where the block fits (4 k < n): ARPACK's single-vector
+#: reorthogonalisation grows like n k^2.  CPU time measured at 1 BLAS thread (benchmarks/README.md):
+#: 10,242 unknowns and 100 modes 1.6 s Lanczos, 1.2 s block; 36 or 64 modes: Lanczos 25-40 % faster
+BLOCK_COUNT = 80
 METHODS = ("auto", "lanczos", "block", "lobpcg")
 
 
@@ -139,7 +143,8 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
         Residuals above this raise a :class:`DoubtfulResultWarning`.
     method
         ``"lanczos"`` (ARPACK), ``"block"`` (:mod:`shellmodes.eigen_block`) or
-        ``"auto"``: block from :data:`BLOCK_THRESHOLD` degrees of freedom on.
+        ``"auto"``: block from :data:`BLOCK_THRESHOLD` degrees of freedom or :data:`BLOCK_COUNT`
+        modes on.
         Problems below :data:`DENSE_LIMIT` are solved densely either way.
     preconditioner, start
         ``method = "lobpcg"`` only: a preconditioner approximating
@@ -179,7 +184,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     else:
         name, factorize = get_backend(backend) if n > DENSE_LIMIT else ("dense", None)
     if method == "auto":
-        method = "block" if n >= BLOCK_THRESHOLD else "lanczos"
+        method = "block" if n >= BLOCK_THRESHOLD or (count or 0) >= BLOCK_COUNT else "lanczos"
     solve = None  # the block path factorizes once and keeps the factor across extensions
     extra: dict = {}
     rng = np.random.default_rng(20261202)
