@@ -24,7 +24,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as sla
 
 from .backends import get_backend
-from .eigen_block import block_lowest
+from .eigen_block import block_lowest, gram, relative_residuals
 from .errors import DoubtfulResultWarning, SolverError
 
 __all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals"]
@@ -62,17 +62,6 @@ class Eigenpairs:
                 f"max_residual={np.max(self.residuals):.2e}, backend={self.backend!r}, method={self.method!r})")
 
 
-def relative_residuals(K, M, lam, U, floor: float) -> np.ndarray:
-    """||K u - lam M u|| / (max(|lam|, floor) ||M u||), column by column.
-
-    ``floor`` keeps the measure finite at lam = 0 (a constant mode); it is the
-    distance of the shift from zero, a natural spectral scale of the problem.
-    """
-    MU = M @ U
-    R = K @ U - MU * lam
-    return np.linalg.norm(R, axis=0) / (np.maximum(np.abs(lam), floor) * np.linalg.norm(MU, axis=0))
-
-
 def group_multiplets(lam: np.ndarray, tolerance: float, scale: float) -> list[np.ndarray]:
     """Split ascending eigenvalues into runs whose neighbours differ by <= tolerance * size.
 
@@ -87,7 +76,7 @@ def group_multiplets(lam: np.ndarray, tolerance: float, scale: float) -> list[np
 
 
 def _m_orthonormalise(U, M):
-    G = U.T @ (M @ U)
+    G = gram(M, U)
     error = float(np.max(np.abs(G - np.eye(G.shape[0])))) if G.size else 0.0
     if error > 1e-10:
         L = la.cholesky(0.5 * (G + G.T), lower=True)
