@@ -89,3 +89,31 @@ def test_harmonic_basis_matches_the_single_harmonics():
     R = np.column_stack([real_sph_harm(l, m, theta, phi) for l, m in harmonic_labels(14)])
     # two evaluations of the same scipy.special normalised Legendre values (recurrence): rounding only
     np.testing.assert_allclose(Y, R, rtol=0, atol=1e-13)
+
+
+def test_auto_method_takes_the_block_iteration_for_many_modes_with_the_same_eigenvalues():
+    from shellmodes.solve import BLOCK_COUNT
+
+    p = _sphere(degree=2, level=4)  # 10,242 unknowns, so a block of 100 modes fits (4 k < n)
+    auto = lowest_modes(p.K, p.M, BLOCK_COUNT + 20, scale=p.spectral_scale)
+    lanczos = lowest_modes(p.K, p.M, BLOCK_COUNT + 20, scale=p.spectral_scale, method="lanczos")
+    assert auto.method == "block" and lanczos.method == "lanczos"
+    assert lowest_modes(p.K, p.M, 16, scale=p.spectral_scale).method == "lanczos"
+    # 100 modes = l = 0..9, each multiplet whole: both paths return the same set
+    assert len(auto.lam) == len(lanczos.lam) == 100
+    # both converge to ARPACK's criterion 1e-13 on the shift-inverted operator: equal to 1e-12 relative
+    np.testing.assert_allclose(auto.lam, lanczos.lam, rtol=1e-12, atol=1e-12)
+
+
+def test_chunked_residuals_and_gram_equal_the_direct_formulas():
+    from shellmodes.eigen_block import gram, relative_residuals
+
+    p = _sphere(degree=2, level=2)
+    rng = np.random.default_rng(5)
+    X = rng.standard_normal((p.K.shape[0], 37))  # not a multiple of the chunk width
+    lam = rng.uniform(0.0, 10.0, 37)
+    MX = p.M @ X
+    direct = np.linalg.norm(p.K @ X - MX * lam, axis=0) / (np.maximum(lam, 1.0) * np.linalg.norm(MX, axis=0))
+    # the same sums in another order: rounding only
+    np.testing.assert_allclose(relative_residuals(p.K, p.M, lam, X, 1.0), direct, rtol=1e-12)
+    np.testing.assert_allclose(gram(p.M, X), X.T @ MX, rtol=1e-12, atol=1e-12 * np.abs(X.T @ MX).max())
