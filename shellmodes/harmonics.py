@@ -17,7 +17,7 @@ phase).  Reference: DLMF 14.30.1 and 14.30.2 for the complex harmonics.
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import sph_harm_y
+from scipy.special import sph_harm_y, sph_legendre_p_all
 
 __all__ = ["angles", "real_sph_harm", "real_sph_harm_basis", "harmonic_labels", "parent_degree"]
 
@@ -55,8 +55,25 @@ def harmonic_labels(l_max: int) -> list[tuple[int, int]]:
 
 
 def real_sph_harm_basis(l_max: int, theta: np.ndarray, phi: np.ndarray) -> np.ndarray:
-    """Matrix (N, (l_max+1)^2) of all real harmonics up to ``l_max`` at the given angles."""
-    return np.column_stack([real_sph_harm(l, m, theta, phi) for l, m in harmonic_labels(l_max)])
+    """Matrix (N, (l_max+1)^2) of all real harmonics up to ``l_max`` at the given angles.
+
+    All degrees at once: scipy's normalised spherical Legendre functions
+    ``sph_legendre_p_all`` (by recurrence; Y_l^m = P_l^m(cos theta) e^{i m phi}
+    with the same phase as ``sph_harm_y``) times cos(m phi) and sin(m phi), the
+    same values as :func:`real_sph_harm` column by column (a test compares them).
+    """
+    theta, phi = np.asarray(theta, dtype=float), np.asarray(phi, dtype=float)
+    legendre = sph_legendre_p_all(l_max, l_max, theta)[0]  # (l, m wrapped, N)
+    Y = np.empty((theta.size, (l_max + 1) ** 2))
+    for l in range(l_max + 1):
+        Y[:, l * l + l] = legendre[l, 0]
+    for m in range(1, l_max + 1):
+        factor = (-1.0) ** m * np.sqrt(2.0)
+        cos_m, sin_m = factor * np.cos(m * phi), factor * np.sin(m * phi)
+        for l in range(m, l_max + 1):
+            Y[:, l * l + l + m] = legendre[l, m] * cos_m
+            Y[:, l * l + l - m] = legendre[l, m] * sin_m
+    return Y
 
 
 def parent_degree(x: np.ndarray) -> np.ndarray:

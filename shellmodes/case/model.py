@@ -10,6 +10,7 @@ here with the key they concern.
 
 from __future__ import annotations
 
+import functools
 import platform
 from dataclasses import dataclass
 from pathlib import Path
@@ -33,7 +34,12 @@ __all__ = ["EnergyScale", "Media", "versions", "build_shape", "energy_scale", "c
 
 
 def versions() -> dict:
-    """Versions of shellmodes and the libraries that shape its results."""
+    """Versions of shellmodes and the libraries that shape its results (a fresh dict each call)."""
+    return dict(_versions())
+
+
+@functools.cache
+def _versions() -> dict:
     import meshio
     import scipy
     import skfem

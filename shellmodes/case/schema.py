@@ -276,7 +276,8 @@ class Modes(_Table):
     count: int | None = Field(None, ge=1, le=MAX_MODE_COUNT, description="number of lowest modes")
     below: float | None = Field(None, description="all modes with energy below this, in units.energy")
     multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
-    backend: Literal["auto", "splu", "cholmod"] = Field("auto", description="factorization for shift-invert")
+    backend: Literal["auto", "splu", "cholmod", "cholmod-system", "pardiso", "mumps"] = Field(
+        "auto", description="factorization for shift-invert (auto: the fastest installed)")
     method: Literal["auto", "lanczos", "block", "lobpcg", "separable"] = Field(
         "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, "
                             "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor, "

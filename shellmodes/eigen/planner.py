@@ -181,7 +181,7 @@ def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:
                           f"deformed prisms, {n} unknowns: LOBPCG preconditioned by the exact inverse of the "
                           "mean-radius spherical shell (fast diagonalisation), started from its modes")
     if disc.kind == "surface":
-        resolved = resolve_method(n, method)
+        resolved = resolve_method(n, method, modes.count)
         return SolverPlan("shift-invert" if method != "lobpcg" else "lobpcg-amg", resolved,
                           _backend_name(n, resolved, modes.backend), lower, scale, n,
                           _method_reason(n, resolved, method))
@@ -207,9 +207,9 @@ def _plan_volume(problem: Problem, modes: Modes, lower: float, scale: float) -> 
         reason = (f"estimated Cholesky factor {gib:.2f} GiB fits in memory: shift-invert" if path == "shift-invert"
                   else f"estimated Cholesky factor {gib:.2f} GiB exceeds half the free memory: LOBPCG with AMG")
     if method == "lobpcg" or (path == "lobpcg-amg" and method == "auto"):
-        resolved = resolve_method(n, "lobpcg")
+        resolved = resolve_method(n, "lobpcg", modes.count)
     else:
-        resolved = resolve_method(n, method)
+        resolved = resolve_method(n, method, modes.count)
     if method != "auto":
         reason += f" (case asks for method {method!r})"
     return SolverPlan("lobpcg-amg" if resolved == "lobpcg" else path, resolved,

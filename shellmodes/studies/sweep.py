@@ -528,9 +528,17 @@ class _Collector:
         self.masses = {}
 
     def advance(self, finished=()):
-        from shellmodes.studies.sweep_track import StepModes
+        # one BLAS thread: with local workers on every core, the collector's threads would spin
+        # against theirs (the workers run single-threaded for the same reason)
+        from threadpoolctl import threadpool_limits
 
         self.ready.update(finished)
+        with threadpool_limits(limits=1):
+            self._advance()
+
+    def _advance(self):
+        from shellmodes.studies.sweep_track import StepModes
+
         while self.next < len(self.steps) and self.steps[self.next].index in self.ready:
             step = self.steps[self.next]
             spectrum, groups, vectors, _ = load_step(self.out / "steps" / step.folder_name)

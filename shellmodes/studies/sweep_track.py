@@ -138,29 +138,36 @@ class LevelTracker:
         return self.assignments[-1]
 
     @staticmethod
-    def _zeroth_order(T, U, MT, lam, cohorts):
-        """Turn each cohort's basis to step b's zeroth-order states (step 0 of the method)."""
-        T = T.copy()
+    def _zeroth_order(UtMT, lam, cohorts):
+        """The rotation (n_a, n_a) turning each cohort's basis to step b's zeroth-order states (step 0).
+
+        ``UtMT`` is U_b^T M_b T: only these overlaps enter.
+        """
+        X = np.eye(UtMT.shape[1])
         top = float(np.max(lam)) if len(lam) else 0.0
         for label in set(cohorts):
             ks = [k for k, c in enumerate(cohorts) if c == label]
             if len(ks) < 2:
                 continue
-            C = U.T @ MT[:, ks]
+            C = UtMT[:, ks]
             A = C.T @ (lam[:, None] * C) + top * (np.eye(len(ks)) - C.T @ C)
             _, V = eigh(0.5 * (A + A.T))
-            T[:, ks] = T[:, ks] @ V
-        return T
+            X[np.ix_(ks, ks)] = V
+        return X
 
     def _follow(self, step: StepModes, s: int):
         U, M = np.asarray(step.vectors, dtype=float), step.M
         lam = np.asarray(step.eigenvalues, dtype=float)
+        # every later basis of step a's states is T X for a small X, so one product with M serves:
+        # M (T X) = (M T) X, and U^T M (T X) = (U^T M T) X
         T = self._states
-        G = T.T @ (M @ T)
+        MT = np.asarray(M @ T)
+        G = T.T @ MT
         d, V = eigh(0.5 * (G + G.T))
-        T = T @ (V * (1.0 / np.sqrt(np.maximum(d, 1e-300)))) @ V.T
-        T = self._zeroth_order(T, U, M @ T, lam, self._cohorts)
-        O = U.T @ (M @ T)  # (n_b, n_a)
+        X = (V * (1.0 / np.sqrt(np.maximum(d, 1e-300)))) @ V.T  # Loewdin: T X is M-orthonormal
+        UtMT = (U.T @ MT) @ X
+        Z = self._zeroth_order(UtMT, lam, self._cohorts)
+        O = UtMT @ Z  # (n_b, n_a) = U^T M T_a with T_a = T X Z
         groups = [np.asarray(g, dtype=int) for g in step.groups]
         w = np.array([np.sum(O[g] ** 2, axis=0) for g in groups])  # (groups, n_a)
         slot_group = np.concatenate([np.full(len(g), h) for h, g in enumerate(groups)])

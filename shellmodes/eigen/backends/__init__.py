@@ -4,7 +4,14 @@ A back-end is a function ``factorize(A) -> solve`` for a sparse symmetric
 positive definite ``A``; each module of this package registers its own.
 """
 
-from shellmodes.eigen.backends import cholmod, lobpcg_amg, splu  # noqa: E402, F401, I001  (register the back-ends
+from shellmodes.eigen.backends import (  # noqa: F401  (each module registers its back-end)
+    cholmod,
+    cholmod_system,
+    lobpcg_amg,
+    mumps_seq,
+    pardiso,
+    splu,
+)
 from shellmodes.eigen.backends.registry import BACKENDS, available_backends, get_backend, register
 
 __all__ = ["BACKENDS", "register", "get_backend", "available_backends"]
