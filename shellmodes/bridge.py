@@ -117,19 +117,17 @@ def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subd
     if case.potential is not None:
         raise CaseError("the thin-shell bridge compares free particles; remove [potential]", case.source,
                         "potential")
-    surface = run_case(case)
-    data = case.model_dump(mode="json", exclude_none=True)
-    surf = data.pop("surface")
-    data.pop("sweep", None)
-    count = len(surface.eigenvalues)
-    shells = {}
     if cells not in ("prisms", "tetrahedra"):
         raise CaseError(f"value {cells!r}: allowed cells are prisms, tetrahedra", case.source, "--cells")
     prisms = cells == "prisms"
     if layers is None:
         layers = 1 if prisms else 6
     degree = case.resolution.degree if prisms else min(2, case.resolution.degree)
-    for d in thickness:
+    data = case.model_dump(mode="json", exclude_none=True)
+    surf = data.pop("surface")
+    data.pop("sweep", None)
+
+    def shell_case(d, count):
         shell_data = {**data,
                       "shell": {"inner": _offset_wall(surf, -d / 2, "--thickness", case.source),
                                 "outer": _offset_wall(surf, +d / 2, "--thickness", case.source),
@@ -141,7 +139,17 @@ def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subd
                       "modes": {**data.get("modes", {}), "count": count}}
         shell_data["modes"].pop("below", None)
         shell_data["modes"].pop("method", None)
-        result = run_case(case_from_dict(shell_data, case.source))
+        return case_from_dict(shell_data, case.source)
+
+    from .resources import check_resources
+
+    for d in thickness:  # the memory guard for every shell before anything is solved
+        check_resources(shell_case(d, case.modes.count or 20), layers_key="--layers")
+    surface = run_case(case)
+    count = len(surface.eigenvalues)
+    shells = {}
+    for d in thickness:
+        result = run_case(shell_case(d, count))
         shells[d] = result.eigenvalues[:count]
     exact = None
     if surf["shape"] == "sphere":

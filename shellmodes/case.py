@@ -274,7 +274,8 @@ class Modes(_Table):
 
     count: int | None = Field(None, ge=1, le=100000, description="number of lowest modes")
     below: float | None = Field(None, description="all modes with energy below this, in units.energy")
-    multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
+    multiplet_tolerance: Positive = Field(1e-4, le=0.05, description="relative gap that separates two multiplets "
+                                          "(at most 0.05: larger ones merge distinct levels)")
     backend: Literal["auto", "splu", "cholmod"] = Field("auto", description="factorization for shift-invert")
     method: Literal["auto", "lanczos", "block", "lobpcg", "separable"] = Field(
         "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, "
@@ -344,6 +345,16 @@ class Output(_Table):
     picture_modes: int = Field(4, ge=1, le=100, description="how many multiplets to render (one mode each)")
 
 
+class Limits(_Table):
+    """Resource limits.  Before building anything, a run estimates its memory (unknowns, matrices, factor,
+    eigen-iteration, modes written) and refuses, naming the key to change, when the estimate exceeds the
+    limit: the smaller of limits.memory_gib and the environment variable SHELLMODES_MEMORY_LIMIT (GiB, or a
+    number with a unit such as 512MiB), or, with neither set, the memory the machine reports as available."""
+
+    memory_gib: float | None = Field(None, gt=0, le=1e6, description="memory the run may use, in GiB "
+                                     "(default: the machine's available memory)")
+
+
 class Case(_Table):
     """A whole case file."""
 
@@ -357,6 +368,7 @@ class Case(_Table):
     modes: Modes = Modes()
     output: Output = Output()
     sweep: Sweep | None = None
+    limits: Limits = Limits()
     source: str = Field("<case>", exclude=True, description="where the case came from (not a TOML key)")
 
     @model_validator(mode="after")
@@ -389,7 +401,7 @@ class Case(_Table):
 
 
 CASE_TABLES = {"surface": Surface, "shell": Shell, "resolution": Resolution, "particle": Particle, "units": Units,
-               "potential": Potential, "modes": Modes, "output": Output, "sweep": Sweep}
+               "potential": Potential, "modes": Modes, "output": Output, "sweep": Sweep, "limits": Limits}
 
 
 def _allowed_keys(loc: tuple) -> list[str]:

@@ -37,7 +37,7 @@ def _rows(prefix, model):
         if name == "source":
             continue
         default = "required" if field.is_required() else repr(field.default)
-        if default.startswith(("Resolution(", "Particle(", "Units(", "Modes(", "Output(")):
+        if default.startswith(("Resolution(", "Particle(", "Units(", "Modes(", "Output(", "Limits(")):
             default = "(table defaults)"
         rows.append((f"{prefix}{name}", _type_text(props.get(name, {})), default, field.description or ""))
     return rows

@@ -177,7 +177,8 @@ def solve_case_modes(case: Case, K, M, lower_bound: float, scale: float, e0, **s
         except ValueError as exc:
             raise CaseError(str(exc), case.source, "modes.backend") from None
         except ShellmodesError as exc:
-            raise CaseError(str(exc), case.source, "modes.count" if modes.count else "modes.below") from None
+            key = getattr(exc, "key", None) or ("modes.count" if modes.count else "modes.below")
+            raise CaseError(str(exc), case.source, key) from None
     messages = [str(w.message) for w in caught]
     for w in caught:
         warnings.warn(w.message, w.category, stacklevel=3)
@@ -236,6 +237,9 @@ def run_case(case: Case) -> Spectrum:
     >>> [m.size for m in s.multiplets]
     [1, 3]
     """
+    from .resources import check_resources
+
+    check_resources(case)  # the memory guard: refuse before any mesh or matrix is built
     if case.shell is not None:
         from .shellrun import run_shell
 

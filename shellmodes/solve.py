@@ -26,6 +26,7 @@ import scipy.sparse.linalg as sla
 from .backends import get_backend
 from .eigen_block import block_lowest
 from .errors import DoubtfulResultWarning, SolverError
+from .resources import check_growth
 
 __all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals"]
 
@@ -215,6 +216,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
             inside = np.flatnonzero(lam < below)
             if len(inside) == len(lam) and len(lam) < n:
                 k = min(n, 2 * k)
+                check_growth(n, k, count, below, multiplet_tolerance)
                 continue
             last = inside[-1] if len(inside) else -1
         else:
@@ -226,6 +228,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
             keep = group[-1] + 1
             if keep == len(lam) and len(lam) < n:  # the multiplet may continue beyond what we have
                 k = min(n, k + max(8, len(group) + 8))
+                check_growth(n, k, count, below, multiplet_tolerance)
                 continue
         break
     lam, U = lam[:keep], U[:, :keep]
