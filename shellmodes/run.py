@@ -18,7 +18,7 @@ from threadpoolctl import threadpool_limits
 from . import _version
 from .case import Case
 from .errors import CaseError, GeometryError, MeshError, ShellmodesError
-from .expression import compile_expression
+from .expression import ExpressionError, compile_expression
 from .problem import assemble_surface
 from .shapes import make_shape
 from .solve import lowest_modes
@@ -135,7 +135,14 @@ def compiled_potential(case: Case, e0):
     """The case's potential as a function of x, y, z, r, theta, phi in lambda units (V / E0), or None."""
     if case.potential is None:
         return None
-    expr = compile_expression(case.potential.expression)
+    compiled = compile_expression(case.potential.expression)
+
+    def expr(**kw):
+        try:
+            return compiled(**kw)
+        except ExpressionError as exc:  # not finite somewhere in the domain
+            raise CaseError(str(exc), case.source, "potential.expression") from None
+
     unit = case.potential.unit
     if unit == "1":
         return expr
