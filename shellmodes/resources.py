@@ -40,7 +40,7 @@ import numpy as np
 from .errors import CaseError, SolverError
 
 __all__ = ["MemoryEstimate", "estimate_case", "check_resources", "memory_limit", "parse_memory",
-           "check_growth", "ENV_LIMIT"]
+           "check_growth", "check_count", "ENV_LIMIT"]
 
 #: environment variable that sets the memory limit (GiB, or a number with a unit)
 ENV_LIMIT = "SHELLMODES_MEMORY_LIMIT"
@@ -391,6 +391,17 @@ def _value_of(case, key: str):
     if value is None and key == "resolution.subdivisions":
         return "default" if case.resolution.edge_length is None else case.resolution.edge_length
     return value
+
+
+def check_count(count: int | None, n: int) -> None:
+    """The one rule of every solver path: a run returns at least ``count`` modes or refuses.
+
+    A count above the unknowns is refused (:class:`SolverError`, blamed on ``modes.count``);
+    no path silently returns fewer modes than asked.
+    """
+    if count is not None and count > n:
+        raise SolverError(f"{count} modes were requested but the discretisation has only {n} "
+                          "degrees of freedom; refine the mesh or ask for fewer modes")
 
 
 def check_growth(n: int, k: int, count: int | None, below: float | None, tolerance: float) -> None:

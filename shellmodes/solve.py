@@ -26,7 +26,7 @@ import scipy.sparse.linalg as sla
 from .backends import get_backend
 from .eigen_block import block_lowest
 from .errors import DoubtfulResultWarning, SolverError
-from .resources import check_growth
+from .resources import check_count, check_growth
 
 __all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals"]
 
@@ -166,9 +166,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     n = K.shape[0]
     if (count is None) == (below is None):
         raise ValueError("give exactly one of count and below")
-    if count is not None and count > n:
-        raise SolverError(f"{count} modes were requested but the discretisation has only {n} "
-                          "degrees of freedom; refine the mesh or ask for fewer modes")
+    check_count(count, n)
     if method not in METHODS:
         raise ValueError(f"unknown eigen-iteration {method!r}; allowed: {', '.join(METHODS)}")
     K = sp.csr_matrix(K)

@@ -169,7 +169,8 @@ def _set(data, path, value):
     target = data
     for part in path[:-1]:
         target = target[part]
-    target[path[-1]] = value
+    # an integral value fits integer keys (subdivisions, layers) as well as number keys (strict schema)
+    target[path[-1]] = int(value) if float(value).is_integer() and abs(value) < 2**53 else value
 
 
 def _clear_leftovers(steps_dir: Path) -> None:
