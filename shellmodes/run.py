@@ -181,7 +181,9 @@ def solve_case_modes(case: Case, K, M, lower_bound: float, scale: float, e0, **s
             pairs = lowest_modes(K, M, count=modes.count, below=below, lower_bound=lower_bound, scale=scale,
                                  backend=modes.backend, multiplet_tolerance=modes.multiplet_tolerance,
                                  residual_limit=modes.residual_limit, method=modes.method, **solver_options)
-        except ValueError as exc:
+        except ValueError as exc:  # an unknown or unavailable back-end; anything else is not the user's doing
+            if "back-end" not in str(exc):
+                raise
             raise CaseError(str(exc), case.source, "modes.backend") from None
         except ShellmodesError as exc:
             key = getattr(exc, "key", None) or ("modes.count" if modes.count else "modes.below")
