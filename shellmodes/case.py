@@ -384,6 +384,12 @@ class Output(_Table):
                                               "(cut views for shells; needs the plot extra and vtu = true)")
     picture_modes: int = Field(4, ge=1, le=100, description="how many multiplets to render (one mode each)")
 
+    @model_validator(mode="after")
+    def _pictures_need_vtu(self):
+        if self.pictures and not self.vtu:
+            raise ValueError("pictures = true renders modes.vtu: set vtu = true as well, or pictures = false")
+        return self
+
 
 class Limits(_Table):
     """Resource limits.  Before building anything, a run estimates its memory (unknowns, matrices, factor,

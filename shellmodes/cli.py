@@ -32,7 +32,7 @@ def default_out(case_path: Path) -> Path:
 def _cmd_run(args) -> int:
     from .case import load_case
     from .errors import CaseError
-    from .outputs import write_outputs
+    from .outputs import check_run_output, write_outputs
     from .run import run_case
 
     case_path = Path(args.case)
@@ -40,6 +40,7 @@ def _cmd_run(args) -> int:
     out = Path(args.out) if args.out else default_out(case_path)
     if out.exists() and not out.is_dir():
         raise CaseError(f"--out {str(out)!r} is an existing file; give a folder", str(case_path))
+    check_run_output(case, out, args.report)  # writable, extras present: before any solving
     spectrum = run_case(case)
     files = None if case.output.vtu else ["spectrum.json", "spectrum.csv", "run.log"]
     write_outputs(spectrum, out, files)

@@ -29,7 +29,7 @@ import numpy as np
 
 from .errors import MeshError, ShellmodesError
 
-__all__ = ["PlotExtraMissing", "LevelDiagram", "spectrum_picture", "render_modes", "mode_fields",
+__all__ = ["PlotExtraMissing", "require_plot_extra", "LevelDiagram", "spectrum_picture", "render_modes", "mode_fields",
            "sphere_ladder", "DIVERGING_COLOURS"]
 
 #: our diverging map for mode amplitudes: deep slate blue through warm paper to brick red
@@ -46,6 +46,16 @@ _VOLUME_CELLS = frozenset({10, 11, 12, 13, 14, 24, 25, 26, 27, 29, 32, 33})
 
 class PlotExtraMissing(ShellmodesError, ImportError):
     """matplotlib or pyvista (the ``plot`` extra) is not installed."""
+
+
+def require_plot_extra(what: str, source: str | None = None, modules=("matplotlib", "pyvista")) -> None:
+    """Refuse up front (before any solving) when the plot extra that ``what`` needs is not installed."""
+    import importlib.util
+
+    missing = [m for m in modules if importlib.util.find_spec(m) is None]
+    if missing:
+        where = f"{source}: " if source else ""
+        raise PlotExtraMissing(f"{where}{what} needs {' and '.join(missing)}: pip install 'shellmodes[plot]'")
 
 
 def _matplotlib():
@@ -75,6 +85,9 @@ def _write_atomic_png(path: Path, save) -> Path:
     os.close(fd)
     try:
         save(tmp)
+        from .outputs import ordinary_permissions
+
+        ordinary_permissions(tmp)  # mkstemp makes the file private (0600)
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
