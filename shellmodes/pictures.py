@@ -48,14 +48,15 @@ class PlotExtraMissing(ShellmodesError, ImportError):
     """matplotlib or pyvista (the ``plot`` extra) is not installed."""
 
 
-def require_plot_extra(what: str, source: str | None = None, modules=("matplotlib", "pyvista")) -> None:
-    """Refuse up front (before any solving) when the plot extra that ``what`` needs is not installed."""
+def require_plot_extra(what: str, source: str | None = None, modules=("matplotlib", "pyvista"),
+                       extra: str = "plot") -> None:
+    """Refuse up front (before any solving) when the extra that ``what`` needs is not installed."""
     import importlib.util
 
     missing = [m for m in modules if importlib.util.find_spec(m) is None]
     if missing:
         where = f"{source}: " if source else ""
-        raise PlotExtraMissing(f"{where}{what} needs {' and '.join(missing)}: pip install 'shellmodes[plot]'")
+        raise PlotExtraMissing(f"{where}{what} needs {' and '.join(missing)}: pip install 'shellmodes[{extra}]'")
 
 
 def _matplotlib():
