@@ -494,11 +494,16 @@ def _variant(tag):
 _TAGS = {"sphere", "ellipsoid", "spheroid", "star", "torus", "cap", "mesh"}
 
 
+def _validator_label(part: str) -> bool:
+    """pydantic's names of union members in an error location ('constrained-int', 'str', 'tuple[...]')."""
+    return part in ("int", "str", "float", "bool", "none") or "-" in part or "[" in part
+
+
 def _format_error(error: dict) -> tuple[str, str]:
     loc = tuple(error["loc"])
     # drop discriminator tags and pydantic's function-validator labels from the key path
     key_parts = [str(p) if not isinstance(p, int) else f"[{p}]" for p in loc
-                 if not (isinstance(p, str) and (p in _TAGS and len(loc) > 1 and p != loc[0]))]
+                 if not (isinstance(p, str) and ((p in _TAGS and len(loc) > 1 and p != loc[0]) or _validator_label(p)))]
     key = ".".join(key_parts).replace(".[", "[")
     value = error.get("input")
     kind = error["type"]

@@ -386,6 +386,12 @@ def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
     indices = [int(i) for i in indices]
     if not vtu_path.is_file():
         raise MeshError("no such mode file; run with output.vtu = true to write modes.vtu", str(vtu_path))
+    import meshio
+
+    from .meshfile import SurfaceFormat, _read_with_meshio
+
+    # VTK's reader prints its errors to the terminal from C++: a damaged file is found by meshio first
+    _read_with_meshio(SurfaceFormat("VTK XML unstructured grid", meshio.vtu.read), str(vtu_path))
     with pv.vtk_verbosity("off"):
         try:
             grid = pv.read(vtu_path)
