@@ -197,3 +197,41 @@ def test_losing_the_scheduler_mid_sweep_keeps_finished_steps(tmp_path, run_cli, 
     result = run_cli("sweep", case, "--out", out, "--quiet", "--scheduler", "tcp://127.0.0.1:8786")
     assert_refused(result, "lost", "saved")
     assert len([p for p in (out / "steps").iterdir() if not p.name.startswith(".")]) == 1
+
+
+@pytest.mark.slow
+def test_fault_injection_kill_and_resume_sweep(tmp_path):
+    """kill -9 at random moments, then resume: the result equals an uninterrupted sweep's, nothing is
+    left behind (no worker, no hidden folder), and no finished step is lost between kills."""
+    import random
+
+    text = SPHERE.replace("subdivisions = 1", "subdivisions = 3") + (
+        '\n[sweep]\nworkers = 2\nparameters = [{ key = "surface.radius", start = 1.0, stop = 1.6, steps = 6 }]\n')
+    case = write_case(tmp_path, text)
+    env = {**os.environ, "PYTHONPATH": str(Path(shellmodes.__file__).parents[1])}
+
+    def command(out):
+        return [sys.executable, "-m", "shellmodes", "sweep", str(case), "--out", str(out), "--quiet"]
+
+    subprocess.run(command(tmp_path / "reference"), check=True, env=env, timeout=300)
+    out = tmp_path / "out"
+    rng = random.Random(20261208)
+    finished: set[str] = set()
+    for _ in range(3):
+        sweep = subprocess.Popen(command(out), env=env, stderr=subprocess.DEVNULL)
+        time.sleep(rng.uniform(1.0, 4.0))
+        everyone = _children(sweep.pid)
+        sweep.send_signal(signal.SIGKILL)
+        sweep.wait(timeout=30)
+        deadline = time.monotonic() + 20
+        while time.monotonic() < deadline and any(_alive(p) for p in everyone):
+            time.sleep(0.2)
+        assert not any(_alive(p) for p in everyone), "a worker outlived the killed sweep"
+        steps = out / "steps"
+        now = {p.name for p in steps.iterdir() if (p / "step.json").is_file()} if steps.is_dir() else set()
+        assert finished <= now, "a finished step was lost"
+        finished = now
+    subprocess.run(command(out), check=True, env=env, timeout=300)
+    assert (out / "sweep.csv").read_text() == (tmp_path / "reference" / "sweep.csv").read_text()
+    hidden = [p.name for p in [*out.iterdir(), *(out / "steps").iterdir()] if p.name.startswith(".")]
+    assert hidden == []
