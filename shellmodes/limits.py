@@ -28,3 +28,11 @@ PRISM_ITERATIVE_FROM = 15_000
 CONVERGE_MAX_SUBDIVISIONS = 6
 #: multiplets whose first mode a report renders by default
 DEFAULT_RENDERS = 6
+#: below this size a dense generalized eigensolver is cheaper and exact
+DENSE_LIMIT = 600
+#: from this many unknowns on ``modes.method = "auto"`` uses the blocked iteration (measured: benchmarks/README.md)
+BLOCK_THRESHOLD = 50_000
+#: ... and from this many modes on at any size where the block fits (4 k < n): ARPACK's single-vector
+#: reorthogonalisation grows like n k^2.  CPU time measured at 1 BLAS thread (benchmarks/README.md):
+#: 10,242 unknowns and 100 modes 1.6 s Lanczos, 1.2 s block; 36 or 64 modes: Lanczos 25-40 % faster
+BLOCK_COUNT = 80

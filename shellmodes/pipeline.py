@@ -71,7 +71,8 @@ def solve_case(case: Case, problem: Problem, scale: EnergyScale) -> tuple[Solver
     except CaseError:
         raise
     except ShellmodesError as exc:
-        raise CaseError(str(exc), case.source, "modes.count" if modes.count else "modes.below") from None
+        key = getattr(exc, "key", None) or ("modes.count" if modes.count else "modes.below")
+        raise CaseError(str(exc), case.source, key) from None
     return plan, solved
 
 
@@ -91,6 +92,9 @@ def run_case(case: Case) -> Spectrum:
     >>> [m.size for m in s.multiplets]
     [1, 3]
     """
+    from shellmodes.eigen.resources import check_resources
+
+    check_resources(case)  # the memory guard: refuse before any mesh or matrix is built
     t_start = time.perf_counter()
     scale = energy_scale(case)
     disc = build_discretisation(case)

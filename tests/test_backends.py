@@ -92,7 +92,7 @@ def test_harmonic_basis_matches_the_single_harmonics():
 
 
 def test_auto_method_takes_the_block_iteration_for_many_modes_with_the_same_eigenvalues():
-    from shellmodes.eigen.solve import BLOCK_COUNT
+    from shellmodes.limits import BLOCK_COUNT
 
     p = _sphere(degree=2, level=4)  # 10,242 unknowns, so a block of 100 modes fits (4 k < n)
     auto = lowest_modes(p.K, p.M, BLOCK_COUNT + 20, scale=p.spectral_scale)

@@ -155,7 +155,14 @@ def compiled_potential(case: Case, scale: EnergyScale):
     """The case's potential as a function of x, y, z, r, theta, phi in lambda units (V / E0), or None."""
     if case.potential is None:
         return None
-    expr = compile_expression(case.potential.expression)
+    compiled = compile_expression(case.potential.expression)
+
+    def expr(**kw):
+        try:
+            return compiled(**kw)
+        except ExpressionError as exc:  # not finite somewhere in the domain
+            raise CaseError(str(exc), case.source, "potential.expression") from None
+
     unit = case.potential.unit
     if unit == "1":
         return expr

@@ -30,6 +30,19 @@ else:  # pragma: no cover
 __all__ = ["Case", "load_case", "case_from_dict", "case_schema", "CASE_TABLES"]
 
 Positive = Annotated[float, Field(gt=0)]
+#: the representable range of lengths, in units.length: twelve decades about 1 keep every derived quantity
+#: (areas, volumes, eigenvalues ~ 1/L^2, quadrature weights) far from floating-point underflow and overflow and
+#: geometric tolerances meaningful; choose units.length to bring a geometry into it
+LENGTH_RANGE = (1e-6, 1e6)
+Length = Annotated[float, Field(ge=LENGTH_RANGE[0], le=LENGTH_RANGE[1])]
+#: dimensionless factors (effective masses): six decades either way
+FACTOR_RANGE = (1e-6, 1e6)
+Factor = Annotated[float, Field(ge=FACTOR_RANGE[0], le=FACTOR_RANGE[1])]
+#: a mass or moment of inertia in its unit: no subnormal or astronomically large numbers
+AMOUNT_RANGE = (1e-40, 1e40)
+Amount = Annotated[float, Field(ge=AMOUNT_RANGE[0], le=AMOUNT_RANGE[1])]
+#: largest ratio of the longest to the shortest semi-axis of an ellipsoid or spheroid
+MAX_AXIS_RATIO = 1000.0
 LengthUnit = Literal[tuple(LENGTH_UNITS)]
 EnergyUnit = Literal[tuple(ENERGY_UNITS)]
 MassUnit = Literal[tuple(MASS_UNITS)]
@@ -38,7 +51,9 @@ Rim = Literal["dirichlet", "neumann"]
 
 
 class _Table(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+    # strict: no coercion (count = true, degree = "2", radius = true are refused); TOML arrays arrive as
+    # tuples (case_from_dict converts them)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False, strict=True)
 
 
 class DeformationTerm(_Table):
@@ -57,42 +72,62 @@ class DeformationTerm(_Table):
 
 class SphereSurface(_Table):
     shape: Literal["sphere"]
-    radius: Positive = Field(1.0, description="radius, in units.length")
+    radius: Length = Field(1.0, description="radius, in units.length")
 
 
 class EllipsoidSurface(_Table):
     shape: Literal["ellipsoid"]
-    axes: tuple[Positive, Positive, Positive] = Field(description="semi-axes along x, y, z")
+    axes: tuple[Length, Length, Length] = Field(description="semi-axes along x, y, z")
+
+    @model_validator(mode="after")
+    def _ratio(self):
+        _axis_ratio(self.axes)
+        return self
 
 
 class SpheroidSurface(_Table):
     shape: Literal["spheroid"]
-    equatorial_radius: Positive = Field(description="semi-axis in the x-y plane")
-    polar_radius: Positive = Field(description="semi-axis along z")
+    equatorial_radius: Length = Field(description="semi-axis in the x-y plane")
+    polar_radius: Length = Field(description="semi-axis along z")
+
+    @model_validator(mode="after")
+    def _ratio(self):
+        _axis_ratio((self.equatorial_radius, self.polar_radius))
+        return self
 
 
 class StarSurface(_Table):
     shape: Literal["star"]
-    radius: Positive = Field(1.0, description="mean radius R")
+    radius: Length = Field(1.0, description="mean radius R")
     deformation: tuple[DeformationTerm, ...] = Field((), description="terms of r = R(1 + sum a_lm Y_lm)")
 
 
 class TorusSurface(_Table):
     shape: Literal["torus"]
-    major_radius: Positive = Field(description="distance from the z axis to the tube centre")
-    minor_radius: Positive = Field(description="tube radius, smaller than major_radius")
+    major_radius: Length = Field(description="distance from the z axis to the tube centre")
+    minor_radius: Length = Field(description="tube radius, smaller than major_radius")
 
 
 class CapSurface(_Table):
     shape: Literal["cap"]
-    radius: Positive = Field(1.0, description="sphere radius")
+    radius: Length = Field(1.0, description="sphere radius")
     half_angle: float = Field(90.0, gt=0, lt=180, description="polar half-angle of the cap in degrees")
     rim: Rim = Field("dirichlet", description="hard rim (dirichlet) or free rim (neumann)")
+
+
+def _axis_ratio(axes) -> None:
+    """Refuse needle- or disc-like ellipsoids beyond :data:`MAX_AXIS_RATIO`."""
+    if axes is not None and max(axes) > MAX_AXIS_RATIO * min(axes):
+        raise ValueError(f"semi-axes {tuple(axes)!r} differ by more than a factor {MAX_AXIS_RATIO:g}; "
+                         "such a needle or disc is outside what the meshes resolve")
 
 
 def _check_shape_keys(table, keys: dict, what: str):
     """Refuse keys that do not belong to ``table.shape`` and require the ones it needs."""
     required, optional = keys[table.shape]
+    _axis_ratio(table.axes)
+    if table.equatorial_radius is not None and table.polar_radius is not None:
+        _axis_ratio((table.equatorial_radius, table.polar_radius))
     given = {k for k in type(table).model_fields if k != "shape" and getattr(table, k) is not None}
     extra = sorted(given - set(required) - set(optional))
     if extra:
@@ -120,13 +155,13 @@ class SnapTarget(_Table):
     """An analytic shape to snap an imported mesh's geometry nodes onto (keys as for that shape)."""
 
     shape: Literal["sphere", "ellipsoid", "spheroid", "star", "torus"]
-    radius: Positive | None = None
-    axes: tuple[Positive, Positive, Positive] | None = None
-    equatorial_radius: Positive | None = None
-    polar_radius: Positive | None = None
+    radius: Length | None = None
+    axes: tuple[Length, Length, Length] | None = None
+    equatorial_radius: Length | None = None
+    polar_radius: Length | None = None
     deformation: tuple[DeformationTerm, ...] | None = None
-    major_radius: Positive | None = None
-    minor_radius: Positive | None = None
+    major_radius: Length | None = None
+    minor_radius: Length | None = None
 
     @model_validator(mode="after")
     def _keys_of_shape(self):
@@ -150,10 +185,10 @@ class Wall(_Table):
     """A closed wall of a shell: sphere, ellipsoid, spheroid or star-shaped surface about the origin."""
 
     shape: Literal["sphere", "ellipsoid", "spheroid", "star"]
-    radius: Positive | None = Field(None, description="sphere or star: radius R")
-    axes: tuple[Positive, Positive, Positive] | None = Field(None, description="ellipsoid: semi-axes")
-    equatorial_radius: Positive | None = Field(None, description="spheroid: semi-axis in the x-y plane")
-    polar_radius: Positive | None = Field(None, description="spheroid: semi-axis along z")
+    radius: Length | None = Field(None, description="sphere or star: radius R")
+    axes: tuple[Length, Length, Length] | None = Field(None, description="ellipsoid: semi-axes")
+    equatorial_radius: Length | None = Field(None, description="spheroid: semi-axis in the x-y plane")
+    polar_radius: Length | None = Field(None, description="spheroid: semi-axis along z")
     deformation: tuple[DeformationTerm, ...] | None = Field(None, description="star: r = R(1 + sum a_lm Y_lm)")
 
     @model_validator(mode="after")
@@ -167,7 +202,7 @@ class Region(_Table):
     name: str = Field("", description="label used in reports")
     tag: NonNegativeInt | str | None = Field(None, description="region id, or its physical name, in a mesh file "
                                              "(default: position, inside out)")
-    effective_mass: Positive | None = Field(None, description="mass as a multiple of particle.mass "
+    effective_mass: Factor | None = Field(None, description="mass as a multiple of particle.mass "
                                                               "(default: particle.effective_mass)")
     offset: float = Field(0.0, description="potential offset (band offset), in potential.unit or units.energy")
 
@@ -221,7 +256,7 @@ class Resolution(_Table):
     geometry_degree: int | None = Field(
         None, ge=1, le=4, description="degree of the geometry map (default: degree; higher = superparametric)")
     subdivisions: int | None = Field(None, ge=0, le=MAX_SUBDIVISIONS, description="halvings of the reference mesh")
-    edge_length: Positive | None = Field(None, description="largest reference edge, in units.length")
+    edge_length: Length | None = Field(None, description="largest reference edge, in units.length")
     quadrature_order: int | None = Field(None, ge=1, le=20, description="exactness of the cell rule")
 
     @model_validator(mode="after")
@@ -230,16 +265,21 @@ class Resolution(_Table):
             raise ValueError("give either subdivisions or edge_length, not both")
         if self.geometry_degree is not None and self.geometry_degree < self.degree:
             raise ValueError(f"geometry_degree {self.geometry_degree} must be at least degree {self.degree}")
+        if self.quadrature_order is not None and self.quadrature_order < 2 * self.degree:
+            # the mass matrix of degree-p elements needs a rule exact for degree 2p on flat cells (common
+            # practice); a weaker rule can make it singular
+            raise ValueError(f"quadrature_order {self.quadrature_order} is too low for degree {self.degree}; "
+                             f"give at least {2 * self.degree}")
         return self
 
 
 class Particle(_Table):
     """The particle: a mass (times an effective-mass factor) or a rigid rotor's moment of inertia."""
 
-    mass: Positive | None = Field(None, description="particle mass in mass_unit")
+    mass: Amount | None = Field(None, description="particle mass in mass_unit")
     mass_unit: MassUnit = Field("electron", description="unit of mass")
-    effective_mass: Positive = Field(1.0, description="factor multiplying mass (band effective mass)")
-    moment_of_inertia: Positive | None = Field(None, description="rigid rotor: I = m R^2, in inertia_unit")
+    effective_mass: Factor = Field(1.0, description="factor multiplying mass (band effective mass)")
+    moment_of_inertia: Amount | None = Field(None, description="rigid rotor: I = m R^2, in inertia_unit")
     inertia_unit: InertiaUnit = Field("amu angstrom2", description="unit of moment_of_inertia")
 
     @model_validator(mode="after")
@@ -275,7 +315,8 @@ class Modes(_Table):
 
     count: int | None = Field(None, ge=1, le=MAX_MODE_COUNT, description="number of lowest modes")
     below: float | None = Field(None, description="all modes with energy below this, in units.energy")
-    multiplet_tolerance: Positive = Field(1e-4, description="relative gap that separates two multiplets")
+    multiplet_tolerance: Positive = Field(1e-4, le=0.05, description="relative gap that separates two multiplets "
+                                          "(at most 0.05: larger ones merge distinct levels)")
     backend: Literal["auto", "splu", "cholmod", "cholmod-system", "pardiso", "mumps"] = Field(
         "auto", description="factorization for shift-invert (auto: the fastest installed)")
     method: Literal["auto", "lanczos", "block", "lobpcg", "separable"] = Field(
@@ -345,6 +386,22 @@ class Output(_Table):
                                               "(cut views for shells; needs the plot extra and vtu = true)")
     picture_modes: int = Field(4, ge=1, le=100, description="how many multiplets to render (one mode each)")
 
+    @model_validator(mode="after")
+    def _pictures_need_vtu(self):
+        if self.pictures and not self.vtu:
+            raise ValueError("pictures = true renders modes.vtu: set vtu = true as well, or pictures = false")
+        return self
+
+
+class Limits(_Table):
+    """Resource limits.  Before building anything, a run estimates its memory (unknowns, matrices, factor,
+    eigen-iteration, modes written) and refuses, naming the key to change, when the estimate exceeds the
+    limit: the smaller of limits.memory_gib and the environment variable SHELLMODES_MEMORY_LIMIT (GiB, or a
+    number with a unit such as 512MiB), or, with neither set, the memory the machine reports as available."""
+
+    memory_gib: float | None = Field(None, gt=0, le=1e6, description="memory the run may use, in GiB "
+                                     "(default: the machine's available memory)")
+
 
 class Case(_Table):
     """A whole case file."""
@@ -359,6 +416,7 @@ class Case(_Table):
     modes: Modes = Modes()
     output: Output = Output()
     sweep: Sweep | None = None
+    limits: Limits = Limits()
     source: str = Field("<case>", exclude=True, description="where the case came from (not a TOML key)")
 
     @model_validator(mode="after")
@@ -391,7 +449,7 @@ class Case(_Table):
 
 
 CASE_TABLES = {"surface": Surface, "shell": Shell, "resolution": Resolution, "particle": Particle, "units": Units,
-               "potential": Potential, "modes": Modes, "output": Output, "sweep": Sweep}
+               "potential": Potential, "modes": Modes, "output": Output, "sweep": Sweep, "limits": Limits}
 
 
 def _allowed_keys(loc: tuple) -> list[str]:
@@ -438,11 +496,16 @@ def _variant(tag):
 _TAGS = {"sphere", "ellipsoid", "spheroid", "star", "torus", "cap", "mesh"}
 
 
+def _validator_label(part: str) -> bool:
+    """pydantic's names of union members in an error location ('constrained-int', 'str', 'tuple[...]')."""
+    return part in ("int", "str", "float", "bool", "none") or "-" in part or "[" in part
+
+
 def _format_error(error: dict) -> tuple[str, str]:
     loc = tuple(error["loc"])
     # drop discriminator tags and pydantic's function-validator labels from the key path
     key_parts = [str(p) if not isinstance(p, int) else f"[{p}]" for p in loc
-                 if not (isinstance(p, str) and (p in _TAGS and len(loc) > 1 and p != loc[0]))]
+                 if not (isinstance(p, str) and ((p in _TAGS and len(loc) > 1 and p != loc[0]) or _validator_label(p)))]
     key = ".".join(key_parts).replace(".[", "[")
     value = error.get("input")
     kind = error["type"]
@@ -461,6 +524,11 @@ def _format_error(error: dict) -> tuple[str, str]:
         return key + ".shape" if not key.endswith("shape") else key, (
             f"unknown shape {error.get('ctx', {}).get('tag', value)!r}; allowed: {', '.join(sorted(_TAGS))}")
     msg = error["msg"].replace("Value error, ", "")
+    bound = error.get("ctx", {}).get("ge", error.get("ctx", {}).get("le"))
+    if kind in ("greater_than_equal", "less_than_equal") and bound in LENGTH_RANGE:
+        msg = msg.replace("0.000001", "1e-06").replace("1000000", "1e+06") + (
+            f"; lengths must lie between {LENGTH_RANGE[0]:g} and {LENGTH_RANGE[1]:g} in units.length: "
+            "choose a units.length that brings the geometry into that range")
     if isinstance(value, float) and math.isnan(value):
         value_text = "nan"
     else:
@@ -468,6 +536,21 @@ def _format_error(error: dict) -> tuple[str, str]:
     if kind == "value_error" and not loc:
         return "", msg
     return key, f"value {value_text}: {msg}"
+
+
+#: deepest nesting of tables and arrays a case may have (the schema itself needs four)
+MAX_NESTING = 16
+
+
+def _tuples(value, depth: int = 0):
+    """TOML arrays as tuples (the strict schema takes arrays as tuples), nesting depth checked."""
+    if depth > MAX_NESTING:
+        raise RecursionError
+    if isinstance(value, dict):
+        return {k: _tuples(v, depth + 1) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return tuple(_tuples(v, depth + 1) for v in value)
+    return value
 
 
 def case_from_dict(data: dict, source: str = "<case>") -> Case:
@@ -496,7 +579,9 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
     if "surface" in data and "shell" in data:
         raise CaseError("give [surface] or [shell], not both", source, "shell")
     try:
-        return Case.model_validate({**data, "source": source})
+        return Case.model_validate({**_tuples(data), "source": source})
+    except RecursionError:
+        raise CaseError(f"the case is nested more than {MAX_NESTING} levels deep", source) from None
     except ValidationError as exc:
         errors = exc.errors()
         # a typo'd key usually also leaves a required key missing: report the typo first
@@ -525,6 +610,8 @@ def load_case(path) -> Case:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise CaseError(f"malformed TOML: {exc}", source) from None
+    except RecursionError:
+        raise CaseError(f"the case is nested more than {MAX_NESTING} levels deep", source) from None
     return case_from_dict(data, source)
 
 

@@ -9,6 +9,7 @@ command runs, so ``shellmodes --help`` starts fast.
 from __future__ import annotations
 
 import argparse
+import errno
 import importlib
 import logging
 import sys
@@ -50,15 +51,29 @@ def main(argv=None) -> int:
         return 2
     except BrokenPipeError:  # output piped into a pager or head that closed early
         return 0
+    except OSError as exc:
+        if exc.errno not in _STORAGE_ERRORS:
+            return _internal(exc, args)
+        print(f"shellmodes: error: cannot write {exc.filename or 'the results'}: {exc.strerror}; free space or "
+              "choose another --out (the previous result is intact)", file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
         print("shellmodes: interrupted; no file was left half-written (finished sweep steps are kept)",
               file=sys.stderr)
         return 130
     except Exception as exc:  # an internal failure, not the user's input
-        print(f"shellmodes: internal error: {type(exc).__name__}: {exc} (please report this)", file=sys.stderr)
-        if args.verbose:
-            raise
-        return 1
+        return _internal(exc, args)
+
+
+#: errors of the storage, not of the program: disk full, file-size limit, quota, read-only file system
+_STORAGE_ERRORS = {errno.ENOSPC, errno.EFBIG, errno.EDQUOT, errno.EROFS}
+
+
+def _internal(exc, args) -> int:
+    print(f"shellmodes: internal error: {type(exc).__name__}: {exc} (please report this)", file=sys.stderr)
+    if args.verbose:
+        raise exc
+    return 1
 
 
 if __name__ == "__main__":

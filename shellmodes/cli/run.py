@@ -22,7 +22,7 @@ def add_command(subparsers) -> None:
 def main(args) -> int:
     from shellmodes.case.schema import load_case
     from shellmodes.errors import CaseError
-    from shellmodes.io.outputs import write_outputs
+    from shellmodes.io.outputs import check_run_output, write_outputs
     from shellmodes.pipeline import run_case
 
     case_path = Path(args.case)
@@ -30,6 +30,7 @@ def main(args) -> int:
     out = Path(args.out) if args.out else default_out(case_path)
     if out.exists() and not out.is_dir():
         raise CaseError(f"--out {str(out)!r} is an existing file; give a folder", str(case_path))
+    check_run_output(case, out, args.report)  # writable, extras present: before any solving
     spectrum = run_case(case)
     files = None if case.output.vtu else ["spectrum.json", "spectrum.csv", "run.log"]
     write_outputs(spectrum, out, files)

@@ -28,6 +28,10 @@ def main(args) -> int:
     case = load_case(case_path)
     out = Path(args.out) if args.out else default_out(case_path)
     bars = []  # made at the first report, when the number of steps is known
+    if not args.quiet:
+        from shellmodes.io.pictures import require_plot_extra
+
+        require_plot_extra("the sweep's progress bar (or --quiet)", str(case_path), modules=("tqdm",), extra="sweep")
 
     def progress(done, total):
         if args.quiet:

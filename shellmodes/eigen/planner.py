@@ -24,8 +24,8 @@ Paths
 ``shift-invert``
     Everything else: a sparse Cholesky factor of K - sigma M with sigma
     strictly below the spectrum, and ARPACK Lanczos, the blocked iteration
-    from :data:`~shellmodes.eigen.solve.BLOCK_THRESHOLD` unknowns, or a dense solve
-    below :data:`~shellmodes.eigen.solve.DENSE_LIMIT`.
+    from :data:`~shellmodes.limits.BLOCK_THRESHOLD` unknowns, or a dense solve
+    below :data:`~shellmodes.limits.DENSE_LIMIT`.
 """
 
 from __future__ import annotations

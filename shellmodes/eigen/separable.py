@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg as sla
 
+from shellmodes.eigen.resources import check_count
 from shellmodes.errors import SolverError
 from shellmodes.fem.prisms import PrismShell, kronecker_factors
 
@@ -117,6 +118,7 @@ def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None 
     # second surface solve; asking 1.5 count + 8 at once usually settles it in one
     want = int(1.5 * count) + 8 if count is not None else 16
     n_full = Ks.shape[0] * len(f)
+    check_count(count, n_full)  # the rule of every path: never fewer modes than asked
     while True:
         surface = solver(min(want, Ks.shape[0]))
         mu = surface.lam

@@ -25,21 +25,14 @@ import scipy.sparse.linalg as sla
 
 from shellmodes.eigen.backends import get_backend
 from shellmodes.eigen.block import block_lowest, gram, relative_residuals
+from shellmodes.eigen.resources import check_count, check_growth
 from shellmodes.errors import DoubtfulResultWarning, SolverError
-from shellmodes.limits import WINDOW_START_COUNT
+from shellmodes.limits import BLOCK_COUNT, BLOCK_THRESHOLD, DENSE_LIMIT, WINDOW_START_COUNT
 
 __all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals", "resolve_method"]
 
 log = logging.getLogger(__name__)
 
-#: below this size a dense generalized eigensolver is cheaper and exact
-DENSE_LIMIT = 600
-#: from this size on ``method="auto"`` uses the blocked iteration (measured: benchmarks/README.md)
-BLOCK_THRESHOLD = 50_000
-#: ... and from this many modes on at any size where the block fits (4 k < n): ARPACK's single-vector
-#: reorthogonalisation grows like n k^2.  CPU time measured at 1 BLAS thread (benchmarks/README.md):
-#: 10,242 unknowns and 100 modes 1.6 s Lanczos, 1.2 s block; 36 or 64 modes: Lanczos 25-40 % faster
-BLOCK_COUNT = 80
 #: iterations on assembled matrices ("separable" is a plan of :mod:`shellmodes.eigen.planner`, not an iteration)
 METHODS = ("auto", "lanczos", "block", "lobpcg")
 
@@ -174,9 +167,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     n = K.shape[0]
     if (count is None) == (below is None):
         raise ValueError("give exactly one of count and below")
-    if count is not None and count > n:
-        raise SolverError(f"{count} modes were requested but the discretisation has only {n} "
-                          "degrees of freedom; refine the mesh or ask for fewer modes")
+    check_count(count, n)
     method = resolve_method(n, method, count)
     K = sp.csr_matrix(K)
     M = sp.csr_matrix(M)
@@ -222,6 +213,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
             inside = np.flatnonzero(lam < below)
             if len(inside) == len(lam) and len(lam) < n:
                 k = min(n, 2 * k)
+                check_growth(n, k, count, below, multiplet_tolerance)
                 continue
             last = inside[-1] if len(inside) else -1
         else:
@@ -233,6 +225,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
             keep = group[-1] + 1
             if keep == len(lam) and len(lam) < n:  # the multiplet may continue beyond what we have
                 k = min(n, k + max(8, len(group) + 8))
+                check_growth(n, k, count, below, multiplet_tolerance)
                 continue
         break
     lam, U = lam[:keep], U[:, :keep]

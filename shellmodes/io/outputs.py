@@ -12,13 +12,17 @@ import csv
 import io
 import json
 import os
+import re
 import shutil
 import tempfile
 from pathlib import Path
 
 import numpy as np
 
-__all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_field_name", "EXPORTERS", "register"]
+from shellmodes.io.pictures import ordinary_permissions
+
+__all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_field_name", "EXPORTERS", "register",
+           "check_writable", "check_run_output", "clear_leftovers", "ordinary_permissions", "RUN_FILES"]
 
 EXPORTERS: dict = {}
 
@@ -109,17 +113,97 @@ def _plain(value):
     return str(value)
 
 
-class atomic_directory:
-    """Context manager: yields a temporary folder, then moves its files into ``target``.
+def _exchange(a: Path, b: Path) -> bool:
+    """Swap two paths in one atomic step (Linux renameat2 RENAME_EXCHANGE); False where unsupported."""
+    import ctypes
+    import ctypes.util
 
-    The files appear in ``target`` only if the block finishes without error;
-    each is moved with an atomic rename.
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6", use_errno=True)
+        renameat2 = libc.renameat2
+    except (OSError, AttributeError):
+        return False
+    at_fdcwd, rename_exchange = -100, 2
+    return renameat2(at_fdcwd, os.fsencode(a), at_fdcwd, os.fsencode(b), rename_exchange) == 0
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def clear_leftovers(target) -> list[Path]:
+    """Remove hidden temporary siblings of ``target`` that a killed run left (their process is gone)."""
+    target = Path(target)
+    pattern = re.compile(rf"^\.{re.escape(target.name)}\.(?:tmp|old)-(\d+)-")
+    removed = []
+    if not target.parent.is_dir():
+        return removed
+    for item in target.parent.iterdir():
+        match = pattern.match(item.name)
+        if match and item.is_dir() and not _alive(int(match.group(1))):
+            shutil.rmtree(item, ignore_errors=True)
+            removed.append(item)
+    return removed
+
+
+def check_writable(target, source: str | None = None, key: str = "--out") -> None:
+    """Refuse (before any solving) an output folder that cannot be created or written.
+
+    The nearest existing ancestor must be a folder in which a temporary folder can be made and
+    removed again (a read-only file system, /proc or a missing permission fail here).
+    """
+    from shellmodes.errors import CaseError
+
+    target = Path(target)
+    if target.exists() and not target.is_dir():
+        raise CaseError(f"value {str(target)!r} is an existing file; give a folder", source, key)
+    ancestor = target.parent
+    while not ancestor.exists():
+        ancestor = ancestor.parent
+    if not ancestor.is_dir():
+        raise CaseError(f"value {str(target)!r}: {str(ancestor)!r} is a file, so no folder can be made below it",
+                        source, key)
+    try:
+        probe = tempfile.mkdtemp(prefix=f".{target.name}.tmp-{os.getpid()}-", dir=ancestor)
+        os.rmdir(probe)
+    except OSError as exc:
+        raise CaseError(f"value {str(target)!r}: cannot write in {str(ancestor)!r} ({exc.strerror or exc})",
+                        source, key) from None
+
+
+def check_run_output(case, out, report: bool = False) -> None:
+    """What ``shellmodes run`` checks before solving: the folder is writable, the plot extra is there if needed."""
+    check_writable(out, case.source)
+    if report or case.output.pictures:
+        from shellmodes.io.pictures import require_plot_extra
+
+        require_plot_extra("--report" if report else "output.pictures", case.source)
+
+
+class atomic_directory:
+    """Context manager: yields a temporary folder beside ``target``, then swaps it in as ``target``.
+
+    The new folder appears whole: written as a hidden sibling, completed with what it keeps of the
+    old folder (hard links), and exchanged with the old folder in one atomic rename where the system
+    offers one (two renames otherwise), so a reader sees the old result or the new one, never a mix.
+    Files of the old folder that the new one does not replace are kept, except ``stale`` names and
+    names matching the ``owned`` patterns (files an earlier run wrote that this one did not).
+    Hidden temporary folders left by killed runs are removed on the way in.  Nothing appears in
+    ``target`` if the block fails.
     """
 
-    def __init__(self, target, stale=()):
+    def __init__(self, target, stale=(), owned=()):
         self.target = Path(target)
         #: names to remove from an existing target once the new files are in place
         self.stale = tuple(stale)
+        #: regular expressions of names the writer owns: an old one the new folder lacks is dropped
+        self.owned = tuple(re.compile(p) for p in owned)
 
     def __enter__(self) -> Path:
         parent = self.target.parent
@@ -130,25 +214,40 @@ class atomic_directory:
             self.created.append(missing)
             missing = missing.parent
         parent.mkdir(parents=True, exist_ok=True)
-        self.tmp = Path(tempfile.mkdtemp(prefix=f".{self.target.name}.", dir=parent))
-        # mkdtemp makes the folder private (0700); the finished folder gets ordinary permissions
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(self.tmp, 0o777 & ~umask)
+        clear_leftovers(self.target)
+        self.tmp = Path(tempfile.mkdtemp(prefix=f".{self.target.name}.tmp-{os.getpid()}-", dir=parent))
+        ordinary_permissions(self.tmp)  # mkdtemp makes the folder private (0700)
         return self.tmp
 
+    def _carry_over(self) -> None:
+        """Hard-link into the new folder what it keeps of the old one."""
+        for item in self.target.iterdir():
+            name = item.name
+            if (self.tmp / name).exists() or name in self.stale or any(p.fullmatch(name) for p in self.owned):
+                continue
+            if item.is_dir() and not item.is_symlink():
+                shutil.copytree(item, self.tmp / name, symlinks=True, copy_function=_link_or_copy)
+            else:
+                _link_or_copy(item, self.tmp / name)
+
     def __exit__(self, kind, value, tb):
+        old = None
         try:
             if kind is None:
                 if not self.target.exists():
                     os.replace(self.tmp, self.target)
                     return False
-                for item in self.tmp.iterdir():
-                    os.replace(item, self.target / item.name)
-                for name in self.stale:
-                    (self.target / name).unlink(missing_ok=True)
+                self._carry_over()
+                if _exchange(self.tmp, self.target):
+                    old = self.tmp  # now holds the old folder
+                else:
+                    old = self.target.with_name(f".{self.target.name}.old-{os.getpid()}-{self.tmp.name[-8:]}")
+                    os.replace(self.target, old)
+                    os.replace(self.tmp, self.target)
         finally:
             shutil.rmtree(self.tmp, ignore_errors=True)
+            if old is not None:
+                shutil.rmtree(old, ignore_errors=True)
             if kind is not None:
                 for folder in self.created:  # innermost first
                     try:
@@ -156,6 +255,19 @@ class atomic_directory:
                     except OSError:
                         break
         return False
+
+
+def _link_or_copy(source, destination):
+    try:
+        os.link(source, destination, follow_symlinks=False)
+    except OSError:
+        shutil.copy2(source, destination, follow_symlinks=False)
+    return destination
+
+
+#: names a run writes into its folder (with ``shellmodes report``): an earlier run's copy is dropped
+RUN_FILES = (r"spectrum\.json", r"spectrum\.csv", r"modes\.vtu", r"run\.log", r"report\.html", r"levels\.png",
+             r"mode-\d+\.png", r"report-.*\.png")
 
 
 def write_outputs(spectrum, folder, files=None) -> Path:
@@ -166,7 +278,7 @@ def write_outputs(spectrum, folder, files=None) -> Path:
         raise ValueError(f"unknown outputs {sorted(unknown)}; allowed: {', '.join(EXPORTERS)}")
     # files an earlier run wrote that this one does not (e.g. modes.vtu with output.vtu = false)
     stale = [n for n in EXPORTERS if n not in names and "." in n]
-    with atomic_directory(folder, stale=stale) as tmp:
+    with atomic_directory(folder, stale=stale, owned=RUN_FILES) as tmp:
         for name in names:
             EXPORTERS[name](spectrum, tmp)
         _write_pictures(spectrum, tmp)  # only when the case's [output] asks for pictures

@@ -29,8 +29,8 @@ import numpy as np
 
 from shellmodes.errors import MeshError, ShellmodesError
 
-__all__ = ["PlotExtraMissing", "LevelDiagram", "spectrum_picture", "render_modes", "mode_fields",
-           "sphere_ladder", "DIVERGING_COLOURS"]
+__all__ = ["PlotExtraMissing", "require_plot_extra", "ordinary_permissions", "LevelDiagram",
+           "spectrum_picture", "render_modes", "mode_fields", "sphere_ladder", "DIVERGING_COLOURS"]
 
 #: our diverging map for mode amplitudes: deep slate blue through warm paper to brick red
 DIVERGING_COLOURS = ("#203a5c", "#4f7fae", "#a9c6de", "#f6f2ea", "#e9b28f", "#c0603a", "#6e2414")
@@ -46,6 +46,24 @@ _VOLUME_CELLS = frozenset({10, 11, 12, 13, 14, 24, 25, 26, 27, 29, 32, 33})
 
 class PlotExtraMissing(ShellmodesError, ImportError):
     """matplotlib or pyvista (the ``plot`` extra) is not installed."""
+
+
+def ordinary_permissions(path) -> None:
+    """Give a file or folder made private by mkstemp/mkdtemp the permissions the umask allows."""
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(path, (0o777 if Path(path).is_dir() else 0o666) & ~umask)
+
+
+def require_plot_extra(what: str, source: str | None = None, modules=("matplotlib", "pyvista"),
+                       extra: str = "plot") -> None:
+    """Refuse up front (before any solving) when the extra that ``what`` needs is not installed."""
+    import importlib.util
+
+    missing = [m for m in modules if importlib.util.find_spec(m) is None]
+    if missing:
+        where = f"{source}: " if source else ""
+        raise PlotExtraMissing(f"{where}{what} needs {' and '.join(missing)}: pip install 'shellmodes[{extra}]'")
 
 
 def _matplotlib():
@@ -75,6 +93,7 @@ def _write_atomic_png(path: Path, save) -> Path:
     os.close(fd)
     try:
         save(tmp)
+        ordinary_permissions(tmp)  # mkstemp makes the file private (0600)
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
@@ -372,6 +391,12 @@ def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
     indices = [int(i) for i in indices]
     if not vtu_path.is_file():
         raise MeshError("no such mode file; run with output.vtu = true to write modes.vtu", str(vtu_path))
+    import meshio
+
+    from shellmodes.meshfiles.surface import SurfaceFormat, _read_with_meshio
+
+    # VTK's reader prints its errors to the terminal from C++: a damaged file is found by meshio first
+    _read_with_meshio(SurfaceFormat("VTK XML unstructured grid", meshio.vtu.read), str(vtu_path))
     with pv.vtk_verbosity("off"):
         try:
             grid = pv.read(vtu_path)

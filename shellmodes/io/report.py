@@ -70,16 +70,34 @@ def load_run(folder) -> dict:
     for key in ("modes", "multiplets"):
         if not isinstance(data.get(key), list):
             raise CaseError(f"not a shellmodes spectrum (no {key!r} list)", str(path))
-    for row in data["modes"]:
-        if not (isinstance(row, dict) and isinstance(row.get("index"), int)
-                and isinstance(row.get("energy"), (int, float))):
-            raise CaseError(f"malformed mode record {str(row)[:60]!r} (needs an integer 'index' and a "
-                            "numeric 'energy')", str(path))
-    for row in data["multiplets"]:
-        if not (isinstance(row, dict) and isinstance(row.get("index"), int)
-                and isinstance(row.get("energy"), (int, float))):
-            raise CaseError(f"malformed multiplet record {str(row)[:60]!r}", str(path))
+    for table, fields in _RECORD_FIELDS.items():
+        for row in data[table]:
+            bad = [name for name, kinds in fields.items()
+                   if not isinstance(row, dict) or not _has_kind(row.get(name, _ABSENT), kinds)]
+            if bad:
+                raise CaseError(f"malformed {table[:-1]} record {str(row)[:60]!r}: field {bad[0]!r} must be "
+                                f"{' or '.join(k.__name__ for k in fields[bad[0]] if k is not type(None))}"
+                                f"{' (or absent)' if type(None) in fields[bad[0]] else ''}; run the case again "
+                                "to rewrite it", str(path))
     return data
+
+
+_ABSENT = None
+_NUMBER = (int, float)
+#: the fields report reads from spectrum.json and their types (None: may be absent or null)
+_RECORD_FIELDS = {
+    "modes": {"index": (int,), "energy": _NUMBER, "eigenvalue": (*_NUMBER, type(None)),
+              "multiplet": (int, type(None)), "l": (int, type(None)), "residual": (*_NUMBER, type(None)),
+              "dominant_l": (int, type(None)), "l_weight": (*_NUMBER, type(None)),
+              "mean_L2": (*_NUMBER, type(None)), "abs_m": (*_NUMBER, type(None))},
+    "multiplets": {"index": (int,), "energy": _NUMBER, "size": (int, type(None)), "l": (int, type(None)),
+                   "expected_size": (int, type(None)), "spread": (*_NUMBER, type(None)),
+                   "modes": (list, type(None))},
+}
+
+
+def _has_kind(value, kinds) -> bool:
+    return isinstance(value, kinds) and not isinstance(value, bool)
 
 
 def find_convergence(folder, spectrum_json: dict | None = None) -> Path | None:

@@ -47,6 +47,8 @@ __all__ = [
     "validate_surface",
     "DUPLICATE_TOLERANCE",
     "DEGENERATE_TOLERANCE",
+    "check_header_sizes",
+    "check_coordinate_range",
 ]
 
 log = logging.getLogger(__name__)
@@ -204,12 +206,14 @@ def read_surface_mesh(path: str | os.PathLike) -> SurfaceMeshData:
     if file.stat().st_size == 0:
         raise MeshError("mesh file is empty", source)
 
+    check_header_sizes(source)
     mesh = _read_with_meshio(surface_format, source)
     points, cells = _surface_cells(mesh, source)
     # Index and coordinate checks come first: welding and gathering node
     # positions below index the point array with the cells.
     _check_indices(cells, len(points), source)
     _check_finite(points, _used_mask(cells, len(points)), source)
+    check_coordinate_range(points[_used_mask(cells, len(points))], source)
     if surface_format.separate_facets:
         # meshio's STL reader happens to weld already; doing it here keeps
         # the guarantee for any facet format.  +0.0 turns -0.0 into 0.0, so
@@ -222,6 +226,7 @@ def read_surface_mesh(path: str | os.PathLike) -> SurfaceMeshData:
     edges = _validate(points, triangles, source)
     if quadratic_nodes is not None:
         _check_edge_nodes(quadratic_nodes, edges, _scale(points[_used_mask(triangles, len(points))]), source)
+        _check_folds(quadratic_nodes, source)
 
     used, triangles = np.unique(triangles, return_inverse=True)
     return SurfaceMeshData(points=points[used], triangles=triangles.reshape(-1, 3),
@@ -309,8 +314,9 @@ def _read_with_meshio(surface_format: SurfaceFormat, source: str) -> meshio.Mesh
             return surface_format.read(source)
     except MemoryError:
         raise
-    except Exception as exc:  # meshio's parsers fail with anything from ReadError to IndexError
-        raise MeshError(f"cannot read as {surface_format.description} ({_describe(exc)})", source) from exc
+    except (Exception, SystemExit) as exc:  # meshio's parsers fail with anything from ReadError to IndexError;
+        # meshio.read prints and exits on a file no reader takes
+        raise MeshError(f"cannot read as {surface_format.description} ({_describe(exc)})", source) from None
     finally:
         for line in captured.getvalue().splitlines():
             if line.strip():
@@ -519,6 +525,95 @@ def _check_edge_nodes(nodes: np.ndarray, edges: _Edges, scale: float, source: st
         raise MeshError(f"quadratic triangles {h0 // 3} and {h1 // 3} place the node of their shared edge "
                         f"at different positions {here} and {there}; "
                         f"{int(bad.sum())} such edges; curved triangles must meet along shared edges", source)
+
+
+#: (u, v) where a curved triangle's orientation is checked: corners, edge midpoints, the centroid and the
+#: points of a degree-5 rule's pattern (1/3 and 1/6 splits); a fold shows as a reversed normal at one of them
+_ORIENTATION_POINTS = np.array([[0, 0], [1, 0], [0, 1], [0.5, 0], [0.5, 0.5], [0, 0.5], [1 / 3, 1 / 3],
+                                [2 / 3, 1 / 6], [1 / 6, 2 / 3], [1 / 6, 1 / 6], [0.1, 0.1], [0.8, 0.1], [0.1, 0.8]])
+
+
+def _triangle6_derivatives(u: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """d/du and d/dv of the six quadratic shape functions (meshio triangle6 order), each (6, P)."""
+    w = 1.0 - u - v
+    du = np.array([1 - 4 * w, 4 * u - 1, 0 * u, 4 * (w - u), 4 * v, -4 * v])
+    dv = np.array([1 - 4 * w, 0 * u, 4 * v - 1, -4 * u, 4 * u, 4 * (w - v)])
+    return du, dv
+
+
+def _check_folds(nodes: np.ndarray, source: str) -> None:
+    """Refuse curved triangles whose surface normal turns against the corners' normal (a fold)."""
+    du, dv = _triangle6_derivatives(*_ORIENTATION_POINTS.T)
+    tu = np.einsum("kp,mkd->mpd", du, nodes)
+    tv = np.einsum("kp,mkd->mpd", dv, nodes)
+    normal = np.cross(tu, tv)  # (M, P, 3)
+    flat = np.cross(nodes[:, 1] - nodes[:, 0], nodes[:, 2] - nodes[:, 0])  # (M, 3)
+    agreement = np.einsum("mpd,md->mp", normal, flat)
+    bad = np.any(agreement <= 0, axis=1)
+    if bad.any():
+        tri = int(np.flatnonzero(bad)[0])
+        raise MeshError(f"quadratic triangle {tri} is folded: its surface turns against its corners' orientation "
+                        f"inside the cell (Jacobian sign changes); {int(bad.sum())} such triangles; check the order "
+                        "of the edge nodes (triangle6: corners, then edges 01, 12, 20)", source)
+
+
+#: most points or cells a mesh file may declare (far beyond what the memory guard would let through)
+MAX_ENTITIES = 100_000_000
+_HEADER_BYTES = 1 << 16
+
+
+def check_header_sizes(source: str) -> None:
+    """Compare the point and cell counts a header declares with what the file's size can hold.
+
+    Legacy VTK (``POINTS n``, ``CELLS n size``), OFF (``nv nf ne``), PLY (``element vertex n``,
+    ``element face n``) and VTK XML (``NumberOfPoints``, ``NumberOfCells``) headers are read from the
+    first 64 KiB; every number needs at least one byte (binary) or two (text), so a header claiming
+    more than the file can hold is truncated or corrupt, and refused before anything is allocated.
+    """
+    import re
+
+    path = Path(source)
+    size = path.stat().st_size
+    with open(path, "rb") as f:
+        head = f.read(_HEADER_BYTES).decode("latin-1")
+    claims = []  # (what, count, least bytes per entity)
+    suffix = path.suffix.lower()
+    if suffix == ".vtk":
+        claims += [("points", int(m.group(1)), 3) for m in re.finditer(r"\bPOINTS\s+(\d+)", head)]
+        claims += [("cell entries", int(m.group(2)), 1) for m in re.finditer(r"\bCELLS\s+(\d+)\s+(\d+)", head)]
+    elif suffix == ".off":
+        lines = [ln.split("#")[0].strip() for ln in head.splitlines()]
+        lines = [ln for ln in lines if ln]
+        if lines and lines[0].upper().endswith("OFF"):
+            rest = lines[0][lines[0].upper().rfind("OFF") + 3:].split() or (lines[1].split() if len(lines) > 1 else [])
+            if len(rest) >= 2 and all(t.isdigit() for t in rest[:2]):
+                claims += [("vertices", int(rest[0]), 3 * 2), ("faces", int(rest[1]), 4 * 2)]
+    elif suffix == ".ply":
+        end = head.find("end_header")
+        for match in re.finditer(r"element\s+(\w+)\s+(\d+)", head[:end if end >= 0 else None]):
+            claims.append((f"{match.group(1)} elements", int(match.group(2)), 3 if match.group(1) == "vertex" else 4))
+    elif suffix == ".vtu":
+        claims += [("points", int(m.group(1)), 0) for m in re.finditer(r'NumberOfPoints="(\d+)"', head)]
+        claims += [("cells", int(m.group(1)), 0) for m in re.finditer(r'NumberOfCells="(\d+)"', head)]
+    for what, count, least in claims:
+        if count > MAX_ENTITIES or count * least > size:
+            raise MeshError(f"the header declares {count:,} {what}, more than the file's {size:,} bytes can hold "
+                            f"(or above {MAX_ENTITIES:,}); the file is truncated or corrupt", source)
+
+
+def check_coordinate_range(points: np.ndarray, source: str) -> None:
+    """Coordinates within the representable range of lengths (case.LENGTH_RANGE) and not all at one point."""
+    from shellmodes.case.schema import LENGTH_RANGE
+
+    if len(points) == 0:
+        return
+    with np.errstate(all="ignore"):
+        largest = float(np.max(np.abs(points)))
+        extent = _scale(points)
+    if largest > LENGTH_RANGE[1] or extent < LENGTH_RANGE[0]:
+        raise MeshError(f"coordinates reach {largest:.3g} and span {extent:.3g}; lengths must lie between "
+                        f"{LENGTH_RANGE[0]:g} and {LENGTH_RANGE[1]:g} in units.length: rescale the mesh or "
+                        "choose another units.length", source)
 
 
 def _position(x: np.ndarray) -> str:

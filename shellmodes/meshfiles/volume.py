@@ -18,6 +18,7 @@ import numpy as np
 
 from shellmodes.errors import MeshError
 from shellmodes.fem.tetrahedra import VolumeDiscretisation, discretise_tetrahedra
+from shellmodes.meshfiles.surface import SurfaceFormat, _read_with_meshio, check_coordinate_range, check_header_sizes
 
 __all__ = ["read_volume_mesh", "region_names", "REGION_KEYS"]
 
@@ -53,10 +54,11 @@ def read_volume_mesh(
         missing region tags when required, inverted or zero-volume cells.
     """
     source = os.fspath(path)
-    try:
-        data = meshio.read(source)
-    except Exception as exc:  # meshio raises many types (ReadError, KeyError, ...)
-        raise MeshError(f"cannot read mesh: {type(exc).__name__}: {exc}".splitlines()[0], source) from None
+    if not os.path.isfile(source):
+        raise MeshError("cannot read mesh: file not found", source)
+    check_header_sizes(source)
+    # meshio.read prints and exits on files it cannot read: read with its output and exit contained
+    data = _read_with_meshio(SurfaceFormat("a mesh file", meshio.read), source)
     kinds = {block.type for block in data.cells if block.type in _TET_TYPES}
     if not kinds:
         found = sorted({block.type for block in data.cells}) or ["none"]
@@ -86,6 +88,13 @@ def read_volume_mesh(
         cells = cells[:, :4]
     if data.points.ndim != 2 or data.points.shape[1] != 3:
         raise MeshError(f"points have shape {data.points.shape}; a volume mesh needs 3-D points", source)
+    if cells.size and (cells.min() < 0 or cells.max() >= len(data.points)):
+        raise MeshError(f"cells refer to points outside 0..{len(data.points) - 1}", source)
+    used = data.points[np.unique(cells)]
+    if not np.all(np.isfinite(used)):
+        point = int(np.unique(cells)[np.flatnonzero(~np.isfinite(used).all(axis=1))[0]])
+        raise MeshError(f"point {point} has a coordinate that is not finite; coordinates must be finite", source)
+    check_coordinate_range(used, source)
     disc = discretise_tetrahedra(data.points, cells, regions, degree, source=source,
                                  quadrature_order=quadrature_order)
     names = region_names(data.field_data)

@@ -169,7 +169,8 @@ def _set(data, path, value):
     target = data
     for part in path[:-1]:
         target = target[part]
-    target[path[-1]] = value
+    # an integral value fits integer keys (subdivisions, layers) as well as number keys (strict schema)
+    target[path[-1]] = int(value) if float(value).is_integer() and abs(value) < 2**53 else value
 
 
 def _clear_leftovers(steps_dir: Path) -> None:
@@ -254,6 +255,30 @@ def plan_steps(case: Case) -> tuple[list[SweepStep], CaseError | None]:
 
 # -- step folders ------------------------------------------------------------------------------------
 
+def _reusable(folder: Path, step: SweepStep) -> bool:
+    """A finished step folder that parses in full; a damaged one is reported and solved again."""
+    if not _is_complete(folder, step):
+        return False
+    problem = _damage(folder)
+    if problem is not None:
+        warnings.warn(f"sweep step {step.index}: the saved step in {folder} is damaged ({problem}); "
+                      "solving it again", UserWarning, stacklevel=3)
+        return False
+    return True
+
+
+def _damage(folder: Path) -> str | None:
+    """Why a step folder cannot be read back in full (JSON, CSV rows, every mode in modes.vtu), or None."""
+    try:
+        spectrum, _, _, _ = load_step(folder)
+        rows = (folder / "spectrum.csv").read_text().splitlines()
+    except (OSError, ValueError, KeyError, TypeError, ShellmodesError) as exc:
+        return f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else 'unreadable'}"[:200]
+    if len(rows) != len(spectrum["modes"]) + 1:
+        return f"spectrum.csv has {max(len(rows) - 1, 0)} rows for {len(spectrum['modes'])} modes"
+    return None
+
+
 def _is_complete(folder: Path, step: SweepStep) -> bool:
     if not all((folder / name).is_file() for name in (*STEP_FILES, RECORD)):
         return False
@@ -292,7 +317,12 @@ def load_step(folder):
     folder = Path(folder)
     spectrum = json.loads((folder / "spectrum.json").read_text())
     record = json.loads((folder / RECORD).read_text())
-    mesh = meshio.read(folder / "modes.vtu")
+    from shellmodes.meshfiles.surface import SurfaceFormat, _read_with_meshio
+
+    try:
+        mesh = _read_with_meshio(SurfaceFormat("VTK XML", meshio.vtu.read), str(folder / "modes.vtu"))
+    except errors.MeshError as exc:
+        raise ShellmodesError(str(exc)) from None
     fields = {}
     for name, values in mesh.point_data.items():
         match = re.match(r"mode(\d+)_E=", name)
@@ -373,13 +403,56 @@ def _local_pool(todo, workers, steps_dir):
     # spawn, not fork: a fresh interpreter reads the thread variables when it loads the BLAS
     context = multiprocessing.get_context("spawn")
     with _single_threaded_children():
-        pool = ProcessPoolExecutor(max_workers=workers, mp_context=context)
+        pool = ProcessPoolExecutor(max_workers=workers, mp_context=context, initializer=_die_with_parent,
+                                   initargs=(os.getpid(),))
         futures = {pool.submit(_solve_step, step.case, step.index, step, steps_dir): step for step in todo}
     try:
         for future in as_completed(futures):
             yield futures[future], future.result()
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _die_with_parent(parent: int) -> None:
+    """Worker initializer: the kernel kills this worker when the sweep process dies (Linux prctl)."""
+    import ctypes
+    import signal
+
+    try:
+        ctypes.CDLL(None, use_errno=True).prctl(1, int(signal.SIGKILL))  # PR_SET_PDEATHSIG
+    except (OSError, AttributeError):  # not Linux: workers end when the pool's pipe closes
+        pass
+    if os.getppid() != parent:  # the parent died before the request took effect
+        os._exit(1)
+
+
+#: what a scheduler address must look like
+SCHEDULER_ADDRESS = re.compile(r"tcp://(\[[0-9a-fA-F:]+\]|[A-Za-z0-9.-]+):(\d{1,5})")
+
+
+def check_scheduler_address(address: str, source: str | None = None) -> None:
+    """Refuse an address that is not ``tcp://host:port`` (before anything is written)."""
+    match = SCHEDULER_ADDRESS.fullmatch(str(address).strip())
+    if match is None or not 0 < int(match.group(2)) < 65536:
+        raise CaseError(f"value {address!r}: a scheduler address is tcp://host:port (port 1-65535); "
+                        "tls and other protocols are not supported", source, "sweep.scheduler")
+
+
+def _lost(address, exc) -> ShellmodesError:
+    reason = str(exc).splitlines()[0] if str(exc) else ""
+    return ShellmodesError(f"the Dask scheduler at {address!r} failed or was lost ({type(exc).__name__}"
+                           f"{': ' + reason[:160] if reason else ''}); every step finished so far is saved "
+                           "and is reused when the sweep is run again")
+
+
+def _scheduler_failure(exc) -> bool:
+    """Whether an exception is the scheduler or its connection failing (not a step's own error)."""
+    import asyncio
+    import concurrent.futures
+
+    return (isinstance(exc, (OSError, TimeoutError, MemoryError, EOFError, asyncio.CancelledError,
+                             concurrent.futures.CancelledError))
+            or type(exc).__module__.split(".")[0] in ("distributed", "tornado", "msgpack"))
 
 
 def _dask(todo, address, timeout):
@@ -389,7 +462,7 @@ def _dask(todo, address, timeout):
         raise ShellmodesError("sweep.scheduler needs dask.distributed (pip install 'shellmodes[sweep]')") from None
     try:
         client = Client(address, timeout=timeout, set_as_default=False)
-    except (OSError, TimeoutError, ValueError) as exc:
+    except Exception as exc:  # a service that is not a scheduler fails in many ways (MemoryError, TypeError...)
         reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise ShellmodesError(f"cannot reach the Dask scheduler at {address!r} within {timeout:g} s ({reason}); "
                               "check the address, or drop sweep.scheduler to use the local cores") from None
@@ -398,8 +471,15 @@ def _dask(todo, address, timeout):
         with client.as_current():  # as_completed looks for a current client; this one is not the default
             for future in as_completed(list(futures)):
                 yield futures[future], future.result()
+    except ShellmodesError:
+        raise
+    except BaseException as exc:
+        if isinstance(exc, GeneratorExit) or not _scheduler_failure(exc):
+            raise
+        raise _lost(address, exc) from None
     finally:
-        client.close()
+        with contextlib.suppress(Exception):
+            client.close(timeout=2)
 
 
 def _reemit(step: SweepStep, caught):
@@ -458,18 +538,27 @@ def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | N
     >>> [round(r["eigenvalue"], 1) for r in result.rows if r["mode"] == 1]  # l(l+1)/R^2, coarse mesh
     [2.0, 0.5]
     """
+    from shellmodes.io.outputs import check_writable
+    from shellmodes.io.pictures import require_plot_extra
     from shellmodes.studies.sweep_files import write_sweep_files
 
     steps, invalid = plan_steps(case)
     out = Path(out)
-    steps_dir = out / "steps"
-    steps_dir.mkdir(parents=True, exist_ok=True)
-    _clear_leftovers(steps_dir)
     workers = case.sweep.workers if workers is None else int(workers)
     scheduler = case.sweep.scheduler if scheduler is None else scheduler
     if workers < 1:
         raise CaseError(f"value {workers}: need at least one worker", case.source, "sweep.workers")
-    reused = tuple(s.index for s in steps if _is_complete(steps_dir / s.folder_name, s))
+    # everything that can be refused is refused before --out is touched or a step is solved
+    if scheduler:
+        check_scheduler_address(scheduler, case.source)
+    check_writable(out, case.source)
+    require_plot_extra("a sweep's levels.png", case.source, modules=("matplotlib",), extra="sweep")
+    if invalid is not None and not steps:
+        raise SweepStopped(f"{invalid.reason}; no step was solved", invalid.source, invalid.key, None)
+    steps_dir = out / "steps"
+    steps_dir.mkdir(parents=True, exist_ok=True)
+    _clear_leftovers(steps_dir)
+    reused = tuple(s.index for s in steps if _reusable(steps_dir / s.folder_name, s))
     todo = [s for s in steps if s.index not in reused]
     log.info("sweep: %d steps, %d on disk, %d to solve", len(steps), len(reused), len(todo))
     done = len(reused)

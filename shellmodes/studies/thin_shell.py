@@ -66,6 +66,19 @@ class ThinShellComparison:
         return float(np.max(np.abs((shell[:n] - shell[0]) - (self.surface[:n] - self.surface[0]))))
 
 
+#: thinnest shell compared, relative to the surface's size: (pi/d)^2 must leave the angular levels
+#: (~1/R^2) about 1e-8 of itself, well above double precision
+MIN_RELATIVE_THICKNESS = 1e-4
+
+
+def _surface_size(surface) -> float:
+    """The smallest semi-axis or radius of a closed analytic surface (1 for shapes the bridge refuses later)."""
+    sizes = [getattr(surface, k, None) for k in ("radius", "equatorial_radius", "polar_radius")]
+    sizes += list(getattr(surface, "axes", None) or ())
+    sizes = [float(v) for v in sizes if v is not None]
+    return min(sizes) if sizes else 1.0
+
+
 def _offset_wall(surface: dict, delta: float, key: str, source: str) -> dict:
     shape = surface["shape"]
     if shape == "sphere":
@@ -114,22 +127,29 @@ def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subd
     thickness = tuple(float(d) for d in thickness)
     if not thickness or any(not np.isfinite(d) or d <= 0 for d in thickness):
         raise CaseError(f"value {thickness!r}: thicknesses must be positive numbers", case.source, "--thickness")
+    from shellmodes.case.schema import LENGTH_RANGE
+
+    size = _surface_size(case.surface)
+    for d in thickness:
+        if not LENGTH_RANGE[0] <= d <= LENGTH_RANGE[1] or d < MIN_RELATIVE_THICKNESS * size:
+            raise CaseError(f"value {d!r}: a thickness must be at least {MIN_RELATIVE_THICKNESS:g} of the surface's "
+                            f"size ({size:.4g}) and lie between {LENGTH_RANGE[0]:g} and {LENGTH_RANGE[1]:g}: the "
+                            "radial energy (pi/d)^2 of a thinner shell swamps the angular levels in double "
+                            "precision", case.source, "--thickness")
     if case.potential is not None:
         raise CaseError("the thin-shell bridge compares free particles; remove [potential]", case.source,
                         "potential")
-    surface = run_case(case)
-    data = case.model_dump(mode="json", exclude_none=True)
-    surf = data.pop("surface")
-    data.pop("sweep", None)
-    count = len(surface.eigenvalues)
-    shells = {}
     if cells not in ("prisms", "tetrahedra"):
         raise CaseError(f"value {cells!r}: allowed cells are prisms, tetrahedra", case.source, "--cells")
     prisms = cells == "prisms"
     if layers is None:
         layers = 1 if prisms else 6
     degree = case.resolution.degree if prisms else min(2, case.resolution.degree)
-    for d in thickness:
+    data = case.model_dump(mode="json", exclude_none=True)
+    surf = data.pop("surface")
+    data.pop("sweep", None)
+
+    def shell_case(d, count):
         shell_data = {**data,
                       "shell": {"inner": _offset_wall(surf, -d / 2, "--thickness", case.source),
                                 "outer": _offset_wall(surf, +d / 2, "--thickness", case.source),
@@ -141,7 +161,17 @@ def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subd
                       "modes": {**data.get("modes", {}), "count": count}}
         shell_data["modes"].pop("below", None)
         shell_data["modes"].pop("method", None)
-        result = run_case(case_from_dict(shell_data, case.source))
+        return case_from_dict(shell_data, case.source)
+
+    from shellmodes.eigen.resources import check_resources
+
+    for d in thickness:  # the memory guard for every shell before anything is solved
+        check_resources(shell_case(d, case.modes.count or 20), layers_key="--layers")
+    surface = run_case(case)
+    count = len(surface.eigenvalues)
+    shells = {}
+    for d in thickness:
+        result = run_case(shell_case(d, count))
         shells[d] = result.eigenvalues[:count]
     exact = None
     if surf["shape"] == "sphere":
