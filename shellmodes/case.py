@@ -182,19 +182,20 @@ class Shell(_Table):
     outer_condition: Rim = Field("dirichlet", description="condition on the outer wall")
     layers: int | tuple[int, ...] = Field(4, description="radial element layers per medium (one number for all)")
     regions: tuple[Region, ...] = Field((), description="media inside out; default: one medium per layer gap")
-    cells: Literal["tetrahedra", "prisms"] = Field(
-        "tetrahedra", description="tetrahedra (degree 1-2, balls and mesh files) or layered curved prisms "
-        "(triangle degree 1-4 times a radial degree, needs an inner wall)")
+    cells: Literal["tetrahedra", "prisms"] | None = Field(
+        None, description="tetrahedra (degree 1-2; mesh files) or layered curved prisms (triangle degree 1-4 "
+        "times a radial degree; a ball's innermost layer closes at the centre on one merged dof); default: "
+        "prisms for a ball from walls, tetrahedra otherwise")
     radial_degree: int | None = Field(None, ge=1, le=12, description="prisms: polynomial degree across each "
                                       "layer (default resolution.degree)")
 
     @model_validator(mode="after")
     def _walls_or_file(self):
+        if self.cells is None:
+            object.__setattr__(self, "cells", "prisms" if self.file is None and self.inner is None else "tetrahedra")
         if self.cells == "prisms":
             if self.file is not None:
                 raise ValueError("cells = 'prisms' builds its cells from walls; a mesh file gives tetrahedra")
-            if self.inner is None:
-                raise ValueError("cells = 'prisms' needs an inner wall; use cells = 'tetrahedra' for a ball")
         elif self.radial_degree is not None:
             raise ValueError("radial_degree applies to cells = 'prisms' only")
         if self.file is None and self.outer is None:

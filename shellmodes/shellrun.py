@@ -273,7 +273,7 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
         try:
             found = separable_modes(Ks, Ms, A, B, C, radial_free, count=modes.count, below=below,
                                     multiplet_tolerance=modes.multiplet_tolerance, scale=abs(shift),
-                                    surface_solver=surface)
+                                    surface_solver=surface, centre=disc.ball)
         except ShellmodesError as exc:
             raise CaseError(str(exc), case.source, "modes.count" if modes.count else "modes.below") from None
     messages = [str(w.message) for w in caught]
@@ -298,7 +298,8 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
                                 "surface_modes": found.timings["surface_modes"]}, method="separable")
     l = parent_degree(found.surface_lam)
     volume = float(np.ones(disc.n_surface) @ (Ms @ np.ones(disc.n_surface))) * float(np.sum(C))
-    return pairs, messages, found.radial_index + 1, l, volume, disc.n_surface * len(radial_free)
+    nfree = disc.n_surface * (len(radial_free) - disc.ball) + disc.ball  # a ball's centre copies are one dof
+    return pairs, messages, found.radial_index + 1, l, volume, nfree
 
 
 #: free unknowns from which deformed prism shells use LOBPCG with the spherical preconditioner
@@ -307,22 +308,24 @@ def _solve_separable(case: Case, disc, inverse_mass, offsets, lower, scale, pote
 PRISM_ITERATIVE_FROM = 15_000
 
 
-def _spherical_start(case, disc, inverse_mass, offsets, shift, scale, dirichlet):
-    """Preconditioner and start vectors for a deformed prism shell from its mean-radius spherical shell."""
+def _spherical_start(case, disc, inverse_mass, offsets, shift, scale, space):
+    """Preconditioner and start vectors for a deformed prism shell or ball from its mean-radius spherical one."""
     from threadpoolctl import threadpool_limits
 
+    from .volume.ball import BallPreconditioner
     from .volume.separable import SphericalPreconditioner, separable_modes, spherical_reference
 
     Ks, Ms, A, B, C = spherical_reference(disc, inverse_mass, offsets)
-    radial_free = disc.free_radial(dirichlet)
+    radial_free = space.radial_free
     with threadpool_limits(limits=1):
-        precondition = SphericalPreconditioner(Ks, Ms, A, B, C, radial_free, shift, backend=case.modes.backend)
+        kind = BallPreconditioner if disc.ball else SphericalPreconditioner
+        precondition = kind(Ks, Ms, A, B, C, radial_free, shift, backend=case.modes.backend)
         count = case.modes.count or 40
         reference = separable_modes(Ks, Ms, A, B, C, radial_free, count=int(1.3 * count) + 4,
-                                    multiplet_tolerance=case.modes.multiplet_tolerance, scale=abs(shift))
-    start = reference.vectors.reshape(disc.n_surface, disc.n_radial, -1)[:, radial_free, :]
+                                    multiplet_tolerance=case.modes.multiplet_tolerance, scale=abs(shift),
+                                    centre=disc.ball)
     l = parent_degree(reference.surface_lam)
-    return {"preconditioner": precondition, "start": start.reshape(disc.n_surface * len(radial_free), -1),
+    return {"preconditioner": precondition, "start": space.coordinates(reference.vectors),
             "reference": (reference.radial_index + 1, l)}
 
 
@@ -367,18 +370,24 @@ def run_shell(case: Case):
             return values.reshape(np.shape(x))
     t0 = time.perf_counter()
     dirichlet = _dirichlet_walls(case, disc)
+    space = None
     if prisms:
+        from .volume.ball import free_space
         from .volume.prisms import assemble_prisms
 
         try:
             K, M = assemble_prisms(disc, inverse_mass, offsets, function)
         except GeometryError as exc:
             raise CaseError(str(exc), case.source, "shell") from None
-        free = disc.free_dofs(dirichlet)
+        space = free_space(disc, dirichlet)  # a ball's centre copies merge into one unknown
+        free = space.representative
     else:
         K, M = assemble_volume(disc, inverse_mass, offsets, function)
         free = free_dofs(disc, dirichlet) if dirichlet else np.arange(disc.ndofs)
-    Kf, Mf = (restricted(K, free), restricted(M, free)) if len(free) < disc.ndofs else (K, M)
+    if space is not None and space.centre:
+        Kf, Mf = space.restrict(K), space.restrict(M)
+    else:
+        Kf, Mf = (restricted(K, free), restricted(M, free)) if len(free) < disc.ndofs else (K, M)
     t_assembly = time.perf_counter() - t0
     lower = min([0.0, *offsets.values()])
     if function is not None:
@@ -391,7 +400,7 @@ def run_shell(case: Case):
         path, estimate = "lobpcg-spherical", None
         reason = (f"deformed prisms, {len(free)} unknowns: LOBPCG preconditioned by the exact inverse of the "
                   "mean-radius spherical shell (fast diagonalisation), started from its modes")
-        options = _spherical_start(case, disc, inverse_mass, offsets, lower - scale, scale, dirichlet)
+        options = _spherical_start(case, disc, inverse_mass, offsets, lower - scale, scale, space)
         case = case.model_copy(update={"modes": case.modes.model_copy(update={"method": "lobpcg"})})
     else:
         path, estimate, reason = _choose_path(case, Kf, disc.nodes[free])
@@ -401,7 +410,10 @@ def run_shell(case: Case):
                                         **{k: v for k, v in options.items() if k in ("preconditioner", "start")})
     lam = pairs.lam
     vectors = np.zeros((disc.ndofs, len(lam)))
-    vectors[free] = pairs.vectors
+    if space is not None and space.centre:
+        vectors = space.expand(pairs.vectors)
+    else:
+        vectors[free] = pairs.vectors
     energies = lam * e0 if e0 is not None else lam.copy()
     symmetric = _spherical(case)
     columns = {}

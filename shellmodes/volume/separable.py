@@ -96,7 +96,7 @@ class SeparableModes:
 
 def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None = None,
                     below: float | None = None, *, multiplet_tolerance: float = 1e-4, scale: float = 1.0,
-                    surface_solver: Callable | None = None) -> SeparableModes:
+                    surface_solver: Callable | None = None, centre: bool = False) -> SeparableModes:
     """Lowest modes of ``K = Ks (x) B + Ms (x) A``, ``M = Ms (x) C`` by separation.
 
     Each surface pair ``Ks y = mu Ms y`` gives radial problems
@@ -106,24 +106,36 @@ def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None 
     surface modes; the surface set is doubled until its last
     ``lam_1(mu)`` lies above every mode kept, so no mode is missed.
     Residuals are those of the full Kronecker operator.
+
+    ``centre=True`` (a ball, :mod:`shellmodes.volume.ball`): radial dof 0 is
+    the merged centre, one dof times the constant surface function.  Since
+    ``Ks 1 = 0`` and every other surface mode is Ms-orthogonal to 1, it
+    couples only to the constant mode (mu = 0, taken exactly), whose radial
+    problem keeps it; every other surface mode drops it (u(0) = 0, the r^l
+    behaviour at the centre).
     """
     from ..solve import lowest_modes
     from ..spectrum import group_multiplets
 
     solver = surface_solver or (lambda k: lowest_modes(Ks, Ms, count=k, lower_bound=0.0, scale=1.0))
-    f = np.asarray(radial_free)
-    Af, Bf, Cf = A[np.ix_(f, f)], B[np.ix_(f, f)], C[np.ix_(f, f)]
+    f_all = np.asarray(radial_free)
+    f_rest = f_all[f_all != 0] if centre else f_all
     t0 = time.perf_counter()
     # the top kept multiplet is often the last surface multiplet's n = 1 level, which would force a
     # second surface solve; asking 1.5 count + 8 at once usually settles it in one
     want = int(1.5 * count) + 8 if count is not None else 16
-    n_full = Ks.shape[0] * len(f)
+    n_full = Ks.shape[0] * len(f_rest) + (len(f_all) - len(f_rest))
     while True:
         surface = solver(min(want, Ks.shape[0]))
-        mu = surface.lam
+        mu, Y = np.array(surface.lam, dtype=float), np.array(surface.vectors, dtype=float)
+        if centre:  # the constant surface mode, exactly (Ks 1 = 0), normalised in Ms
+            one = np.ones(Ks.shape[0])
+            mu[0], Y[:, 0] = 0.0, one / np.sqrt(one @ (Ms @ one))
         lam_list, si, ri, X = [], [], [], []
         for j, m in enumerate(mu):
-            values, vectors = sla.eigh(Af + m * Bf, Cf)
+            f = f_all if (j == 0 or not centre) else f_rest
+            g = np.ix_(f, f)
+            values, vectors = sla.eigh(A[g] + m * B[g], C[g])
             lam_list.append(values)
             si.append(np.full(len(values), j))
             ri.append(np.arange(len(values)))
@@ -147,17 +159,19 @@ def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None 
     lam, si, ri = lam[:keep], si[:keep], ri[:keep]
     nr = A.shape[0]
     Xk = np.zeros((nr, keep))  # radial factor of each kept mode, zero on the fixed radial dofs
+    rows = [f_all if (centre and si[i] == 0) or not centre else f_rest for i in range(keep)]
     for i in range(keep):
-        Xk[f, i] = X[si[i]][:, ri[i]]
-    Yk = surface.vectors[:, si]
+        Xk[rows[i], i] = X[si[i]][:, ri[i]]
+    Yk = Y[:, si]
     MsY, KsY = Ms @ Yk, Ks @ Yk
-    # rows of the fixed (Dirichlet) radial dofs are not equations
-    AX, BX, CX = (A @ Xk)[f], (B @ Xk)[f], (C @ Xk)[f]
+    AX, BX, CX = A @ Xk, B @ Xk, C @ Xk
     residuals = np.zeros(keep)
     for i in range(keep):
-        r = np.kron(KsY[:, i], BX[:, i]) + np.kron(MsY[:, i], AX[:, i] - lam[i] * CX[:, i])
+        # rows of the fixed radial dofs (Dirichlet walls; a ball's centre for mu > 0) are not equations
+        f = rows[i]
+        r = np.kron(KsY[:, i], BX[f, i]) + np.kron(MsY[:, i], AX[f, i] - lam[i] * CX[f, i])
         residuals[i] = np.linalg.norm(r) / (max(abs(lam[i]), scale) * np.linalg.norm(MsY[:, i])
-                                            * np.linalg.norm(CX[:, i]))
+                                            * np.linalg.norm(CX[f, i]))
     vectors = np.einsum("sk,rk->srk", Yk, Xk).reshape(Ks.shape[0] * nr, keep)
     gram = (Yk.T @ MsY) * (Xk.T @ (C @ Xk))
     orth = float(np.max(np.abs(gram - np.eye(keep)))) if keep else 0.0
