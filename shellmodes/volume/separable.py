@@ -149,7 +149,8 @@ def separable_modes(Ks, Ms, A, B, C, radial_free: np.ndarray, count: int | None 
             last = min(count, len(lam)) - 1
         groups = group_multiplets(lam, multiplet_tolerance, scale)
         keep = 0 if last < 0 else next(g for g in groups if last in g)[-1] + 1
-        ceiling = lam_list[-1][0]  # lam_1 of the last surface mode bounds every mode left out
+        # lam_1 of the last surface mode bounds every mode left out (none: a ball with only its centre free)
+        ceiling = lam_list[-1][0] if len(lam_list[-1]) else np.inf
         complete = keep < len(lam) and (keep == 0 or lam[keep - 1] < ceiling * (1 - multiplet_tolerance))
         if complete or len(mu) >= Ks.shape[0]:
             break
