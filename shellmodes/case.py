@@ -168,7 +168,8 @@ class Region(_Table):
                                              "(default: position, inside out)")
     effective_mass: Positive | None = Field(None, description="mass as a multiple of particle.mass "
                                                               "(default: particle.effective_mass)")
-    offset: float = Field(0.0, description="potential offset (band offset), in potential.unit or units.energy")
+    offset: float = Field(0.0, description="potential offset (band offset) in units.energy, always (never "
+                          "potential.unit; with units.energy = '1' it is in eigenvalue units 1/length^2)")
 
 
 class Shell(_Table):

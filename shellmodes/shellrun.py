@@ -158,13 +158,10 @@ def _media(case: Case, disc, e0):
 
 
 def _offset_scale(case: Case, e0) -> float:
-    """Factor turning an offset in the potential's (or the case's) energy unit into lambda units."""
-    from .units import ENERGY_UNITS
-
-    unit = case.potential.unit if case.potential is not None else case.units.energy
-    if unit == "1" or e0 is None:
+    """Factor turning a region offset into lambda units: offsets are in units.energy, whatever potential.unit is."""
+    if case.units.energy == "1" or e0 is None:
         return 1.0
-    return ENERGY_UNITS[unit] / (e0 * ENERGY_UNITS[case.units.energy])
+    return 1.0 / e0
 
 
 def _labels(case, disc, vectors, M, lam):

@@ -149,3 +149,22 @@ def test_ball_case_runs_on_prisms_by_default_and_writes_centre_tetrahedra(tmp_pa
     p = vtu.points[tets]
     volumes = np.einsum("td,td->t", np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), p[:, 3] - p[:, 0])
     assert np.all(volumes > 0)
+
+
+def test_region_offsets_are_in_units_energy_whatever_potential_unit_says():
+    # one rule: an offset is in units.energy.  A constant offset over the whole ball shifts every level by
+    # exactly that energy (common practice: V = const commutes with the Hamiltonian)
+    from shellmodes.case import case_from_dict
+    from shellmodes.run import run_case
+
+    def case(offset):
+        return case_from_dict({"shell": {"outer": {"shape": "sphere", "radius": 5.0}, "layers": 1, "radial_degree": 4,
+                                         "regions": [{"name": "dot", "offset": offset}]},
+                               "units": {"length": "nm", "energy": "meV"},
+                               "particle": {"mass": 1.0, "mass_unit": "electron"},
+                               "potential": {"expression": "0 * r", "unit": "eV"},
+                               "resolution": {"degree": 2, "subdivisions": 0}, "modes": {"count": 4}})
+
+    shifted, plain = run_case(case(100.0)), run_case(case(0.0))
+    np.testing.assert_allclose(shifted.energies - plain.energies, 100.0, rtol=1e-9)  # meV, not eV
+    assert "units.energy" in case(1.0).model_json_schema()["$defs"]["Region"]["properties"]["offset"]["description"]
