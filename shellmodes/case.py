@@ -189,6 +189,17 @@ class Shell(_Table):
         "prisms for a ball from walls, tetrahedra otherwise")
     radial_degree: int | None = Field(None, ge=1, le=12, description="prisms: polynomial degree across each "
                                       "layer (default resolution.degree)")
+    grading: Positive | tuple[Positive, ...] | None = Field(
+        None, description="prisms: ratio of successive layer widths inside each medium, outward (1: equal "
+        "layers; one number for all media)")
+    layer_boundaries: tuple[tuple[float, ...], ...] | None = Field(
+        None, description="prisms: per medium, the boundaries between its layers as fractions of its thickness, "
+        "strictly rising inside (0, 1); an empty list keeps layers and grading for that medium")
+    decay: float | None = Field(
+        None, gt=0, lt=1, description="prisms: automatic layers for bound states: in every barrier medium (offset "
+        "above a level among the lowest modes.count, next to a medium where that level is allowed) the layers reach "
+        "out to where the level's state has fallen by this factor (e.g. 1e-8), judged from the level's energy "
+        "(a fine 1-D radial estimate between the walls' mean spheres, offsets only) and the barrier")
 
     @model_validator(mode="after")
     def _walls_or_file(self):
@@ -197,8 +208,10 @@ class Shell(_Table):
         if self.cells == "prisms":
             if self.file is not None:
                 raise ValueError("cells = 'prisms' builds its cells from walls; a mesh file gives tetrahedra")
-        elif self.radial_degree is not None:
-            raise ValueError("radial_degree applies to cells = 'prisms' only")
+        else:
+            for key in ("radial_degree", "grading", "layer_boundaries", "decay"):
+                if getattr(self, key) is not None:
+                    raise ValueError(f"{key} applies to cells = 'prisms' only")
         if self.file is None and self.outer is None:
             raise ValueError("give outer (and inner, interfaces) walls, or a mesh file")
         if self.file is not None and (self.outer is not None or self.inner is not None or self.interfaces):
@@ -212,6 +225,15 @@ class Shell(_Table):
                 raise ValueError(f"layers has {len(self.layers)} entries for {media} media")
             if self.regions and len(self.regions) != media:
                 raise ValueError(f"regions has {len(self.regions)} entries but the walls make {media} media")
+            for key in ("grading", "layer_boundaries"):
+                value = getattr(self, key)
+                if isinstance(value, tuple) and len(value) != media:
+                    raise ValueError(f"{key} has {len(value)} entries for {media} media")
+            for i, inner in enumerate(self.layer_boundaries or ()):
+                f = [0.0, *inner, 1.0]
+                if any(b <= a for a, b in zip(f, f[1:])):
+                    raise ValueError(f"layer_boundaries[{i}] = {list(inner)}: boundaries must rise strictly "
+                                     "inside (0, 1)")
         return self
 
 

@@ -110,10 +110,12 @@ def build_volume(case: Case):
     layers = shell.layers if isinstance(shell.layers, int) else list(shell.layers)
     try:
         if prisms:
+            from .layering import case_fractions
             from .volume.prisms import prism_shell
 
             return prism_shell(functions, level, layers, degree=res.degree, radial_degree=shell.radial_degree,
-                               geometry_degree=res.geometry_degree, quadrature_order=res.quadrature_order)
+                               geometry_degree=res.geometry_degree, quadrature_order=res.quadrature_order,
+                               fractions=case_fractions(case, functions, energy_scale(case)[0]))
         mesh = shell_mesh(functions, level=level, layers_per_region=layers)
         return discretise(mesh, res.degree, quadrature_order=res.quadrature_order)
     except GeometryError as exc:

@@ -1,0 +1,81 @@
+"""Graded radial layers per medium and automatic layers for states bound in a finite well.
+
+References: the finite spherical well's bound-state condition (j_l inside matched
+to the modified spherical Bessel k_l outside, ``references.finite_spherical_well``;
+S. Fluegge, Practical Quantum Mechanics, problem on the spherical potential well,
+recalled from memory; scipy.special), and the same matching with a hard outer
+wall (``references.core_shell_dot_dirichlet``, BenDaniel and Duke, Phys. Rev. 152,
+683 (1966)).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import constants
+
+from shellmodes import references as ref
+from shellmodes.case import case_from_dict
+from shellmodes.errors import CaseError
+from shellmodes.run import run_case
+from shellmodes.volume.grading import decay_fractions, explicit_fractions, geometric_fractions
+
+WELL = {"shell": {"interfaces": [{"shape": "sphere", "radius": 5.0}], "outer": {"shape": "sphere", "radius": 40.0},
+                  "layers": [2, 2], "radial_degree": 8, "decay": 1e-8,
+                  "regions": [{"name": "well"}, {"name": "barrier", "offset": 300.0}]},
+        "units": {"length": "nm", "energy": "meV"}, "particle": {"mass": 1.0, "effective_mass": 0.067},
+        "resolution": {"degree": 4, "subdivisions": 1}, "modes": {"count": 4}, "output": {"vtu": False}}
+
+
+def test_grading_rules():
+    f = geometric_fractions(4, 2.0)
+    np.testing.assert_allclose(np.diff(f)[1:] / np.diff(f)[:-1], 2.0)  # widths grow by the ratio
+    assert f[0] == 0.0 and f[-1] == 1.0
+    np.testing.assert_allclose(explicit_fractions([0.25, 0.5]), [0.0, 0.25, 0.5, 1.0])
+    # decay into a barrier of thickness 40 from its inner wall: first layer 2/kappa_max (radial degree 8),
+    # widths never above 2/kappa_min, zone ends where exp(-kappa_min d) = 1e-6
+    g = decay_fractions(40.0, 0.5, 3.0, 1e-6, True, False) * 40.0
+    widths = np.diff(g)
+    assert widths[0] == pytest.approx(2 / 3.0)
+    assert np.all(widths[:-1] <= 2 / 0.5 + 1e-12)
+    assert g[-2] == pytest.approx(np.log(1e6) / 0.5, rel=1e-12)
+
+
+def test_finite_well_binds_both_states_with_automatic_layers():
+    # equal masses: V0 = 300 meV in lambda units through hbar^2 / (2 * 0.067 m_e * nm^2) (scipy.constants)
+    e0 = constants.hbar**2 / (2 * 0.067 * constants.m_e * 1e-18) / constants.e * 1e3
+    spectrum = run_case(case_from_dict(WELL))
+    walled = [ref.core_shell_dot_dirichlet(l, 1, 5.0, 40.0, 1.0, 1.0, 300.0 / e0)[0] * e0 for l in (0, 1)]
+    free = [ref.finite_spherical_well(l, 300.0 / e0, 5.0, 1.0, 1.0) * e0 for l in (0, 1, 2)]
+    assert [len(f) for f in free] == [1, 1, 0]  # the exact condition binds 1s and 1p only
+    energies = spectrum.energies
+    assert np.all(energies[:4] < 300.0)  # both bound in the discrete model too
+    expected = np.array([walled[0]] + [walled[1]] * 3)
+    # measured 6e-9 (1s) and 2.4e-7 (1p, l = 1 on 12 directions at degree 4); 1e-6 is the target of issue 9
+    np.testing.assert_allclose(energies[:4], expected, rtol=1e-6)
+    # the wall at 40 nm moves the levels by less than 1e-8: the infinite-barrier condition agrees too
+    np.testing.assert_allclose(walled, [free[0][0], free[1][0]], rtol=1e-8)
+
+
+def test_graded_ball_keeps_the_exact_separation():
+    # a graded ball (layers shrink outward) still separates and matches the zeros of j_l (A&S Table 10.6)
+    data = {"shell": {"outer": {"shape": "sphere", "radius": 1.0}, "layers": 3, "grading": 0.7,
+                      "radial_degree": 6}, "resolution": {"degree": 3, "subdivisions": 1}, "modes": {"count": 4},
+            "output": {"vtu": False}}
+    spectrum = run_case(case_from_dict(data))
+    assert spectrum.info["mesh"]["solver_path"]["path"] == "separable"
+    exact = np.array([ref.ball_dirichlet(0, 1)[0] ** 2] + [ref.ball_dirichlet(1, 1)[0] ** 2] * 3)
+    np.testing.assert_allclose(spectrum.eigenvalues[:4], exact, rtol=2e-5)  # measured 5.9e-6 (l = 1, P3)
+
+
+@pytest.mark.parametrize("edit, fragment", [
+    ({"cells": "tetrahedra", "radial_degree": None}, "decay applies to cells = 'prisms' only"),
+    ({"layer_boundaries": [[0.5, 0.3], []]}, "layer_boundaries[0]"),
+    ({"grading": [1.0]}, "grading has 1 entries for 2 media"),
+    ({"decay": 2.0}, "decay"),
+])
+def test_bad_layer_keys_name_the_key(edit, fragment):
+    data = {**WELL, "shell": {k: v for k, v in {**WELL["shell"], **edit}.items() if v is not None}}
+    with pytest.raises(CaseError) as info:
+        case_from_dict(data, "bad.toml")
+    assert fragment in str(info.value) and "bad.toml" in str(info.value)
