@@ -280,14 +280,17 @@ def _shell_prisms50():
 @check("two-media hard-wall shell with a mass jump (prisms)", "j_l, y_l in each medium, continuity of R and "
        "(1/m) dR/dr at r = 1.5 (BenDaniel and Duke 1966)", 1e-6)
 def _layered_prisms():
-    data = {"shell": {"inner": {"shape": "sphere", "radius": 1.0}, "interfaces": [{"shape": "sphere", "radius": 1.5}],
-                      "outer": {"shape": "sphere", "radius": 2.0}, "cells": "prisms", "layers": [1, 1],
-                      "radial_degree": 8, "regions": [{"effective_mass": 1.0}, {"effective_mass": 0.4}]},
-            "resolution": {"degree": 4, "subdivisions": 2}, "modes": {"count": 9}}
-    s = run_case(case_from_dict(data, "<check>"))
-    exact = np.sort([v for l in range(3) for v in ref.layered_shell_dirichlet(l, 2, 1.0, 1.5, 2.0, 1.0, 0.4)
-                     for _ in range(2 * l + 1)])[:9]
-    got = np.asarray(s.eigenvalues[:9])
+    shell = {"inner": {"shape": "sphere", "radius": 1.0}, "interfaces": [{"shape": "sphere", "radius": 1.5}],
+             "outer": {"shape": "sphere", "radius": 2.0}, "cells": "prisms", "layers": [1, 1],
+             "radial_degree": 8, "regions": [{"effective_mass": 1.0}, {"effective_mass": 0.4}]}
+    return _levels_check(shell, 2, 9, lambda l: ref.layered_shell_dirichlet(l, 2, 1.0, 1.5, 2.0, 1.0, 0.4), 2)
+
+
+def _levels_check(shell: dict, subdivisions: int, count: int, values, l_max: int):
+    """Run a degree-4 prism case; compare its lowest ``count`` with ``values(l)``, each (2l+1)-fold, l <= l_max."""
+    data = {"shell": shell, "resolution": {"degree": 4, "subdivisions": subdivisions}, "modes": {"count": count}}
+    got = np.asarray(run_case(case_from_dict(data, "<check>")).eigenvalues[:count])
+    exact = np.sort([float(v) for l in range(l_max + 1) for v in values(l) for _ in range(2 * l + 1)])[:count]
     return float(got[0]), float(exact[0]), _max_rel(got, exact)
 
 
@@ -332,15 +335,10 @@ def _ball_prisms_free():
        "of R and (1/m) dR/dr at the interface (BenDaniel and Duke 1966), scipy.special", 1e-6)
 def _dot_prisms():
     # core r < 1 (mass 1), shell 1 < r < 2 (mass 2.5, offset 5 in eigenvalue units), hard wall at r = 2
-    data = {"shell": {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 2.0},
-                      "layers": [2, 2], "radial_degree": 8,
-                      "regions": [{"effective_mass": 1.0}, {"effective_mass": 2.5, "offset": 5.0}]},
-            "resolution": {"degree": 4, "subdivisions": 3}, "modes": {"count": 20}}
-    s = run_case(case_from_dict(data, "<check>"))
-    exact = np.sort([v for l in range(10) for v in ref.core_shell_dot_dirichlet(l, 4, 1.0, 2.0, 1.0, 2.5, 5.0)
-                     for _ in range(2 * l + 1)])[:20]
-    got = np.asarray(s.eigenvalues[:20])
-    return float(got[0]), float(exact[0]), _max_rel(got, exact)
+    shell = {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 2.0},
+             "layers": [2, 2], "radial_degree": 8,
+             "regions": [{"effective_mass": 1.0}, {"effective_mass": 2.5, "offset": 5.0}]}
+    return _levels_check(shell, 3, 20, lambda l: ref.core_shell_dot_dirichlet(l, 4, 1.0, 2.0, 1.0, 2.5, 5.0), 9)
 
 
 @check("finite spherical well on prisms, automatic layers: 1s and 1p", "j_l inside, k_l outside, continuity of "
@@ -348,11 +346,7 @@ def _dot_prisms():
 def _finite_well_auto():
     # well r < 1, barrier 15 (eigenvalue units) out to a hard wall at r = 12: binds l = 0 and l = 1 only, and
     # the wall moves them by less than 1e-9 (core_shell_dot_dirichlet with the wall agrees to 8 digits)
-    data = {"shell": {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 12.0},
-                      "layers": [2, 2], "radial_degree": 8, "decay": 1e-8,
-                      "regions": [{"name": "well"}, {"name": "barrier", "offset": 15.0}]},
-            "resolution": {"degree": 4, "subdivisions": 1}, "modes": {"count": 4}}
-    s = run_case(case_from_dict(data, "<check>"))
-    exact = np.array([ref.finite_spherical_well(l, 15.0, 1.0, 1.0, 1.0)[0] for l in (0, 1, 1, 1)])
-    got = np.asarray(s.eigenvalues[:4])
-    return float(got[1]), float(exact[1]), _max_rel(got, exact)
+    shell = {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 12.0},
+             "layers": [2, 2], "radial_degree": 8, "decay": 1e-8,
+             "regions": [{"name": "well"}, {"name": "barrier", "offset": 15.0}]}
+    return _levels_check(shell, 1, 4, lambda l: ref.finite_spherical_well(l, 15.0, 1.0, 1.0, 1.0), 2)
