@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 import scipy.linalg as sla
+from threadpoolctl import threadpool_limits
 
 from ..errors import GeometryError
 
@@ -124,14 +125,18 @@ def estimate_levels(radii, inverse_mass: dict, offsets: dict, count: int, inner_
     nr = A.shape[0]
     fixed = ({0} if inner_dirichlet and not disc.ball else set()) | ({nr - 1} if outer_dirichlet else set())
     found: list[float] = []
-    for l in range(l_max + 1):
-        drop = fixed | ({0} if disc.ball and l > 0 else set())
-        f = np.array([i for i in range(nr) if i not in drop])
-        values = sla.eigh(A[np.ix_(f, f)] + l * (l + 1) * B[np.ix_(f, f)], C[np.ix_(f, f)], eigvals_only=True)
-        found.extend(np.repeat(values, 2 * l + 1).tolist())
-        found.sort()
-        if len(found) >= count and l > 0 and values[0] > found[count - 1]:
-            break  # lam_1 grows with l: no later degree reaches the count-th level
+    # one BLAS thread: spinning OpenBLAS threads on shared cores made these small solves 100x slower (measured)
+    with threadpool_limits(limits=1):
+        for l in range(l_max + 1):
+            drop = fixed | ({0} if disc.ball and l > 0 else set())
+            f = np.array([i for i in range(nr) if i not in drop])
+            top = min(len(f), count) - 1  # no degree contributes more than count radial levels
+            values = sla.eigh(A[np.ix_(f, f)] + l * (l + 1) * B[np.ix_(f, f)], C[np.ix_(f, f)], eigvals_only=True,
+                              subset_by_index=[0, top])
+            found.extend(np.repeat(values, 2 * l + 1).tolist())
+            found.sort()
+            if len(found) >= count and l > 0 and values[0] > found[count - 1]:
+                break  # lam_1 grows with l: no later degree reaches the count-th level
     return np.array(found[:count])
 
 
