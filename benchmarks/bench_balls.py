@@ -57,42 +57,30 @@ subdivisions = {level}
 count = 50
 """
 
-DOT = """[shell]
-interfaces = [{{ shape = "sphere", radius = 3.0 }}]
-outer = {{ shape = "sphere", radius = 6.0 }}
+# two media between a sphere at r = {interface} and a hard wall at r = {outer} (nm, meV)
+TWO_MEDIA = """[shell]
+interfaces = [{{ shape = "sphere", radius = {interface} }}]
+outer = {{ shape = "sphere", radius = {outer} }}
 layers = {layers}
 {cells}
-regions = [{{ name = "core", effective_mass = 0.10 }}, {{ name = "shell", effective_mass = 0.25, offset = 500.0 }}]
+regions = {regions}
 [units]
 length = "nm"
 energy = "meV"
 [particle]
 mass = 1.0
+effective_mass = {mass}
 [resolution]
 degree = {degree}
 subdivisions = {level}
 [modes]
-count = 20
+count = {count}
 """
-
-WELL = """[shell]
-interfaces = [{{ shape = "sphere", radius = 5.0 }}]
-outer = {{ shape = "sphere", radius = 40.0 }}
-layers = {layers}
-{cells}
-regions = [{{ name = "well" }}, {{ name = "barrier", offset = 300.0 }}]
-[units]
-length = "nm"
-energy = "meV"
-[particle]
-mass = 1.0
-effective_mass = 0.067
-[resolution]
-degree = {degree}
-subdivisions = {level}
-[modes]
-count = 4
-"""
+DOT = dict(interface=3.0, outer=6.0, mass=1.0, count=20,
+           regions='[{ name = "core", effective_mass = 0.10 }, '
+                   '{ name = "shell", effective_mass = 0.25, offset = 500.0 }]')
+WELL = dict(interface=5.0, outer=40.0, mass=0.067, count=4,
+            regions='[{ name = "well" }, { name = "barrier", offset = 300.0 }]')
 
 
 def _levels(values, l_max: int, count: int) -> np.ndarray:
@@ -125,19 +113,20 @@ POINTS = {
         ("tetrahedra P2, free", "neumann", BALL, dict(layers=6, cells='cells = "tetrahedra"', degree=2, level=2)),
     ],
     "dot": [
-        ("prisms P4 x Q8", "", DOT, dict(layers="[2, 2]", cells="radial_degree = 8", degree=4, level=2)),
-        ("tetrahedra P2", "", DOT, dict(layers="[6, 6]", cells='cells = "tetrahedra"', degree=2, level=2)),
+        ("prisms P4 x Q8", "", TWO_MEDIA, dict(DOT, layers="[2, 2]", cells="radial_degree = 8", degree=4, level=2)),
+        ("tetrahedra P2", "", TWO_MEDIA, dict(DOT, layers="[6, 6]", cells='cells = "tetrahedra"', degree=2, level=2)),
     ],
     "well": [
-        ("prisms P4 x Q8, decay = 1e-8", "", WELL,
-         dict(layers="[2, 2]", cells="radial_degree = 8\ndecay = 1e-8", degree=4, level=1)),
-        ("prisms P4 x Q8, equal layers [2, 6]", "", WELL,
-         dict(layers="[2, 6]", cells="radial_degree = 8", degree=4, level=1)),
-        ("prisms P4 x Q4, decay = 1e-8", "", WELL,
-         dict(layers="[2, 2]", cells="radial_degree = 4\ndecay = 1e-8", degree=4, level=1)),
-        ("prisms P4 x Q4, equal layers [2, 10]", "", WELL,
-         dict(layers="[2, 10]", cells="radial_degree = 4", degree=4, level=1)),
-        ("tetrahedra P2", "", WELL, dict(layers="[4, 8]", cells='cells = "tetrahedra"', degree=2, level=2)),
+        ("prisms P4 x Q8, decay = 1e-8", "", TWO_MEDIA,
+         dict(WELL, layers="[2, 2]", cells="radial_degree = 8\ndecay = 1e-8", degree=4, level=1)),
+        ("prisms P4 x Q8, equal layers [2, 6]", "", TWO_MEDIA,
+         dict(WELL, layers="[2, 6]", cells="radial_degree = 8", degree=4, level=1)),
+        ("prisms P4 x Q4, decay = 1e-8", "", TWO_MEDIA,
+         dict(WELL, layers="[2, 2]", cells="radial_degree = 4\ndecay = 1e-8", degree=4, level=1)),
+        ("prisms P4 x Q4, equal layers [2, 10]", "", TWO_MEDIA,
+         dict(WELL, layers="[2, 10]", cells="radial_degree = 4", degree=4, level=1)),
+        ("tetrahedra P2", "", TWO_MEDIA,
+         dict(WELL, layers="[4, 8]", cells='cells = "tetrahedra"', degree=2, level=2)),
     ],
 }
 
