@@ -168,3 +168,24 @@ def test_region_offsets_are_in_units_energy_whatever_potential_unit_says():
     shifted, plain = run_case(case(100.0)), run_case(case(0.0))
     np.testing.assert_allclose(shifted.energies - plain.energies, 100.0, rtol=1e-9)  # meV, not eV
     assert "units.energy" in case(1.0).model_json_schema()["$defs"]["Region"]["properties"]["offset"]["description"]
+
+
+def test_star_shaped_dot_lobpcg_with_the_ball_preconditioner_matches_shift_invert():
+    # a deformed core/shell dot (star-shaped interface and outer wall): the LOBPCG path preconditioned by the
+    # bordered mean-radius ball and the CHOLMOD shift-invert path solve the same assembled pencil
+    from shellmodes.case import case_from_dict
+    from shellmodes.run import run_case
+
+    star = [{"l": 2, "m": 0, "amplitude": 0.1}, {"l": 3, "m": 2, "amplitude": 0.05}]
+    data = {"shell": {"interfaces": [{"shape": "star", "radius": 0.5, "deformation": star}],
+                      "outer": {"shape": "star", "radius": 1.0, "deformation": star}, "layers": [1, 1],
+                      "radial_degree": 3, "regions": [{"effective_mass": 1.0}, {"effective_mass": 2.0, "offset": 4.0}]},
+            "resolution": {"degree": 2, "subdivisions": 1}, "modes": {"count": 8}, "output": {"vtu": False}}
+    direct = run_case(case_from_dict(data))
+    data["modes"]["method"] = "lobpcg"
+    iterative = run_case(case_from_dict(data))
+    assert direct.info["mesh"]["solver_path"]["path"] != "lobpcg-spherical"
+    assert iterative.info["mesh"]["solver_path"]["path"] == "lobpcg-spherical"
+    n = min(len(direct.eigenvalues), len(iterative.eigenvalues))
+    np.testing.assert_allclose(iterative.eigenvalues[:n], direct.eigenvalues[:n], rtol=1e-8)  # same pencil
+    assert np.max(iterative.residuals) < 1e-6
