@@ -79,3 +79,24 @@ def test_bad_layer_keys_name_the_key(edit, fragment):
     with pytest.raises(CaseError) as info:
         case_from_dict(data, "bad.toml")
     assert fragment in str(info.value) and "bad.toml" in str(info.value)
+
+
+def test_a_shallow_well_in_a_large_ball_binds_its_weak_p_level_only_with_automatic_layers():
+    # well r < 1, barrier 10 out to r = 60 (eigenvalue units): the exact matching condition (j_l to k_l,
+    # references.finite_spherical_well) binds 1s at 5.3758 and 1p at 9.9503, barely below the barrier.
+    # Equal layers (two across 59 units) leave 1s 29 % high and 1p unbound (measured 10.0028);
+    # decay = 1e-8 binds both (measured 3e-10 and 1.6e-7)
+    exact = [ref.finite_spherical_well(l, 10.0, 1.0, 1.0, 1.0) for l in range(3)]
+    assert [len(e) for e in exact] == [1, 1, 0]
+
+    def lowest(decay):
+        shell = {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 60.0},
+                 "layers": [2, 2], "radial_degree": 8,
+                 "regions": [{"name": "well"}, {"name": "barrier", "offset": 10.0}], **decay}
+        return run_case(case_from_dict({"shell": shell, "resolution": {"degree": 4, "subdivisions": 1},
+                                        "modes": {"count": 4}, "output": {"vtu": False}})).eigenvalues[:4]
+
+    assert lowest({})[1] > 10.0  # equal layers: the p level is pushed above the barrier
+    auto = lowest({"decay": 1e-8})
+    assert np.all(auto < 10.0)
+    np.testing.assert_allclose(auto, [exact[0][0]] + [exact[1][0]] * 3, rtol=1e-6)

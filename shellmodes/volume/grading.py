@@ -45,8 +45,14 @@ def geometric_fractions(n: int, ratio: float) -> np.ndarray:
     """
     if n < 1 or not ratio > 0:
         raise GeometryError(f"need at least one layer and a positive grading ratio, got {n}, {ratio}")
-    widths = float(ratio) ** np.arange(n)
-    return np.concatenate([[0.0], np.cumsum(widths) / np.sum(widths)])
+    return _from_widths(float(ratio) ** np.arange(n))
+
+
+def _from_widths(widths) -> np.ndarray:
+    """Boundaries 0..1 from layer widths (the last exactly 1, whatever the rounding of the sum)."""
+    f = np.concatenate([[0.0], np.cumsum(widths) / np.sum(widths)])
+    f[-1] = 1.0
+    return f
 
 
 def explicit_fractions(inner: list | tuple) -> np.ndarray:
@@ -98,7 +104,7 @@ def decay_fractions(thickness: float, kappa_min: float, kappa_max: float, factor
     middle = thickness - sides * reach
     widths = (zone if from_inner else []) + ([middle] if middle > 1e-9 * thickness else []) + \
              (zone[::-1] if from_outer else [])
-    return np.concatenate([[0.0], np.cumsum(widths) / np.sum(widths)])
+    return _from_widths(widths)
 
 
 def _both_ends(n_half: int, ratio: float) -> np.ndarray:
