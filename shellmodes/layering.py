@@ -53,3 +53,40 @@ def case_fractions(case: Case, functions: list, e0) -> list[np.ndarray] | None:
     log.info("automatic layers (decay %g): %s; estimated levels %s", shell.decay,
              [len(f) - 1 for f in out], np.array2string(levels[:8], precision=6))
     return out
+
+
+def coarse_barrier_warnings(disc, lam: np.ndarray, inverse_mass: dict, offsets: dict) -> list[str]:
+    """Messages for levels whose decay into a barrier medium its layers cannot follow.
+
+    A level lam below a medium's offset V, and above a neighbour's, decays into
+    the medium like exp(-kappa d), kappa^2 = (V - lam) / c.  When the layer next
+    to that neighbour spans more than ``max(2, radial_degree / 2)`` decay
+    lengths (at least twice what ``shell.decay`` would choose), the level is
+    likely too high and a weakly bound one may even be pushed above the
+    barrier.  (Measured: 63 decay lengths left a 1s level 29 % high and a 1p
+    level unbound; 3.2 at radial degree 8 still gave 2e-7.)
+    """
+    if not hasattr(disc, "radial_elements") or not len(lam):
+        return []
+    media = len(disc.wall_values) - 1
+    radii = disc.wall_values.mean(axis=1)
+    out = []
+    for i in range(media):
+        V, c = offsets.get(i, 0.0), inverse_mass.get(i, 1.0)
+        layers = disc.radial_elements[disc.layer_region == i]
+        widths = (disc.tau[layers[:, -1]] - disc.tau[layers[:, 0]]) * (radii[i + 1] - radii[i])
+        for j, width in ((i - 1, widths[0]), (i + 1, widths[-1])):
+            if not 0 <= j < media:
+                continue
+            inside = lam[(lam < V) & (lam > offsets.get(j, 0.0))]
+            if not len(inside):
+                continue
+            kappa = float(np.sqrt((V - inside.min()) / c))
+            most = max(2.0, disc.radial_degree / 2)
+            if kappa * width > most:
+                out.append(f"the layer of medium {i} next to medium {j} spans {kappa * width:.3g} decay lengths of "
+                           f"a level bound below its offset (at most {most:g} for radial degree "
+                           f"{disc.radial_degree}): that level is likely too high, and a weakly bound one may be "
+                           "missing; set shell.decay (e.g. 1e-8) or more layers")
+                break
+    return out

@@ -441,7 +441,15 @@ def run_shell(case: Case):
 def _package(case, disc, pairs, e0, origin, multiplets, vectors, names, inverse_mass, offsets, dirichlet, nfree,
              volume, symmetric, solver_path, label_text, timings, t_start, warn_text, columns):
     """The spectrum of a solved shell: mesh record, log lines, VTU cells."""
+    import warnings
+
+    from .errors import DoubtfulResultWarning
+    from .layering import coarse_barrier_warnings
     from .volume import export_cells
+
+    for message in coarse_barrier_warnings(disc, pairs.lam, inverse_mass, offsets):
+        warn_text = [*warn_text, message]
+        warnings.warn(message, DoubtfulResultWarning, stacklevel=3)
 
     prisms = case.shell.cells == "prisms"
     cell_name = "prisms" if prisms else "tetrahedra"

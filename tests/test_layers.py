@@ -96,7 +96,27 @@ def test_a_shallow_well_in_a_large_ball_binds_its_weak_p_level_only_with_automat
         return run_case(case_from_dict({"shell": shell, "resolution": {"degree": 4, "subdivisions": 1},
                                         "modes": {"count": 4}, "output": {"vtu": False}})).eigenvalues[:4]
 
-    assert lowest({})[1] > 10.0  # equal layers: the p level is pushed above the barrier
+    from shellmodes.errors import DoubtfulResultWarning
+
+    with pytest.warns(DoubtfulResultWarning, match="decay lengths"):  # and the run says so
+        assert lowest({})[1] > 10.0  # equal layers: the p level is pushed above the barrier
     auto = lowest({"decay": 1e-8})
     assert np.all(auto < 10.0)
     np.testing.assert_allclose(auto, [exact[0][0]] + [exact[1][0]] * 3, rtol=1e-6)
+
+
+def test_layers_too_coarse_for_a_bound_state_are_reported():
+    import warnings
+
+    from shellmodes.errors import DoubtfulResultWarning
+
+    shell = {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 60.0},
+             "layers": [2, 2], "radial_degree": 8, "regions": [{"name": "well"}, {"name": "barrier", "offset": 10.0}]}
+    data = {"shell": shell, "resolution": {"degree": 2, "subdivisions": 0}, "modes": {"count": 1},
+            "output": {"vtu": False}}
+    with pytest.warns(DoubtfulResultWarning, match="decay lengths"):
+        spectrum = run_case(case_from_dict(data))
+    assert any("shell.decay" in w for w in spectrum.info["warnings"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", DoubtfulResultWarning)
+        run_case(case_from_dict({**data, "shell": {**shell, "decay": 1e-8}}))
