@@ -120,3 +120,18 @@ def test_layers_too_coarse_for_a_bound_state_are_reported():
     with warnings.catch_warnings():
         warnings.simplefilter("error", DoubtfulResultWarning)
         run_case(case_from_dict({**data, "shell": {**shell, "decay": 1e-8}}))
+
+
+def test_explicit_layer_boundaries_place_the_layers():
+    # layer_boundaries are fractions of each medium's thickness: r = 0.5 inside the core (0, 1) and
+    # r = 1.25, 1.5 inside the shell (1, 2) must be radial element ends
+    from shellmodes.shellrun import build_volume
+
+    data = {"shell": {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 2.0},
+                      "layer_boundaries": [[0.5], [0.25, 0.5]], "radial_degree": 2},
+            "resolution": {"degree": 1, "subdivisions": 0}}
+    disc = build_volume(case_from_dict(data))
+    ends = np.unique(disc.tau[disc.radial_elements[:, [0, -1]]])
+    np.testing.assert_allclose(ends, [0.0, 0.5, 1.0, 1.25, 1.5, 2.0])  # tau = medium + fraction; radii 0, 1, 2
+    radii = np.linalg.norm(disc.nodes.reshape(disc.n_surface, disc.n_radial, 3)[0], axis=1)
+    np.testing.assert_allclose(radii[disc.radial_elements[:, -1]], [0.5, 1.0, 1.25, 1.5, 2.0])
