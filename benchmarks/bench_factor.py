@@ -68,8 +68,7 @@ def build_prisms(level: int, layers: int) -> Path:
 
     path = OUT / f"factor-prisms-{level}-{layers}.npz"
     if not path.exists():
-        from shellmodes.shellrun import wall_function
-
+        from shellmodes.case.model import wall_function
         from shellmodes.case.schema import Wall
         from shellmodes.fem.assemble import restricted
         from shellmodes.fem.prisms import assemble_prisms, prism_shell

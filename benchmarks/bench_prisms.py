@@ -85,7 +85,7 @@ def child(point: dict) -> dict:
     else:
         exact = _exact(COUNT)
         error = float(np.max(np.abs(lam - exact) / exact))
-    return {**point, "dofs": mesh["dofs"], "free": mesh["free_dofs"], "path": mesh["solver_path"]["path"],
+    return {**point, "dofs": mesh["dofs"], "free": mesh["free_dofs"], "path": spectrum.info["solver"]["plan"]["path"],
             "method": solver["method"], "error": error, "lowest": [float(v) for v in lam],
             "max_residual": solver["max_residual"], "returned": solver["returned"],
             "timings": spectrum.info["timings"], "solve": spectrum.info["timings"]["total"], "import": t_import,

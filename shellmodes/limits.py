@@ -36,3 +36,5 @@ BLOCK_THRESHOLD = 50_000
 #: reorthogonalisation grows like n k^2.  CPU time measured at 1 BLAS thread (benchmarks/README.md):
 #: 10,242 unknowns and 100 modes 1.6 s Lanczos, 1.2 s block; 36 or 64 modes: Lanczos 25-40 % faster
 BLOCK_COUNT = 80
+#: levels estimated for automatic layers (shell.decay) when a case gives modes.below instead of a count
+AUTO_LAYER_LEVELS = 200

@@ -105,6 +105,7 @@ def run_case(case: Case) -> Spectrum:
     t_solve = time.perf_counter() - t_solve - problem.timings.get("assembly", 0.0)
     energies = scale.energies(solved.pairs.lam)
     labels = label_modes(problem, plan, solved, scale, case.modes.multiplet_tolerance)
+    solved.messages.extend(labels.messages)
     timings = {"mesh": t_mesh, "assembly": problem.timings.get("assembly", 0.0), "eigensolve": t_solve,
                "total": time.perf_counter() - t_start}
     return _spectrum(case, problem, plan, solved, labels, scale, energies, timings)

@@ -5,7 +5,7 @@ import pytest
 from shellmodes.cli import main
 from shellmodes.studies.checks import CHECKS, format_table, run_checks
 
-QUICK = ("area of", "rigid rotor", "electron on", "hemisphere", "cap of 120")
+QUICK = ("area of", "rigid rotor", "electron on", "hemisphere", "cap of 120", "core/shell dot on prisms")
 
 
 def test_every_check_names_a_source_and_tolerance():

@@ -145,9 +145,7 @@ def test_deformed_walls_agree_with_curved_tetrahedra_and_keep_the_volume():
     assert np.max(sp_prism.residuals) < 1e-8
 
 
-def test_crossing_walls_and_balls_are_refused():
-    with pytest.raises(GeometryError, match="inner wall"):
-        prism_shell([None, 2.0], level=1, layers_per_region=1)
+def test_crossing_walls_are_refused():
     with pytest.raises(GeometryError, match="crosses"):
         prism_shell([2.0, 1.0], level=1, layers_per_region=1)
 
@@ -192,7 +190,7 @@ def test_prism_case_through_the_cli_writes_wedges_and_exact_labels(tmp_path):
 
 
 @pytest.mark.parametrize("edit, key, fragment", [
-    ({"cells": "prisms", "inner": None}, "shell", "needs an inner wall"),
+    ({"cells": "prisms", "inner": {"shape": "sphere", "radius": 2.5}}, "shell", "crosses"),
     ({"cells": "prisms", "file": "x.vtu", "inner": None, "outer": None}, "shell", "mesh file gives tetrahedra"),
     ({"cells": "tetrahedra", "radial_degree": 3}, "shell", "cells = 'prisms' only"),
     ({"cells": "tetrahedra", "radial_degree": None, "_degree": 3}, "", "tetrahedra support degrees 1 and 2"),
@@ -223,10 +221,10 @@ def test_bad_prism_case_exits_2_with_one_line_and_writes_nothing(tmp_path, capsy
     from shellmodes.cli import main
 
     case = tmp_path / "bad.toml"
-    case.write_text(PRISM_CASE.replace('inner = { shape = "sphere", radius = 1.0 }\n', ""))
+    case.write_text(PRISM_CASE.replace('radius = 1.0 }', 'radius = 2.5 }'))
     assert main(["run", str(case), "--out", str(tmp_path / "out")]) == 2
     err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 1 and "bad.toml" in err[0] and "inner wall" in err[0]
+    assert len(err) == 1 and "bad.toml" in err[0] and "crosses" in err[0]
     assert not (tmp_path / "out").exists()
 
 

@@ -121,6 +121,11 @@ class EnergyScale(NamedTuple):
         return energy / self.factor
 
 
+def as_scale(scale) -> EnergyScale:
+    """An :class:`EnergyScale` from one, or from E0 alone (a float, or None for dimensionless)."""
+    return scale if isinstance(scale, EnergyScale) else EnergyScale(scale, "")
+
+
 def energy_scale(case: Case, shape=None) -> EnergyScale:
     """E0 (energy of lam = 1 per length unit squared) in the case's energy unit, and its origin."""
     units, particle = case.units, case.particle
@@ -141,20 +146,12 @@ def energy_scale(case: Case, shape=None) -> EnergyScale:
     return EnergyScale(float(joule_to(e0, units.energy)), f"hbar^2/(2 m L^2), m = {mass:.6g} kg, L = {length:.6g} m")
 
 
-def _energy_unit_factor(case: Case, unit: str, scale: EnergyScale, key: str) -> float:
-    """Factor turning a value in energy ``unit`` into eigenvalue (lambda) units."""
-    if unit == "1":
-        return 1.0
-    if scale.per_lambda is None:
-        raise CaseError(f"value {unit!r}: a physical energy unit needs a physical units.energy", case.source, key)
-    return ENERGY_UNITS[unit] / (scale.per_lambda * ENERGY_UNITS[case.units.energy])
-
-
 # --------------------------------------------------------------------------------------------- potential
 def compiled_potential(case: Case, scale: EnergyScale):
     """The case's potential as a function of x, y, z, r, theta, phi in lambda units (V / E0), or None."""
     if case.potential is None:
         return None
+    scale = as_scale(scale)
     compiled = compile_expression(case.potential.expression)
 
     def expr(**kw):
@@ -298,6 +295,7 @@ class Media:
 def media(case: Case, disc, scale: EnergyScale) -> Media:
     """Per-region inverse mass m0/m and potential offset (lambda units), checked against the mesh."""
     shell, particle = case.shell, case.particle
+    scale = as_scale(scale)
     ids = disc.region_ids
     entries_by_id = {}
     named = {name: tag for tag, name in getattr(disc, "region_names", {}).items()}
@@ -318,10 +316,8 @@ def media(case: Case, disc, scale: EnergyScale) -> Media:
     if shell.regions and missing:
         raise CaseError(f"the mesh has regions {', '.join(map(str, missing))} that shell.regions does not "
                         "describe; list every region", case.source, "shell.regions")
-    # offsets are in the potential's unit when a potential is given, else in units.energy
-    unit = case.potential.unit if case.potential is not None else case.units.energy
-    offset_scale = 1.0 if (unit == "1" or scale.per_lambda is None) else _energy_unit_factor(
-        case, unit, scale, "shell.regions")
+    # offsets are always in units.energy (whatever potential.unit is)
+    offset_scale = 1.0 if (case.units.energy == "1" or scale.per_lambda is None) else 1.0 / scale.per_lambda
     inverse_mass, offsets, names = {}, {}, {}
     for r in ids:
         region = entries_by_id.get(r)

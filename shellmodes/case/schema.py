@@ -204,7 +204,8 @@ class Region(_Table):
                                              "(default: position, inside out)")
     effective_mass: Factor | None = Field(None, description="mass as a multiple of particle.mass "
                                                               "(default: particle.effective_mass)")
-    offset: float = Field(0.0, description="potential offset (band offset), in potential.unit or units.energy")
+    offset: float = Field(0.0, description="potential offset (band offset) in units.energy, always (never "
+                          "potential.unit; with units.energy = '1' it is in eigenvalue units 1/length^2)")
 
 
 class Shell(_Table):
@@ -218,21 +219,35 @@ class Shell(_Table):
     outer_condition: Rim = Field("dirichlet", description="condition on the outer wall")
     layers: int | tuple[int, ...] = Field(4, description="radial element layers per medium (one number for all)")
     regions: tuple[Region, ...] = Field((), description="media inside out; default: one medium per layer gap")
-    cells: Literal["tetrahedra", "prisms"] = Field(
-        "tetrahedra", description="tetrahedra (degree 1-2, balls and mesh files) or layered curved prisms "
-        "(triangle degree 1-4 times a radial degree, needs an inner wall)")
+    cells: Literal["tetrahedra", "prisms"] | None = Field(
+        None, description="tetrahedra (degree 1-2; mesh files) or layered curved prisms (triangle degree 1-4 "
+        "times a radial degree; a ball's innermost layer closes at the centre on one merged dof); default: "
+        "prisms for a ball from walls, tetrahedra otherwise")
     radial_degree: int | None = Field(None, ge=1, le=MAX_RADIAL_DEGREE, description="prisms: polynomial degree "
                                       "across each layer (default resolution.degree)")
+    grading: Positive | tuple[Positive, ...] | None = Field(
+        None, description="prisms: ratio of successive layer widths inside each medium, outward (1: equal "
+        "layers; one number for all media)")
+    layer_boundaries: tuple[tuple[float, ...], ...] | None = Field(
+        None, description="prisms: per medium, the boundaries between its layers as fractions of its thickness, "
+        "strictly rising inside (0, 1); an empty list keeps layers and grading for that medium")
+    decay: float | None = Field(
+        None, gt=0, lt=1, description="prisms: automatic layers for bound states: in every barrier medium (offset "
+        "above a level among the lowest modes.count, next to a medium where that level is allowed) the layers reach "
+        "out to where the level's state has fallen by this factor (e.g. 1e-8), judged from the level's energy "
+        "(a fine 1-D radial estimate between the walls' mean spheres, offsets only) and the barrier")
 
     @model_validator(mode="after")
     def _walls_or_file(self):
+        if self.cells is None:
+            object.__setattr__(self, "cells", "prisms" if self.file is None and self.inner is None else "tetrahedra")
         if self.cells == "prisms":
             if self.file is not None:
                 raise ValueError("cells = 'prisms' builds its cells from walls; a mesh file gives tetrahedra")
-            if self.inner is None:
-                raise ValueError("cells = 'prisms' needs an inner wall; use cells = 'tetrahedra' for a ball")
-        elif self.radial_degree is not None:
-            raise ValueError("radial_degree applies to cells = 'prisms' only")
+        else:
+            for key in ("radial_degree", "grading", "layer_boundaries", "decay"):
+                if getattr(self, key) is not None:
+                    raise ValueError(f"{key} applies to cells = 'prisms' only")
         if self.file is None and self.outer is None:
             raise ValueError("give outer (and inner, interfaces) walls, or a mesh file")
         if self.file is not None and (self.outer is not None or self.inner is not None or self.interfaces):
@@ -246,6 +261,15 @@ class Shell(_Table):
                 raise ValueError(f"layers has {len(self.layers)} entries for {media} media")
             if self.regions and len(self.regions) != media:
                 raise ValueError(f"regions has {len(self.regions)} entries but the walls make {media} media")
+            for key in ("grading", "layer_boundaries"):
+                value = getattr(self, key)
+                if isinstance(value, tuple) and len(value) != media:
+                    raise ValueError(f"{key} has {len(value)} entries for {media} media")
+            for i, inner in enumerate(self.layer_boundaries or ()):
+                f = [0.0, *inner, 1.0]
+                if any(b <= a for a, b in zip(f, f[1:])):
+                    raise ValueError(f"layer_boundaries[{i}] = {list(inner)}: boundaries must rise strictly "
+                                     "inside (0, 1)")
         return self
 
 

@@ -42,9 +42,7 @@ from shellmodes.case.model import Media
 from shellmodes.case.schema import Modes
 from shellmodes.eigen.solve import Eigenpairs, lowest_modes, resolve_method
 from shellmodes.errors import DoubtfulResultWarning, GeometryError, ProblemError
-from shellmodes.fem.assemble import restricted
 from shellmodes.fem.discretisation import Discretisation, Operators
-from shellmodes.fem.forms import expand
 from shellmodes.harmonics import parent_degree
 from shellmodes.limits import PRISM_ITERATIVE_FROM, WINDOW_START_COUNT
 
@@ -70,12 +68,18 @@ class Problem:
     timings: dict = field(default_factory=dict)
 
     @cached_property
+    def space(self):
+        """The unknowns (free dofs, or a ball's merged centre; see ``fem.discretisation.SelectedDofs``)."""
+        return self.disc.free_space(self.fixed)
+
+    @property
     def free(self) -> np.ndarray:
-        return self.disc.free_dofs(self.fixed)
+        """A representative dof of every unknown."""
+        return self.space.representative
 
     @property
     def nfree(self) -> int:
-        return len(self.free)
+        return self.space.size
 
     @cached_property
     def operators(self) -> Operators:
@@ -109,11 +113,11 @@ class Problem:
         return self._free(self.operators.M)
 
     def _free(self, A):
-        return restricted(A, self.free) if self.nfree < self.disc.ndofs else A
+        return self.space.restrict(A)
 
     def expand(self, U: np.ndarray) -> np.ndarray:
-        """Vectors on every dof (zero on fixed walls) from vectors on the free dofs."""
-        return expand(U, self.free, self.disc.ndofs)
+        """Vectors on every dof (zero on fixed walls) from vectors on the unknowns."""
+        return self.space.expand(U)
 
     @property
     def separable(self) -> bool:
@@ -166,12 +170,13 @@ def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:
         raise ProblemError(f"value 'separable': {why}; use 'auto'", "modes.method")
     if problem.separable and method in ("auto", "separable"):
         radial_free = disc.free_radial(problem.fixed)
+        unknowns = disc.raw.n_surface * (len(radial_free) - disc.ball) + disc.ball  # a ball's centre: one dof
         scale = 1.0 / float(np.max(disc.raw.wall_values[-1])) ** 2
         lower = problem.media.lowest_offset
         if problem.radial is not None:
             lower = min(lower, float(np.min(problem.radial(np.linalg.norm(disc.nodes[::disc.raw.n_surface],
                                                                           axis=1)))))
-        return SolverPlan("separable", "separable", "separable", lower, scale, disc.raw.n_surface * len(radial_free),
+        return SolverPlan("separable", "separable", "separable", lower, scale, unknowns,
                           "concentric spherical walls and no potential or V(r) only: the prism matrices are "
                           "Kronecker sums, so surface modes and their radial problems give the modes exactly")
     operators = problem.operators
@@ -278,18 +283,24 @@ def _assembled(plan, problem, modes, count, below, **options) -> Solved:
 
 
 def _lobpcg_spherical(plan, problem, modes, count, below) -> Solved:
-    from shellmodes.eigen.separable import SphericalPreconditioner, separable_modes, spherical_reference
+    from shellmodes.eigen.separable import (
+        BallPreconditioner,
+        SphericalPreconditioner,
+        separable_modes,
+        spherical_reference,
+    )
 
     disc = problem.disc
     raw = disc.raw
     Ks, Ms, A, B, C = spherical_reference(raw, problem.media.inverse_mass, problem.media.offsets)
-    radial_free = disc.free_radial(problem.fixed)
-    precondition = SphericalPreconditioner(Ks, Ms, A, B, C, radial_free, plan.shift, backend=modes.backend)
-    reference = separable_modes(Ks, Ms, A, B, C, radial_free,
+    space = problem.space
+    kind = BallPreconditioner if disc.ball else SphericalPreconditioner
+    precondition = kind(Ks, Ms, A, B, C, space.radial_free, plan.shift, backend=modes.backend)
+    reference = separable_modes(Ks, Ms, A, B, C, space.radial_free,
                                 count=int(1.3 * (count or WINDOW_START_COUNT)) + 4,
-                                multiplet_tolerance=modes.multiplet_tolerance, scale=abs(plan.shift))
-    start = reference.vectors.reshape(raw.n_surface, raw.n_radial, -1)[:, radial_free, :]
-    start = start.reshape(raw.n_surface * len(radial_free), -1)
+                                multiplet_tolerance=modes.multiplet_tolerance, scale=abs(plan.shift),
+                                centre=disc.ball)
+    start = space.coordinates(reference.vectors)
     solved = _assembled(plan, problem, modes, count, below, preconditioner=precondition, start=start)
     n, l, weight = _reference_labels((reference.radial_index + 1, parent_degree(reference.surface_lam)),
                                      solved.pairs.vectors, problem.M, start)
@@ -330,7 +341,7 @@ def _separable(plan, problem, modes, count, below) -> Solved:
     t0 = time.perf_counter()
     found = separable_modes(Ks, Ms, A, B, C, radial_free, count=count, below=below,
                             multiplet_tolerance=modes.multiplet_tolerance, scale=abs(plan.shift),
-                            surface_solver=surface)
+                            surface_solver=surface, centre=disc.ball)
     messages = []
     worst = float(np.max(found.residuals)) if len(found.lam) else 0.0
     if worst > modes.residual_limit:

@@ -41,11 +41,48 @@ from shellmodes.case.model import (
 )
 from shellmodes.case.schema import Case
 from shellmodes.errors import CaseError, GeometryError, MeshError
+from shellmodes.fem.assemble import restricted
+from shellmodes.fem.forms import expand
 from shellmodes.fem.shellmesh import check_wall_order
 
 __all__ = ["Discretisation", "Operators", "ExportCells", "SurfaceDiscretisation", "TetrahedralDiscretisation",
            "PrismDiscretisation", "build_discretisation", "register_builder", "BUILDERS", "discretise",
            "check_walls", "fixed_walls"]
+
+
+@dataclass(frozen=True, eq=False)
+class SelectedDofs:
+    """The free unknowns when each is one dof of the mesh (``free``, sorted).
+
+    The interface every free space honours (a ball's merged centre, :mod:`shellmodes.fem.ball`,
+    is the other kind): ``representative`` dofs, ``size``, ``restrict(A)``, ``expand(U)``,
+    ``coordinates(U)``; ``radial_free`` for prisms.
+    """
+
+    free: np.ndarray
+    ndofs: int
+    radial_free: np.ndarray | None = None
+    centre: bool = False
+
+    @property
+    def representative(self) -> np.ndarray:
+        return self.free
+
+    @property
+    def size(self) -> int:
+        return len(self.free)
+
+    def restrict(self, A):
+        """``A`` on the free dofs."""
+        return restricted(A, self.free) if len(self.free) < self.ndofs else A
+
+    def expand(self, U: np.ndarray) -> np.ndarray:
+        """Vectors on every dof (zero on fixed walls) from vectors on the free dofs."""
+        return expand(U, self.free, self.ndofs)
+
+    def coordinates(self, U: np.ndarray) -> np.ndarray:
+        """Free-dof coordinates of vectors given on every dof."""
+        return U[self.free]
 
 
 @dataclass(frozen=True, eq=False)
@@ -128,6 +165,10 @@ class Discretisation(ABC):
     @abstractmethod
     def free_dofs(self, fixed) -> np.ndarray:
         """Sorted dofs left free when the walls named in ``fixed`` (``"rim"``, ``"inner"``, ``"outer"``) are 0."""
+
+    def free_space(self, fixed):
+        """The unknowns of the problem with the walls in ``fixed`` held at zero (see :class:`SelectedDofs`)."""
+        return SelectedDofs(self.free_dofs(fixed), self.ndofs)
 
     @abstractmethod
     def assemble(self, media: Media, potential=None) -> Operators:
@@ -343,6 +384,19 @@ class PrismDiscretisation(_Volume):
     def free_radial(self, fixed) -> np.ndarray:
         return self.raw.free_radial([w for w in fixed if w != "rim"])
 
+    @property
+    def ball(self) -> bool:
+        """The innermost layer closes at the centre on one merged dof."""
+        return bool(self.raw.ball)
+
+    def free_space(self, fixed):
+        from shellmodes.fem.ball import free_space
+
+        space = free_space(self.raw, [w for w in fixed if w != "rim"])
+        if space.centre:
+            return space
+        return SelectedDofs(space.representative, self.ndofs, radial_free=space.radial_free)
+
     def _assembled(self, inverse_mass, offsets, function):
         from shellmodes.fem.prisms import assemble_prisms
 
@@ -440,11 +494,16 @@ def _prisms(case: Case) -> PrismDiscretisation:
     from shellmodes.fem.prisms import prism_shell
 
     shell, res = case.shell, case.resolution
+    from shellmodes.case.model import energy_scale
+    from shellmodes.fem.layering import case_fractions
+
+    walls = shell_walls(case)
     with _shell_errors(case):
         return PrismDiscretisation(prism_shell(
-            shell_walls(case), shell_level(case), _layers(case), degree=res.degree,
+            walls, shell_level(case), _layers(case), degree=res.degree,
             radial_degree=shell.radial_degree, geometry_degree=res.geometry_degree,
-            quadrature_order=res.quadrature_order))
+            quadrature_order=res.quadrature_order,
+            fractions=case_fractions(case, walls, energy_scale(case).per_lambda)))
 
 
 def _layers(case: Case):

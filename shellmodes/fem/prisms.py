@@ -17,7 +17,12 @@ nodes, continuous across layers and media.  Degrees of freedom are numbered
 matrices are exactly Kronecker sums (derivation in :func:`kronecker_factors`)
 and the eigenproblem separates (:mod:`shellmodes.eigen.separable`).
 
-Prisms need an inner wall; a ball's centre is left to the tetrahedra.
+A ball (no inner wall, first wall ``None``) collapses the innermost layer to
+the centre: its inner wall is the radius 0, the ``n_surface`` centre nodes of
+radial dof 0 coincide, and :mod:`shellmodes.volume.ball` merges them into one
+dof (a purely radial function; every other basis function vanishes at r = 0).
+Quadrature uses Gauss points in the radial direction, never the centre itself.
+Layers inside a medium are equal unless ``fractions`` grade them.
 """
 
 from __future__ import annotations
@@ -115,6 +120,7 @@ class PrismShell:
     quadrature_order: int
     h: float
     source: str = "prism_shell"
+    ball: bool = False
 
     @property
     def n_surface(self) -> int:
@@ -154,7 +160,11 @@ class PrismShell:
         return np.array([r for r in range(self.n_radial) if r not in fixed])
 
     def free_dofs(self, dirichlet) -> np.ndarray:
-        """Sorted dofs left free by the Dirichlet walls (surface-major, like the numbering)."""
+        """Sorted dofs left free by the Dirichlet walls (surface-major, like the numbering).
+
+        For a ball the centre dofs (radial dof 0) are not independent: use
+        :func:`shellmodes.volume.ball.free_space`.
+        """
         radial = self.free_radial(dirichlet)
         return (np.arange(self.n_surface)[:, None] * self.n_radial + radial[None, :]).ravel()
 
@@ -165,19 +175,21 @@ class PrismShell:
     def __repr__(self) -> str:
         return (f"PrismShell(degree={self.degree}, radial_degree={self.radial_degree}, "
                 f"triangles={self.surface_dofs.shape[1]}, layers={len(self.radial_elements)}, "
-                f"dofs={self.ndofs} = {self.n_surface} x {self.n_radial}, regions={self.region_ids}, h={self.h:.3g})")
+                f"dofs={self.ndofs} = {self.n_surface} x {self.n_radial}, regions={self.region_ids}, h={self.h:.3g}"
+                + (", ball" if self.ball else "") + ")")
 
 
 def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[int], degree: int = 2,
                 radial_degree: int | None = None, geometry_degree: int | None = None,
-                quadrature_order: int | None = None) -> PrismShell:
+                quadrature_order: int | None = None, fractions: Sequence | None = None) -> PrismShell:
     """Layered curved prisms between walls (numbers for spheres, or functions of directions).
 
     Parameters
     ----------
     walls
         Two or more wall radius functions ``R(directions (N, 3)) -> (N,)`` or
-        numbers, inner to outer; ``len(walls) - 1`` media.
+        numbers, inner to outer; ``len(walls) - 1`` media.  A first wall
+        ``None`` makes a ball: the innermost medium reaches the centre.
     level
         Icosphere subdivisions of the directions (0..8).
     layers_per_region
@@ -187,12 +199,17 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
         default ``degree``), and of the wall interpolation (default ``degree``).
     quadrature_order
         Exactness of the triangle rule (default ``2 * max(degree, geometry_degree) + 2``).
+    fractions
+        Per medium, ``None`` (equal layers) or the layer boundaries as
+        increasing fractions of the medium's thickness from 0 to 1 (see
+        :func:`shellmodes.volume.grading.layer_fractions`); they override
+        ``layers_per_region`` for that medium.
 
     Raises
     ------
     GeometryError
-        Fewer than two walls, a ball (no inner wall), walls that touch or
-        cross, non-positive radii, bad layer counts or degrees.
+        Fewer than two walls, walls that touch or cross, non-positive radii,
+        bad layer counts, fractions or degrees.
 
     Examples
     --------
@@ -202,8 +219,7 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
     """
     if len(walls) < 2:
         raise GeometryError(f"need at least two walls (one medium), got {len(walls)}")
-    if walls[0] is None:
-        raise GeometryError("prisms need an inner wall; a ball's centre needs tetrahedra")
+    ball = walls[0] is None
     funcs = tuple(as_wall(w, i) for i, w in enumerate(walls))
     nreg = len(funcs) - 1
     layers = ((int(layers_per_region),) * nreg if isinstance(layers_per_region, (int, np.integer))
@@ -212,6 +228,7 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
         raise GeometryError(f"layers_per_region has {len(layers)} entries for {nreg} media")
     if min(layers) < 1:
         raise GeometryError(f"every medium needs at least one layer, got {list(layers)}")
+    bounds = _medium_fractions(layers, fractions)
     if not 0 <= int(level) <= 8:
         raise GeometryError(f"level {level} is outside 0..8")
     q = degree if radial_degree is None else int(radial_degree)
@@ -219,6 +236,8 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
     if not 1 <= q <= 12:
         raise GeometryError(f"radial degree {q} is outside 1..12")
     check_wall_order(funcs, min(int(level), 6))
+    if ball:
+        funcs = (_centre,) + funcs[1:]
 
     directions, triangles = icosphere(int(level))
     mesh = skfem.MeshTri(np.ascontiguousarray(directions[:, :2].T), np.ascontiguousarray(triangles.T))
@@ -231,10 +250,10 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
 
     local = lobatto_nodes(q)
     tau, elements, region = [0.0], [], []
-    for i, n in enumerate(layers):
-        for j in range(n):
+    for i, edges in enumerate(bounds):
+        for j in range(len(edges) - 1):
             start = len(tau) - 1
-            tau.extend(i + (j + local[1:]) / n)
+            tau.extend(i + edges[j] + local[1:] * (edges[j + 1] - edges[j]))
             elements.append(np.arange(start, start + q + 1))
             region.append(i)
     tau = np.array(tau)
@@ -246,7 +265,29 @@ def prism_shell(walls: Sequence, level: int, layers_per_region: int | Sequence[i
                       radial_degree=q, geometry_degree=g,
                       quadrature_order=2 * max(degree, g) + 2 if quadrature_order is None else int(quadrature_order),
                       h=float(np.max(np.linalg.norm(directions[triangles] - directions[np.roll(triangles, 1, 1)],
-                                                    axis=2))) * float(np.max(wall_values[-1])))
+                                                    axis=2))) * float(np.max(wall_values[-1])), ball=ball)
+
+
+def _centre(d: np.ndarray) -> np.ndarray:
+    """The inner 'wall' of a ball: radius 0 in every direction."""
+    return np.zeros(len(d))
+
+
+def _medium_fractions(layers, fractions) -> list[np.ndarray]:
+    """Layer boundaries (fractions 0..1) of every medium: equal layers, or the graded ones given."""
+    out = []
+    given = [None] * len(layers) if fractions is None else list(fractions)
+    if len(given) != len(layers):
+        raise GeometryError(f"fractions has {len(given)} entries for {len(layers)} media")
+    for i, (n, f) in enumerate(zip(layers, given)):
+        if f is None:
+            out.append(np.linspace(0.0, 1.0, n + 1))
+            continue
+        f = np.asarray(f, dtype=float)
+        if f.ndim != 1 or len(f) < 2 or f[0] != 0.0 or f[-1] != 1.0 or np.any(np.diff(f) <= 0):
+            raise GeometryError(f"layer fractions of medium {i} must rise strictly from 0 to 1, got {f.tolist()}")
+        out.append(f)
+    return out
 
 
 def _projected_nodes(directions, t, doflocs, element_dofs, n):
@@ -475,16 +516,30 @@ def export_prisms(disc: PrismShell):
 
     Each prism of degrees (k, q) becomes k^2 q wedges on its own nodes; VTK's
     wedge takes its first triangle as the base whose normal points away
-    from the second, so the outer triangle comes first.
+    from the second, so the outer triangle comes first.  A ball's wedges that
+    touch the centre collapse to tetrahedra (the outer triangle and the centre
+    node of surface dof 0), oriented to a positive volume.
     """
     element = lagrange_element(disc.degree)
     sub = lattice_cells(element, disc.degree)  # (k^2, 3) local triangle nodes
     tri_global = disc.surface_dofs.T[:, sub]  # (T, k^2, 3)
     nr = disc.n_radial
-    wedges, region = [], []
+    wedges, region, tets = [], [], None
     for layer, medium in zip(disc.radial_elements, disc.layer_region):
         for b in range(len(layer) - 1):
             inner, outer = tri_global * nr + layer[b], tri_global * nr + layer[b + 1]
+            if disc.ball and layer[b] == 0:
+                tri = outer.reshape(-1, 3)
+                p = disc.nodes[tri]
+                flip = np.einsum("td,td->t", np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), -p[:, 0]) < 0
+                tri[flip] = tri[flip][:, ::-1]
+                tets = np.column_stack([tri, np.zeros(len(tri), dtype=tri.dtype)])
+                tet_region = np.full(len(tets), medium)
+                continue
             wedges.append(np.concatenate([outer, inner], axis=2).reshape(-1, 6))
             region.append(np.full(wedges[-1].shape[0], medium))
-    return disc.nodes.copy(), [("wedge", np.concatenate(wedges))], {"region": [np.concatenate(region)]}
+    cells = [("wedge", np.concatenate(wedges))] if wedges else []
+    regions = [np.concatenate(region)] if wedges else []
+    if tets is not None:
+        cells, regions = [("tetra", tets), *cells], [tet_region, *regions]
+    return disc.nodes.copy(), cells, {"region": regions}

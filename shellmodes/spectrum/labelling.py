@@ -22,10 +22,11 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from shellmodes.errors import DoubtfulResultWarning
 from shellmodes.spectrum.multiplets import Multiplet, build_multiplets
 
 __all__ = ["Labels", "LABELLERS", "register_labeller", "label_modes"]
@@ -39,6 +40,8 @@ class Labels:
     rule: str | None = None
     #: extra records for spectrum.json (e.g. ``perturbation`` rows of star-shaped surfaces)
     info: dict = field(default_factory=dict)
+    #: warnings about the labelled modes (already issued as DoubtfulResultWarning)
+    messages: list = field(default_factory=list)
 
 
 #: name -> function(problem, plan, solved, scale, tolerance) -> Labels
@@ -91,6 +94,19 @@ def _surface(problem, plan, solved, scale, tolerance) -> Labels:
 
 @register_labeller("volume")
 def _volume(problem, plan, solved, scale, tolerance) -> Labels:
+    labels = _volume_labels(problem, plan, solved, scale, tolerance)
+    if problem.disc.kind != "prisms":
+        return labels
+    from shellmodes.fem.layering import coarse_barrier_warnings
+
+    messages = coarse_barrier_warnings(problem.disc.raw, solved.pairs.lam, problem.media.inverse_mass,
+                                       problem.media.offsets)
+    for message in messages:
+        warnings.warn(message, DoubtfulResultWarning, stacklevel=3)
+    return replace(labels, messages=messages)
+
+
+def _volume_labels(problem, plan, solved, scale, tolerance) -> Labels:
     lam = solved.pairs.lam
     energies = scale.energies(lam)
     given = solved.labels

@@ -26,7 +26,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import constants
 from scipy.optimize import brentq
-from scipy.special import kve, roots_legendre, spherical_jn, spherical_yn
+from scipy.special import kve, roots_legendre, spherical_in, spherical_jn, spherical_kn, spherical_yn
 
 from shellmodes.errors import GeometryError, SolverError
 from shellmodes.shapes.areas import cap_area, ellipsoid_area, spheroid_area, torus_area
@@ -592,6 +592,70 @@ def layered_shell_dirichlet(l: int, count: int, a: float, b: float, c: float, ma
     step = np.pi / (_POINTS_PER_SPACING * thickness)
     s = _scan_roots(f, 0.5 * step, step, count=count)
     return s**2
+
+
+def core_shell_dot_dirichlet(l: int, count: int, b: float, c: float, mass_in: float, mass_out: float,
+                             offset: float = 0.0) -> np.ndarray:
+    """Lowest ``count`` energies of degree l of a core/shell dot: core r < b, shell b < r < c, hard wall at c.
+
+    The operator is -div (1/m) grad + V with m = mass_in, V = 0 in the core and
+    m = mass_out, V = offset in the shell (units with hbar^2/2 = 1, so the
+    eigenvalue is E).  The core solution regular at the centre is j_l(k_1 r),
+    k_1^2 = mass_in E.  In the shell, the solution vanishing at c is
+    R_2 = f(q r) g(q c) - g(q r) f(q c) with (f, g) = (j_l, y_l), q^2 =
+    mass_out (E - offset) above the offset, and (f, g) = (i_l, k_l) (modified
+    spherical Bessel functions), q^2 = mass_out (offset - E) below it; R_2 is
+    scaled to R_2'(c) = -1 so that it is continuous in E across the offset.
+    Continuity of R and of (1/m) dR/dr at r = b (BenDaniel-Duke) gives
+
+        R_1(b) R_2'(b) / mass_out - R_2(b) R_1'(b) / mass_in = 0,
+
+    whose roots in E are found by a sign scan.  Each value is (2l+1)-fold.
+
+    References
+    ----------
+    D. J. BenDaniel and C. B. Duke, Phys. Rev. 152, 683 (1966) (matching
+    condition); DLMF 10.47, 10.51 (spherical Bessel functions, modified ones,
+    derivatives).  With equal masses and no offset the roots are the zeros of
+    j_l(k c) (:func:`ball_dirichlet`), which the tests check.
+    """
+    l, count = _degree(l), _count(count)
+    b, c = (float(_positive(n, v)) for n, v in (("b", b), ("c", c)))
+    if not b < c:
+        raise GeometryError(f"need radii b < c, got b={b}, c={c}")
+    m1, m2 = float(_positive("mass_in", mass_in)), float(_positive("mass_out", mass_out))
+    V = float(offset)
+    if V < 0:
+        raise ValueError(f"offset must be >= 0 (the core is the lowest medium), got {V}")
+
+    def shell(E):
+        above = E > V
+        q = np.sqrt(m2 * np.abs(E - V))
+        x, xc = q * b, q * c
+        f = np.where(above, spherical_jn(l, x), spherical_in(l, x))
+        g = np.where(above, spherical_yn(l, x), spherical_kn(l, x))
+        fd = q * np.where(above, spherical_jn(l, x, derivative=True), spherical_in(l, x, derivative=True))
+        gd = q * np.where(above, spherical_yn(l, x, derivative=True), spherical_kn(l, x, derivative=True))
+        fc = np.where(above, spherical_jn(l, xc), spherical_in(l, xc))
+        gc = np.where(above, spherical_yn(l, xc), spherical_kn(l, xc))
+        fcd = q * np.where(above, spherical_jn(l, xc, derivative=True), spherical_in(l, xc, derivative=True))
+        gcd = q * np.where(above, spherical_yn(l, xc, derivative=True), spherical_kn(l, xc, derivative=True))
+        norm = -(fcd * gc - gcd * fc)  # R_2'(c) before scaling
+        return (f * gc - g * fc) / norm, (fd * gc - gd * fc) / norm
+
+    def matching(E):
+        E = np.asarray(E, dtype=float)
+        k1 = np.sqrt(m1 * E)
+        r2, d2 = shell(E)
+        # j_l(k r) scaled by k^-l keeps the core factor finite and of one sign as E -> 0
+        r1 = spherical_jn(l, k1 * b) / k1**l
+        d1 = k1 * spherical_jn(l, k1 * b, derivative=True) / k1**l
+        return r1 * d2 / m2 - r2 * d1 / m1
+
+    # levels are spaced at least ~ (pi / optical thickness)^2 apart near the bottom
+    thickness = b * np.sqrt(m1) + (c - b) * np.sqrt(m2)
+    step = (np.pi / thickness) ** 2 / (4 * _POINTS_PER_SPACING)
+    return _scan_roots(matching, 0.5 * step + 1e-9 * step, step, count=count)
 
 
 # ----------------------------------------------------------------------------- finite well
