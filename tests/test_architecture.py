@@ -159,7 +159,7 @@ def test_nothing_refers_to_documents_outside_the_repository():
         if path.suffix not in (".py", ".md", ".toml", ".txt", ".cfg", "") or not path.is_file():
             continue
         text = path.read_text(errors="ignore")
-        for word in ("../shared", "DESIGN.md", "STYLE.md"):
-            if word in text and name != "tests/test_architecture.py":
+        for word in ("../" + "shared", "DESIGN" + ".md", "STYLE" + ".md"):  # split: this file is checked too
+            if word in text:
                 hits.append(f"{name}: {word}")
     assert hits == []

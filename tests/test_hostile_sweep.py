@@ -32,6 +32,17 @@ def no_solving(monkeypatch):
     monkeypatch.setattr(run, "run_case", lambda case: (_ for _ in ()).throw(AssertionError("solved")))
 
 
+def _kill_and_wait(sweep) -> list[int]:
+    """SIGKILL a sweep process; wait up to 20 s for its children to go; return those children."""
+    everyone = _children(sweep.pid)
+    sweep.send_signal(signal.SIGKILL)
+    sweep.wait(timeout=30)
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline and any(_alive(p) for p in everyone):
+        time.sleep(0.2)
+    return everyone
+
+
 def _children(pid: int) -> list[int]:
     found = []
     for entry in Path("/proc").iterdir():
@@ -66,12 +77,7 @@ def test_workers_die_with_a_killed_sweep(tmp_path):
         time.sleep(0.2)
         workers = [p for p in _children(sweep.pid) if "spawn_main" in Path(f"/proc/{p}/cmdline").read_text()]
     assert len(workers) >= 2, "the sweep did not start its workers"
-    everyone = _children(sweep.pid)
-    sweep.send_signal(signal.SIGKILL)
-    sweep.wait(timeout=30)
-    deadline = time.monotonic() + 20
-    while time.monotonic() < deadline and any(_alive(p) for p in everyone):
-        time.sleep(0.2)
+    everyone = _kill_and_wait(sweep)
     left = [p for p in everyone if _alive(p)]
     for p in left:  # do not leave them behind even when the test fails
         os.kill(p, signal.SIGKILL)
@@ -220,12 +226,7 @@ def test_fault_injection_kill_and_resume_sweep(tmp_path):
     for _ in range(3):
         sweep = subprocess.Popen(command(out), env=env, stderr=subprocess.DEVNULL)
         time.sleep(rng.uniform(1.0, 4.0))
-        everyone = _children(sweep.pid)
-        sweep.send_signal(signal.SIGKILL)
-        sweep.wait(timeout=30)
-        deadline = time.monotonic() + 20
-        while time.monotonic() < deadline and any(_alive(p) for p in everyone):
-            time.sleep(0.2)
+        everyone = _kill_and_wait(sweep)
         assert not any(_alive(p) for p in everyone), "a worker outlived the killed sweep"
         steps = out / "steps"
         now = {p.name for p in steps.iterdir() if (p / "step.json").is_file()} if steps.is_dir() else set()
