@@ -20,7 +20,16 @@ from pydantic import BaseModel, ConfigDict, Field, NonNegativeInt, ValidationErr
 from shellmodes.case.expression import ExpressionError, compile_expression
 from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
 from shellmodes.errors import CaseError
-from shellmodes.limits import DEFAULT_MODE_COUNT, MAX_MODE_COUNT, MAX_RADIAL_DEGREE, MAX_SUBDIVISIONS
+from shellmodes.limits import (
+    DEFAULT_MODE_COUNT,
+    MAX_MODE_COUNT,
+    MAX_RADIAL_DEGREE,
+    MAX_SUBDIVISIONS,
+    PORT_RANGE,
+    SCHEDULER_ADDRESS,
+    SLICE_FROM,
+    SLICE_MODES,
+)
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -343,12 +352,26 @@ class Modes(_Table):
                                           "(at most 0.05: larger ones merge distinct levels)")
     backend: Literal["auto", "splu", "cholmod", "cholmod-system", "pardiso", "mumps"] = Field(
         "auto", description="factorization for shift-invert (auto: the fastest installed)")
-    method: Literal["auto", "lanczos", "block", "lobpcg", "separable"] = Field(
+    method: Literal["auto", "lanczos", "block", "lobpcg", "separable", "slices"] = Field(
         "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, "
                             "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor, "
-                            "or separation into surface and radial problems (prisms between concentric spheres, "
-                            "the default there)")
+                            "separation into surface and radial problems (prisms between concentric spheres, "
+                            f"the default there), or spectrum slicing with inertia counts for many modes (the "
+                            f"default from {SLICE_FROM} requested modes on where a factorization is planned)")
+    slice_modes: int = Field(SLICE_MODES, ge=10, le=MAX_MODE_COUNT,
+                             description="method slices: modes per slice aimed at")
+    workers: int = Field(2, ge=1, le=256, description="method slices: local worker processes (1: in this process)")
+    scheduler: str | None = Field(None, description="method slices: address tcp://host:port of a running Dask "
+                                  "distributed scheduler to run the slices on (instead of local workers)")
     residual_limit: Positive = Field(1e-6, description="largest acceptable relative residual")
+
+    @field_validator("scheduler")
+    @classmethod
+    def _address(cls, value):
+        match = None if value is None else SCHEDULER_ADDRESS.fullmatch(value.strip())
+        if value is not None and (match is None or not PORT_RANGE[0] <= int(match.group(2)) <= PORT_RANGE[1]):
+            raise ValueError(f"{value!r} is not a scheduler address tcp://host:port (port 1-65535)")
+        return value
 
     @model_validator(mode="before")
     @classmethod
@@ -409,6 +432,9 @@ class Output(_Table):
     pictures: bool = Field(False, description="also write levels.png and off-screen renders mode-NNNN.png "
                                               "(cut views for shells; needs the plot extra and vtu = true)")
     picture_modes: int = Field(4, ge=1, le=100, description="how many multiplets to render (one mode each)")
+    statistics: bool = Field(False, description="level statistics of the spectrum (surfaces): counting function "
+                             "against Weyl's law, heat-trace coefficients, nearest-neighbour spacings per symmetry "
+                             "class; numbers in spectrum.json, picture statistics.png (needs the plot extra)")
 
     @model_validator(mode="after")
     def _pictures_need_vtu(self):
@@ -457,6 +483,9 @@ class Case(_Table):
                                                  or self.potential is not None):
             raise ValueError("modes.method 'separable' needs shell.cells = 'prisms', concentric spherical walls "
                              "and no [potential]")
+        if self.output.statistics and self.surface is None:
+            raise ValueError("output.statistics compares with Weyl's law for surfaces: use a [surface], "
+                             "or statistics = false")
         rotor = self.particle.moment_of_inertia is not None
         if self.units.length == "1" and self.units.energy != "1" and not rotor:
             raise ValueError("units.energy needs a physical units.length (m, um, nm, angstrom, bohr) "

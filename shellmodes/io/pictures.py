@@ -30,7 +30,8 @@ import numpy as np
 from shellmodes.errors import MeshError, ShellmodesError
 
 __all__ = ["PlotExtraMissing", "require_plot_extra", "ordinary_permissions", "LevelDiagram",
-           "spectrum_picture", "render_modes", "mode_fields", "sphere_ladder", "DIVERGING_COLOURS"]
+           "spectrum_picture", "render_modes", "mode_fields", "sphere_ladder", "DIVERGING_COLOURS",
+           "statistics_picture"]
 
 #: our diverging map for mode amplitudes: deep slate blue through warm paper to brick red
 DIVERGING_COLOURS = ("#203a5c", "#4f7fae", "#a9c6de", "#f6f2ea", "#e9b28f", "#c0603a", "#6e2414")
@@ -99,6 +100,16 @@ def _write_atomic_png(path: Path, save) -> Path:
         Path(tmp).unlink(missing_ok=True)
         raise
     return path
+
+
+def _save_figure(plt, fig, path) -> Path:
+    """Lay out ``fig``, write it atomically as a PNG at ``path`` on its own background, and close it."""
+    fig.tight_layout()
+    try:
+        return _write_atomic_png(Path(path), lambda tmp: fig.savefig(tmp, format="png",
+                                                                       facecolor=fig.get_facecolor()))
+    finally:
+        plt.close(fig)
 
 
 @dataclass(frozen=True)
@@ -253,12 +264,7 @@ def spectrum_picture(spectrum_json: dict, path, *, title: str | None = None) -> 
             color="#5a6470")
     heading = title if title is not None else ((spectrum_json.get("case") or {}).get("title") or "levels")
     ax.set_title(heading, fontsize=10, color="#1d2a3a", pad=16, loc="left")
-    fig.tight_layout()
-    try:
-        out = _write_atomic_png(Path(path), lambda tmp: fig.savefig(tmp, format="png",
-                                                                      facecolor=fig.get_facecolor()))
-    finally:
-        plt.close(fig)
+    out = _save_figure(plt, fig, path)
     return LevelDiagram(path=out, levels=levels, ladder=list(ladder), unit=unit)
 
 
@@ -451,3 +457,48 @@ def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename):
         plotter.screenshot(filename)
     finally:
         plotter.close()
+
+
+def statistics_picture(stats: dict, path, *, title: str | None = None) -> Path:
+    """Level statistics as two panels: the staircase N(lambda) against Weyl's law with its corrections,
+    and the unfolded nearest-neighbour spacing histograms (one per symmetry class) against Poisson and
+    the Wigner surmise (:mod:`shellmodes.spectrum.levelstats` computes ``stats``).
+
+    Raises
+    ------
+    PlotExtraMissing
+        matplotlib is not installed.
+    """
+    from shellmodes.spectrum.levelstats import poisson, wigner
+
+    _, plt = _matplotlib()
+    fig, (left, right) = plt.subplots(1, 2, figsize=(11, 4.6), dpi=110)
+    fig.patch.set_facecolor("#fbfaf7")
+    w, heat = stats["weyl"], stats["heat_trace"]
+    left.step(w["lam"], w["count"], where="mid", color=LEVEL_COLOURS[0], lw=1.0, label="computed N(lambda)")
+    left.plot(w["lam"], w["weyl"], "--", color="#1d2a3a", lw=1.0,
+              label="Weyl: A lam/4pi" + (" -/+ L sqrt(lam)/4pi" if stats.get("rim") else "") + " + chi/6")
+    left.set_xlabel("eigenvalue lambda [1/length^2]")
+    left.set_ylabel("N(lambda): modes below lambda")
+    left.set_title(f"{stats['modes']} modes; heat trace a = {heat['a']:.4g} (A/4pi = {heat['expected_a']:.4g}), "
+                   f"c = {heat['c']:.3f} (chi/6 = {heat['expected_c']:.3f})", fontsize=8, loc="left")
+    left.legend(fontsize=8, loc="upper left")
+    s = np.linspace(0, 4, 200)
+    for k, (name, summary) in enumerate(stats["spacings"].items()):
+        if "density" in summary:
+            right.stairs(summary["density"], np.array(summary["edges"]), lw=1.2,
+                         color=LEVEL_COLOURS[(k + 1) % len(LEVEL_COLOURS)],
+                         label=f"class {name}: {summary['count']} spacings")
+    right.plot(s, poisson(s), ":", color="#1d2a3a", label="Poisson exp(-s)")
+    right.plot(s, wigner(s), "--", color="#1d2a3a", label="Wigner surmise (pi s/2) exp(-pi s^2/4)")
+    right.set_xlabel("unfolded nearest-neighbour spacing s")
+    right.set_ylabel("P(s)")
+    note = stats["classes"].get("note", "")
+    right.set_title(note if len(note) <= 95 else note[:92] + "...", fontsize=7, loc="left")
+    right.legend(fontsize=7)
+    for ax in (left, right):
+        ax.set_facecolor("#fbfaf7")
+        ax.tick_params(labelsize=8)
+    if title:
+        fig.suptitle(title, fontsize=10)
+    return _save_figure(plt, fig, path)
