@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 
 import numpy as np
 import pytest
@@ -124,23 +125,28 @@ def test_inertia_of_linear_elements_on_a_segment():
         assert inertia(K, M, sigma) == np.count_nonzero(exact < sigma)
 
 
-def test_a_missed_mode_is_an_error(sphere, monkeypatch):
+@pytest.mark.parametrize("fault", ["missed", "repeated"])
+def test_a_missed_or_repeated_mode_is_caught_by_the_inertia_count(sphere, monkeypatch, fault):
+    """The eigen-iteration of the slices above 20 is made to lose (or repeat) the mode nearest its shift:
+    the slice's inertia count no longer matches its modes, and the run stops instead of returning them."""
     import shellmodes.eigen.slicing as slicing
 
+    args = dict(below=60.0, lower_bound=0.0, scale=sphere.spectral_scale, boundaries=[15.0], workers=1)
+    honest = sliced_modes(sphere.K, sphere.M, **args)  # the same request passes untouched
+    assert [s.found for s in honest.slices] == [s.expected for s in honest.slices]
     nearest = slicing._Factor.nearest
 
-    def drop_one(self, K, M, k, v0, **options):
+    def faulty(self, K, M, k, v0, **options):
         lam, U = nearest(self, K, M, k, v0, **options)
-        if self.sigma > 20.0:  # the slice solves, not the boundary searches below 20
-            keep = np.ones(len(lam), bool)
-            keep[np.argmin(np.abs(lam - self.sigma))] = False
-            return lam[keep], U[:, keep]
+        if self.sigma > 20.0 and "tol" not in options:  # the slice solves, not the boundary searches
+            j = int(np.argmin(np.abs(lam - self.sigma)))
+            take = np.delete(np.arange(len(lam)), j) if fault == "missed" else np.insert(np.arange(len(lam)), j, j)
+            return lam[take], U[:, take]
         return lam, U
 
-    monkeypatch.setattr(slicing._Factor, "nearest", drop_one)
-    with pytest.raises(SolverError, match="inertia count"):
-        sliced_modes(sphere.K, sphere.M, below=60.0, lower_bound=0.0, scale=sphere.spectral_scale,
-                     boundaries=[15.0], workers=1)
+    monkeypatch.setattr(slicing._Factor, "nearest", faulty)
+    with pytest.raises(SolverError, match="inertia count says"):
+        sliced_modes(sphere.K, sphere.M, **args)
 
 
 def test_case_run_reports_slices(tmp_path):
@@ -159,6 +165,24 @@ def test_case_run_reports_slices(tmp_path):
     assert all(s["found"] == s["expected"] for s in slices)
     assert [m["size"] for m in data["multiplets"]] == [1, 3, 5, 7, 9, 11, 13]
     assert "inertia count" in (tmp_path / "out" / "run.log").read_text()
+    assert data["solver"]["plan"]["path"] == "slices" and "inertia counts" in data["solver"]["plan"]["reason"]
+
+
+def test_report_shows_slices_and_statistics(tmp_path):
+    pytest.importorskip("matplotlib")
+    from shellmodes.io.outputs import write_outputs
+    from shellmodes.io.report import write_report
+
+    case = case_from_dict({"surface": {"shape": "sphere"}, "resolution": {"degree": 2, "subdivisions": 3},
+                           "units": {"energy": "1", "length": "1"},
+                           "modes": {"count": 36, "method": "slices", "slice_modes": 12, "workers": 1},
+                           "output": {"vtu": False, "statistics": True}})
+    write_outputs(run_case(case), tmp_path / "out")
+    assert (tmp_path / "out" / "statistics.png").stat().st_size > 1000
+    page = write_report(tmp_path / "out", modes=0).read_text()
+    assert "<h2>Slices</h2>" in page and "<h2>Level statistics</h2>" in page
+    assert "every slice holds exactly the modes its inertia counts say" in page
+    assert page.count("data:image/png") == 2  # the level diagram and the statistics picture
 
 
 def test_group_boundaries_in_gaps_for_a_below_request(sphere):
@@ -192,3 +216,40 @@ def test_sphere_2000_modes_exact_multiplicities():
         above = pairs.lam[pairs.lam >= s.upper]
         if len(above):
             assert _l_of(pairs.lam[pairs.lam < s.upper][-1:])[0] + 1 == _l_of(above[:1])[0]
+
+
+@pytest.mark.parametrize("modes, output, key", [
+    ({"method": "slices", "scheduler": "http://localhost:8786"}, {}, "modes.scheduler"),
+    ({"method": "slices", "scheduler": "tcp://localhost:70000"}, {}, "modes.scheduler"),
+    ({"method": "slices", "slice_modes": 5}, {}, "modes.slice_modes"),
+    ({"method": "slices", "workers": 0}, {}, "modes.workers"),
+])
+def test_bad_slice_keys_are_one_line_errors(modes, output, key):
+    from shellmodes.errors import CaseError
+
+    with pytest.raises(CaseError, match=key.replace(".", r"\.")) as caught:
+        case_from_dict({"surface": {"shape": "sphere"}, "modes": modes, "output": output})
+    assert "\n" not in str(caught.value)
+
+
+def test_statistics_of_a_shell_are_refused():
+    from shellmodes.errors import CaseError
+
+    with pytest.raises(CaseError, match="output.statistics"):
+        case_from_dict({"shell": {"outer": {"shape": "sphere", "radius": 1.0}}, "output": {"statistics": True}})
+
+
+def test_slices_on_a_scheduler_address():
+    """Any running Dask scheduler takes the slices (here one started by the test, two worker processes)."""
+    distributed = pytest.importorskip("dask.distributed")
+    problem = _problem({"shape": "sphere"}, 2, 3)
+    args = dict(lower_bound=0.0, scale=problem.spectral_scale, slice_modes=16)
+    serial = sliced_modes(problem.K, problem.M, 64, workers=1, **args)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+                                  scheduler_kwargs={"dashboard": False}) as cluster:
+        remote = sliced_modes(problem.K, problem.M, 64, scheduler=cluster.scheduler_address, **args)
+    assert np.allclose(remote.lam, serial.lam, rtol=1e-12, atol=0)
+    assert [s.found for s in remote.slices] == [s.expected for s in remote.slices]
+    # solved in the scheduler's worker processes, not in this one (a record names host:pid)
+    assert all(not s.worker.endswith(f":{os.getpid()}") for s in remote.slices)
+    assert all(s.worker.endswith(f":{os.getpid()}") for s in serial.slices)

@@ -370,7 +370,7 @@ class Modes(_Table):
     def _address(cls, value):
         match = None if value is None else SCHEDULER_ADDRESS.fullmatch(value.strip())
         if value is not None and (match is None or not PORT_RANGE[0] <= int(match.group(2)) <= PORT_RANGE[1]):
-            raise ValueError(f"{value!r} is not a scheduler address tcp://host:port (port 1-65535)")
+            raise ValueError("not a scheduler address; give tcp://host:port (port 1-65535)")
         return value
 
     @model_validator(mode="before")

@@ -48,7 +48,7 @@ import scipy.sparse.linalg as sla
 
 from shellmodes.eigen.resources import check_count
 from shellmodes.eigen.solve import Eigenpairs, _m_orthonormalise, check_found, group_multiplets, relative_residuals
-from shellmodes.errors import ShellmodesError, SolverError
+from shellmodes.errors import ProblemError, SolverError
 from shellmodes.limits import DENSE_LIMIT, SLICE_MODES, SLICE_PARALLEL_FROM
 
 __all__ = ["SliceRecord", "SlicedEigenpairs", "sliced_modes", "slice_records", "slice_lines", "inertia"]
@@ -245,7 +245,10 @@ def _solve_slice(K, M, index: int, lower: _Boundary, upper: _Boundary, floor: fl
                 break
             k = min(n - 2, k + max(16, expected // 2))
         lam, U = lam[inside], U[:, inside]
-    U, orth = _m_orthonormalise(U, M) if len(lam) else (U, 0.0)
+    try:
+        U, orth = _m_orthonormalise(U, M) if len(lam) else (U, 0.0)
+    except la.LinAlgError:  # dependent vectors (a mode found twice): the inertia count check reports it
+        orth = float("inf")
     residuals = relative_residuals(K, M, lam, U, floor) if len(lam) else np.zeros(0)
     record = SliceRecord(index=index, lower=a, upper=b, planned_upper=upper.planned, shift=sigma,
                          expected=int(expected), found=int(len(lam)),
@@ -329,8 +332,8 @@ class _Dask:
         try:
             from dask.distributed import Client, LocalCluster
         except ImportError:
-            raise ShellmodesError("slices on more than one worker need dask.distributed "
-                                  "(pip install 'shellmodes[sweep]')") from None
+            raise ProblemError("slices on a Dask scheduler need dask.distributed "
+                               "(pip install 'shellmodes[sweep]')", "modes.scheduler") from None
         self.cluster = None
         try:
             if scheduler:
@@ -338,13 +341,18 @@ class _Dask:
                 self.name = f"dask scheduler {scheduler}"
             else:
                 self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                            dashboard_address=None, memory_limit=0)
+                                            dashboard_address=None, scheduler_kwargs={"dashboard": False},
+                                            memory_limit=0)
                 self.client = Client(self.cluster, set_as_default=False)
                 self.name = f"{workers} local dask worker processes"
-        except (OSError, TimeoutError, ValueError) as exc:
+        except Exception as exc:  # a service that is not a scheduler fails in many ways (as in sweeps)
             reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-            raise ShellmodesError(f"cannot reach the Dask scheduler at {scheduler!r} within {timeout:g} s "
-                                  f"({reason}); check the address, or drop modes.scheduler") from None
+            if scheduler:
+                raise ProblemError(f"cannot reach the Dask scheduler at {scheduler!r} within {timeout:g} s "
+                                   f"({reason}); check the address, or drop modes.scheduler",
+                                   "modes.scheduler") from None
+            raise ProblemError(f"cannot start {workers} local Dask worker processes ({reason}); "
+                               "set modes.workers = 1 to solve the slices in this process", "modes.workers") from None
 
     def scatter(self, value):
         return self.client.scatter(value, broadcast=True)
@@ -372,7 +380,7 @@ def _task(fn, *args):
 def sliced_modes(K, M, count: int | None = None, below: float | None = None, *, lower_bound: float = 0.0,
                  scale: float = 1.0, multiplet_tolerance: float = 1e-4, residual_limit: float = 1e-6,
                  slice_modes: int = SLICE_MODES, workers: int = 1, scheduler: str | None = None,
-                 boundaries=None, timeout: float = 30.0) -> SlicedEigenpairs:
+                 boundaries=None, timeout: float = 5.0) -> SlicedEigenpairs:
     """Lowest ``count`` eigenpairs (or all below ``below``) by spectrum slicing with inertia counts.
 
     Parameters are those of :func:`shellmodes.eigen.solve.lowest_modes`, and
@@ -420,7 +428,13 @@ def sliced_modes(K, M, count: int | None = None, below: float | None = None, *, 
     if inertia(K, M, bottom) != 0:
         raise SolverError(f"eigenvalues lie below the shift {bottom:.6g} = lower_bound - scale: the lower bound "
                           "of the spectrum is wrong")
-    planned, top, total = _plan(K, M, bottom, below, count, scale, slice_modes)
+    remote = _Dask(workers, scheduler, timeout) if scheduler else None  # an unreachable address fails first
+    try:
+        planned, top, total = _plan(K, M, bottom, below, count, scale, slice_modes)
+    except BaseException:
+        if remote is not None:
+            remote.close()
+        raise
     if boundaries is not None:
         planned = sorted(float(b) for b in boundaries if bottom < b < top)
     t_plan = time.perf_counter() - t0
@@ -428,7 +442,7 @@ def sliced_modes(K, M, count: int | None = None, below: float | None = None, *, 
     if parallel and not scheduler and importlib.util.find_spec("distributed") is None:
         log.warning("dask.distributed is not installed (pip install 'shellmodes[sweep]'): slices run in this process")
         parallel = False
-    runner = _Dask(workers, scheduler, timeout) if parallel else _Serial()
+    runner = remote or (_Dask(workers, None, timeout) if parallel else _Serial())
     try:
         Kr, Mr = runner.scatter(K), runner.scatter(M)
         seed = 20261203
