@@ -72,7 +72,10 @@ def timed_slices(p, count, workers, slice_modes):
         pairs = sliced_modes(p.K, p.M, count, lower_bound=p.lower_bound, scale=p.spectral_scale,
                              slice_modes=slice_modes, workers=workers)
     cpu = time.process_time() - c0  # this process only: the whole work when workers = 1
-    print(f"  cpu time of this process {cpu:.1f} s", flush=True)
+    slices = pairs.slices
+    print(f"  cpu time of this process {cpu:.1f} s; slices: wall {sum(s.seconds for s in slices):.1f} s, "
+          f"cpu {sum(s.cpu_seconds for s in slices):.1f} s, boundaries {sum(s.boundary_seconds for s in slices):.1f} s",
+          flush=True)
     return time.perf_counter() - t0, pairs
 
 

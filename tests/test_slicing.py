@@ -253,3 +253,22 @@ def test_slices_on_a_scheduler_address():
     # solved in the scheduler's worker processes, not in this one (a record names host:pid)
     assert all(not s.worker.endswith(f":{os.getpid()}") for s in remote.slices)
     assert all(s.worker.endswith(f":{os.getpid()}") for s in serial.slices)
+
+
+def test_the_planner_slices_from_slice_from_modes_on():
+    """auto: one shift below limits.SLICE_FROM modes, slices from there on; the reason is recorded."""
+    from shellmodes.case.model import energy_scale
+    from shellmodes.eigen.planner import plan_solver
+    from shellmodes.limits import SLICE_FROM
+    from shellmodes.pipeline import build_problem
+
+    def plan(modes):
+        case = case_from_dict({"surface": {"shape": "sphere"}, "resolution": {"degree": 2, "subdivisions": 4},
+                               "modes": modes})
+        return plan_solver(build_problem(case, build_discretisation(case), energy_scale(case)), case.modes)
+
+    assert plan({"count": SLICE_FROM - 1}).path == "shift-invert"
+    sliced = plan({"count": SLICE_FROM})
+    assert sliced.path == "slices" and f"slices from {SLICE_FROM} on" in sliced.reason
+    assert plan({"count": 20, "method": "slices"}).path == "slices"
+    assert plan({"count": SLICE_FROM, "method": "lanczos"}).path == "shift-invert"
