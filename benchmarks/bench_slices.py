@@ -73,8 +73,13 @@ def timed_slices(p, count, workers, slice_modes):
                              slice_modes=slice_modes, workers=workers)
     cpu = time.process_time() - c0  # this process only: the whole work when workers = 1
     slices = pairs.slices
+    busy = {}
+    for s in slices:  # CPU per worker process: how evenly the work was spread
+        busy[s.worker] = busy.get(s.worker, 0.0) + s.cpu_seconds
     print(f"  cpu time of this process {cpu:.1f} s; slices: wall {sum(s.seconds for s in slices):.1f} s, "
-          f"cpu {sum(s.cpu_seconds for s in slices):.1f} s, boundaries {sum(s.boundary_seconds for s in slices):.1f} s",
+          f"cpu {sum(s.cpu_seconds for s in slices):.1f} s; boundaries: wall "
+          f"{sum(s.boundary_seconds for s in slices):.1f} s, cpu {sum(s.boundary_cpu_seconds for s in slices):.1f} s; "
+          f"slice cpu per worker {', '.join(f'{v:.1f}' for v in busy.values())} s",
           flush=True)
     return time.perf_counter() - t0, pairs
 

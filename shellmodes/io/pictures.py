@@ -460,9 +460,9 @@ def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename):
 
 
 def statistics_picture(stats: dict, path, *, title: str | None = None) -> Path:
-    """Level statistics as two panels: the staircase N(lambda) against Weyl's law with its corrections,
-    and the unfolded nearest-neighbour spacing histograms (one per symmetry class) against Poisson and
-    the Wigner surmise (:mod:`shellmodes.spectrum.levelstats` computes ``stats``).
+    """Level statistics in three panels: the staircase N(lambda) against Weyl's law with its corrections,
+    the staircase's fluctuation about it, and the unfolded nearest-neighbour spacing histograms (one per
+    symmetry class) against Poisson and the Wigner surmise (:mod:`shellmodes.spectrum.levelstats` computes ``stats``).
 
     Raises
     ------
@@ -472,17 +472,27 @@ def statistics_picture(stats: dict, path, *, title: str | None = None) -> Path:
     from shellmodes.spectrum.levelstats import poisson, wigner
 
     _, plt = _matplotlib()
-    fig, (left, right) = plt.subplots(1, 2, figsize=(11, 4.6), dpi=110)
+    # 9.3 in at 110 dpi: the report's 1,024-pixel column at its natural size, so the small print stays legible
+    fig = plt.figure(figsize=(9.3, 7.4), dpi=110)
+    grid = fig.add_gridspec(2, 2, height_ratios=[1.0, 1.05])
+    left, middle, right = fig.add_subplot(grid[0, 0]), fig.add_subplot(grid[0, 1]), fig.add_subplot(grid[1, :])
     fig.patch.set_facecolor("#fbfaf7")
     w, heat = stats["weyl"], stats["heat_trace"]
-    left.step(w["lam"], w["count"], where="mid", color=LEVEL_COLOURS[0], lw=1.0, label="computed N(lambda)")
-    left.plot(w["lam"], w["weyl"], "--", color="#1d2a3a", lw=1.0,
-              label="Weyl: A lam/4pi" + (" -/+ L sqrt(lam)/4pi" if stats.get("rim") else "") + " + chi/6")
+    lam, count, weyl = np.asarray(w["lam"]), np.asarray(w["count"]), np.asarray(w["weyl"])
+    formula = "A lam/4pi" + (" -/+ L sqrt(lam)/4pi" if stats.get("rim") else "") + " + chi/6"
+    left.step(lam, count, where="mid", color=LEVEL_COLOURS[0], lw=1.0, label="computed N(lambda)")
+    left.plot(lam, weyl, "--", color="#1d2a3a", lw=1.0, label=f"Weyl: {formula}")
     left.set_xlabel("eigenvalue lambda [1/length^2]")
     left.set_ylabel("N(lambda): modes below lambda")
-    left.set_title(f"{stats['modes']} modes; heat trace a = {heat['a']:.4g} (A/4pi = {heat['expected_a']:.4g}), "
+    left.set_title(f"{stats['modes']} modes; heat trace a = {heat['a']:.4g} (A/4pi = {heat['expected_a']:.4g}),\n"
                    f"c = {heat['c']:.3f} (chi/6 = {heat['expected_c']:.3f})", fontsize=8, loc="left")
     left.legend(fontsize=8, loc="upper left")
+    middle.step(lam, count - weyl, where="mid", color=LEVEL_COLOURS[0], lw=0.8)
+    middle.axhline(0.0, color="#1d2a3a", lw=0.8, ls="--")
+    middle.set_xlabel("eigenvalue lambda [1/length^2]")
+    middle.set_ylabel("N(lambda) - Weyl")
+    middle.set_title(f"fluctuation about Weyl's law:\nmean {w['mean_deviation']:.3g}, rms {w['rms_deviation']:.3g}",
+                     fontsize=8, loc="left")
     s = np.linspace(0, 4, 200)
     for k, (name, summary) in enumerate(stats["spacings"].items()):
         if "density" in summary:
@@ -493,10 +503,12 @@ def statistics_picture(stats: dict, path, *, title: str | None = None) -> Path:
     right.plot(s, wigner(s), "--", color="#1d2a3a", label="Wigner surmise (pi s/2) exp(-pi s^2/4)")
     right.set_xlabel("unfolded nearest-neighbour spacing s")
     right.set_ylabel("P(s)")
-    note = stats["classes"].get("note", "")
-    right.set_title(note if len(note) <= 95 else note[:92] + "...", fontsize=7, loc="left")
-    right.legend(fontsize=7)
-    for ax in (left, right):
+    import textwrap
+
+    # the whole note, wrapped: it says when mixed classes make the histogram meaningless
+    right.set_title("\n".join(textwrap.wrap(stats["classes"].get("note", ""), 120)), fontsize=8, loc="left")
+    right.legend(fontsize=8)
+    for ax in (left, middle, right):
         ax.set_facecolor("#fbfaf7")
         ax.tick_params(labelsize=8)
     if title:

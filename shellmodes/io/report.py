@@ -514,9 +514,10 @@ def _statistics_section(stats: dict, png: bytes | None) -> str:
     rows = [["A / 4 pi (area)", _num(heat["a"], 6), _num(heat["expected_a"], 6)],
             ["-/+ L / 8 sqrt(pi) (rim)", _num(heat["b"], 6), _num(heat["expected_b"], 6)],
             ["chi / 6 (Euler characteristic)", _num(heat["c"], 6), _num(heat["expected_c"], 6)]]
-    parts = [f"<figure>{_img(png, 'level statistics')}<figcaption>Left: the computed counting function "
-             "against Weyl's law with its corrections; right: unfolded nearest-neighbour spacings against "
-             "Poisson and the Wigner surmise.</figcaption></figure>" if png is not None else "",
+    parts = [f"<figure>{_img(png, 'level statistics')}<figcaption>Top: the computed counting function "
+             "against Weyl's law with its corrections, and its fluctuation about it; bottom: unfolded "
+             "nearest-neighbour spacings against Poisson and the Wigner surmise.</figcaption></figure>"
+             if png is not None else "",
              "<h3>Heat-trace coefficients</h3>",
              _table(["term", "fitted", "expected"], rows, text_columns=(0,)),
              f'<p class="quiet">{_e(weyl.get("source", ""))}. Mean of N(lambda) minus Weyl\'s N over the '
