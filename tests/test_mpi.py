@@ -290,3 +290,19 @@ def test_the_launcher_reports_are_folded_into_what_they_say():
     seen = relay_stderr(io.StringIO(text), out)
     assert out.getvalue() == "warning: kept\n"
     assert seen == {"rank": 1, "node": "vm", "how": "signal 9, killed"}
+
+
+@pytest.mark.mpi
+@without_mpi
+def test_a_problem_too_big_for_a_rank_is_refused_by_the_planner_before_any_solve(monkeypatch):
+    # the per-rank memory guard: with 1 kB per rank nothing fits, and the case error names the key
+    from shellmodes.eigen.backends import slepc_mpi
+    from shellmodes.errors import CaseError
+
+    monkeypatch.setattr(slepc_mpi, "per_rank_budget", lambda comm: 1000)
+    started = []
+    monkeypatch.setattr(slepc_mpi, "_RankSolver", lambda *a, **k: started.append(a))
+    with pytest.raises(CaseError, match="more ranks or nodes") as refused:
+        run_case(case_from_dict(_with_method(SPHERE, "mpi")))
+    assert "modes.count" in str(refused.value)
+    assert started == []  # no rank built a matrix or a solver
