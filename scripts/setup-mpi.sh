@@ -15,7 +15,13 @@ cd "$(dirname "$0")/.."
 VENV=${1:-.venv-mpi}
 EXTRAS=${SHELLMODES_MPI_EXTRAS:-test}
 
-if ! /usr/bin/python3 -c "import slepc4py, petsc4py, mpi4py" 2>/dev/null || ! command -v mpiexec >/dev/null; then
+newest() { ls -d $1 2>/dev/null | sort -V | tail -n 1; }
+installed() {  # the bindings import only with PETSC_DIR and SLEPC_DIR set
+    PETSC_DIR=$(newest "/usr/lib/petscdir/petsc3*/*-linux-gnu-real") \
+    SLEPC_DIR=$(newest "/usr/lib/slepcdir/slepc3*/*-linux-gnu-real") \
+        /usr/bin/python3 -c "import slepc4py, petsc4py, mpi4py" 2>/dev/null && command -v mpiexec >/dev/null
+}
+if ! installed; then
     SUDO=""
     if [ "$(id -u)" -ne 0 ]; then SUDO="sudo"; fi
     $SUDO apt-get update -q
@@ -26,7 +32,6 @@ fi
 
 # The real-scalar trees the bindings load: the newest installed build under /usr/lib/petscdir and
 # /usr/lib/slepcdir (the bindings' .pth files read PETSC_DIR and SLEPC_DIR to find them).
-newest() { ls -d $1 2>/dev/null | sort -V | tail -n 1; }
 PETSC_DIR=${PETSC_DIR:-$(newest "/usr/lib/petscdir/petsc3*/*-linux-gnu-real")}
 SLEPC_DIR=${SLEPC_DIR:-$(newest "/usr/lib/slepcdir/slepc3*/*-linux-gnu-real")}
 if [ -z "$PETSC_DIR" ] || [ -z "$SLEPC_DIR" ]; then
@@ -43,7 +48,14 @@ echo "numpy<2" > "$VENV/constraints.txt"
 "$VENV/bin/python" -m pip install -q --upgrade pip
 "$VENV/bin/python" -m pip install -q -c "$VENV/constraints.txt" -e ".[$EXTRAS]"
 
-# activate sets the variables the PETSc/SLEPc bindings need
+# The environment's Python sets the variables the PETSc/SLEPc bindings need, activated or not (the system
+# packages' .pth files read them; this file is read first, being in the environment's own site folder), and
+# so do the MPI ranks it starts.
+SITE=$("$VENV/bin/python" -c "import sysconfig; print(sysconfig.get_paths()['purelib'])")
+cat > "$SITE/00-shellmodes-petsc.pth" <<PTH
+import os; os.environ.setdefault("PETSC_DIR", "$PETSC_DIR"); os.environ.setdefault("SLEPC_DIR", "$SLEPC_DIR")
+PTH
+# activate sets them too (for tools started from the shell)
 if ! grep -q "setup-mpi.sh" "$VENV/bin/activate"; then
     {
         echo ""
