@@ -69,7 +69,7 @@ def run(ranks: int, case: Path, out: Path) -> dict:
     data = json.loads((out / "spectrum.json").read_text())
     solver, timings = data["solver"], data["timings"]
     log = (out / "run.log").read_text()
-    share = next((line for line in log.splitlines() if "rows sent" in line or "rows taken" in line), "")
+    share = next((line for line in log.splitlines() if "rows sent" in line or "own copy" in line), "")
     return {"ranks": ranks, "wall": wall, "timings": timings, "solver": {k: v for k, v in solver.items()},
             "free_dofs": data["mesh"]["free_dofs"], "lam": [m["eigenvalue"] for m in data["modes"]],
             "max_residual": solver["max_residual"], "share_line": share}
