@@ -27,7 +27,6 @@ from shellmodes.case.model import (
 )
 from shellmodes.case.schema import Case
 from shellmodes.eigen.planner import Problem, Solved, SolverPlan, plan_solver, solve_plan
-from shellmodes.eigen.slicing import slice_lines, slice_records
 from shellmodes.errors import CaseError, ProblemError, ShellmodesError
 from shellmodes.fem.discretisation import Discretisation, build_discretisation, fixed_walls
 from shellmodes.spectrum.labelling import Labels, label_modes
@@ -137,7 +136,7 @@ def _spectrum(case: Case, problem: Problem, plan: SolverPlan, solved: Solved, la
                    "orthogonality_error": pairs.orthogonality, "multiplet_tolerance": modes.multiplet_tolerance,
                    "max_residual": float(np.max(pairs.residuals)) if len(pairs.lam) else None,
                    "residual_definition": "||K u - lam M u|| / (max(|lam|, |shift|) ||M u||)",
-                   "plan": plan.as_dict(), **slice_records(pairs)}
+                   "plan": plan.as_dict()}
     units = {"length": case.units.length, "energy": case.units.energy, "energy_per_lambda": scale.per_lambda,
              "energy_scale": scale.origin,
              "eigenvalue": f"1/{case.units.length}^2" if case.units.length != "1" else "1"}
@@ -148,8 +147,10 @@ def _spectrum(case: Case, problem: Problem, plan: SolverPlan, solved: Solved, la
              plan.describe(),
              f"solver: {pairs.backend} ({pairs.method}), shift {pairs.shift:.4g}, {len(pairs.lam)} modes "
              f"(requested {modes.count if modes.count else 'below ' + str(modes.below)})",
-             *slice_lines(pairs), "timings [s]: " + ", ".join(f"{k} {v:.3f}" for k, v in timings.items()),
+             "timings [s]: " + ", ".join(f"{k} {v:.3f}" for k, v in timings.items()),
              "versions: " + ", ".join(f"{k} {v}" for k, v in run_versions.items())]
+    solver_info.update(pairs.details.get("solver", {}))  # a path's own records (MPI: per-rank memory and time)
+    lines[-2:-2] = pairs.details.get("log", [])
     lines += [f"warning: {w}" for w in solved.messages]
     info = {"units": units, "mesh": mesh_info, "solver": solver_info, "versions": run_versions,
             "case": case.model_dump(mode="json"), "timings": timings, "warnings": solved.messages,

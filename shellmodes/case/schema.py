@@ -352,12 +352,15 @@ class Modes(_Table):
                                           "(at most 0.05: larger ones merge distinct levels)")
     backend: Literal["auto", "splu", "cholmod", "cholmod-system", "pardiso", "mumps"] = Field(
         "auto", description="factorization for shift-invert (auto: the fastest installed)")
-    method: Literal["auto", "lanczos", "block", "lobpcg", "separable", "slices"] = Field(
+    method: Literal["auto", "lanczos", "block", "lobpcg", "separable", "slices", "mpi"] = Field(
         "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, "
                             "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor, "
                             "separation into surface and radial problems (prisms between concentric spheres, "
-                            f"the default there), or spectrum slicing with inertia counts for many modes (the "
-                            f"default from {SLICE_FROM} requested modes on where a factorization is planned)")
+                            "the default there), spectrum slicing with inertia counts for many modes ('slices', "
+                            f"the default from {SLICE_FROM} requested modes on where a factorization is planned), "
+                            "or 'mpi': SLEPc Krylov-Schur shift-invert distributed over the "
+                            "MPI ranks of the run (needs scripts/setup-mpi.sh; 'auto' chooses it under mpiexec "
+                            "or run --ranks with more than one rank, except for separable shells)")
     slice_modes: int = Field(SLICE_MODES, ge=10, le=MAX_MODE_COUNT,
                              description="method slices: modes per slice aimed at")
     workers: int = Field(2, ge=1, le=256, description="method slices: local worker processes (1: in this process)")

@@ -51,7 +51,7 @@ from shellmodes.eigen.solve import Eigenpairs, _m_orthonormalise, check_found, g
 from shellmodes.errors import ProblemError, SolverError
 from shellmodes.limits import DENSE_LIMIT, SLICE_MODES, SLICE_PARALLEL_FROM
 
-__all__ = ["SliceRecord", "SlicedEigenpairs", "sliced_modes", "slice_records", "slice_lines", "inertia"]
+__all__ = ["SliceRecord", "SlicedEigenpairs", "sliced_modes", "slice_lines", "inertia"]
 
 log = logging.getLogger(__name__)
 
@@ -503,23 +503,18 @@ def sliced_modes(K, M, count: int | None = None, below: float | None = None, *, 
     log.info("solved %d modes in %d slices (%s) in %.2f s", keep, len(records), runner.name, elapsed)
     check_found(count, residuals, residual_limit)
     orth = max((r.orthogonality for r in records), default=0.0)
+    counts = tuple(e.count for e in edges)
+    details = {"solver": {"slices": [r.as_dict() for r in records], "inertia_counts": list(counts)},
+               "log": slice_lines(records)}
     return SlicedEigenpairs(lam=lam, vectors=U, residuals=residuals, orthogonality=orth, shift=bottom,
                             backend="superlu-ldl", requested=count,
-                            timings={"eigensolve": elapsed, "planning": t_plan}, method="slices",
-                            slices=tuple(records), counts=tuple(e.count for e in edges))
+                            timings={"eigensolve": elapsed, "planning": t_plan}, method="slices", details=details,
+                            slices=tuple(records), counts=counts)
 
 
-def slice_records(pairs) -> dict:
-    """``solver.slices`` and ``solver.inertia_counts`` for spectrum.json; {} for unsliced eigenpairs."""
-    records = getattr(pairs, "slices", None)
-    if not records:
-        return {}
-    return {"slices": [r.as_dict() for r in records], "inertia_counts": list(pairs.counts)}
-
-
-def slice_lines(pairs) -> list[str]:
-    """One run.log line per slice: interval, shift, inertia count, modes found, residual, time; [] if unsliced."""
+def slice_lines(records) -> list[str]:
+    """One run.log line per slice: interval, shift, inertia count, modes found, residual, times, worker."""
     return [f"slice {r.index}: [{r.lower:.10g}, {r.upper:.10g}) shift {r.shift:.6g}, inertia count {r.expected}, "
             f"found {r.found}, max residual {r.max_residual:.2e}, {r.seconds:.2f} s (CPU {r.cpu_seconds:.2f} s, "
             f"factorization {r.factor_seconds:.2f} s, boundary {r.boundary_seconds:.2f} s) on {r.worker}"
-            for r in getattr(pairs, "slices", None) or ()]
+            for r in records]
