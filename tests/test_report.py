@@ -25,7 +25,7 @@ pytest.importorskip("pyvista")
 
 from shellmodes.case.schema import case_from_dict  # noqa: E402
 from shellmodes.errors import CaseError, MeshError, ShellmodesError  # noqa: E402
-from shellmodes.io.outputs import mode_field_name, write_outputs  # noqa: E402
+from shellmodes.io.outputs import mode_array_names, write_outputs  # noqa: E402
 from shellmodes.io.pictures import PlotExtraMissing, render_modes, spectrum_picture, sphere_ladder  # noqa: E402
 from shellmodes.io.report import SAFETY_NOTE, case_toml, find_convergence, load_run, write_report  # noqa: E402
 from shellmodes.pipeline import run_case  # noqa: E402
@@ -156,7 +156,7 @@ def test_volume_render_cuts_a_tetra10_shell(tmp_path):
     u[free] = vec
     points, cells, _ = export_cells(disc)
     assert cells[0][0] == "tetra10"
-    meshio.Mesh(points, cells, point_data={mode_field_name(i, lam[i]): u[:, i] for i in range(4)}).write(
+    meshio.Mesh(points, cells, point_data={mode_array_names(i)["psi"]: u[:, i] for i in range(4)}).write(
         tmp_path / "modes.vtu")
     (path,) = render_modes(tmp_path / "modes.vtu", [1], str(tmp_path / "v{index}.png"))
     _assert_png(path)

@@ -38,7 +38,7 @@ DIVERGING_COLOURS = ("#203a5c", "#4f7fae", "#a9c6de", "#f6f2ea", "#e9b28f", "#c0
 LEVEL_COLOURS = ("#3a6ea5", "#c2702f", "#2e8b6f", "#8e4f9e", "#b5443f", "#5b7f2a", "#a8862b", "#4a5a6a")
 LADDER_COLOUR = "#9aa3ad"
 
-_FIELD = re.compile(r"^mode(\d+)_E=(.+)$")
+_FIELD = re.compile(r"^psi_(\d{4,})(?:_re)?$")
 # VTK cell types that fill a volume (tetra, voxel, hexahedron, wedge, pyramid,
 # quadratic tetra/hexa/wedge/pyramid); everything else is drawn as a surface
 _VOLUME_CELLS = frozenset({10, 11, 12, 13, 14, 24, 25, 26, 27, 29, 32, 33})
@@ -286,13 +286,20 @@ def _level_groups(multiplets, by_degree: bool) -> list[list[dict]]:
     return out
 
 
-def mode_fields(names) -> dict[int, tuple[str, str]]:
-    """``{mode index: (array name, energy text)}`` for the point arrays named ``mode0007_E=...``."""
+def mode_fields(names, energies=None) -> dict[int, tuple[str, str]]:
+    """``{mode index: (array name, energy text)}`` for the point arrays ``psi_0007`` (or ``psi_0007_re``).
+
+    ``energies`` is the file's ``energy`` field data (index order), where it has one; the energy
+    text is then the energy to 6 significant digits, else empty.
+    """
     out = {}
     for name in names:
         match = _FIELD.match(name)
         if match:
-            out[int(match.group(1))] = (name, match.group(2))
+            i = int(match.group(1))
+            text = f"{float(energies[i]):.6g}" if energies is not None and i < len(energies) else ""
+            if i not in out or not name.endswith("_re"):
+                out[i] = (name, text)
     return out
 
 
@@ -403,7 +410,8 @@ def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
         except Exception as exc:  # vtk raises assorted types for unreadable files
             raise MeshError(f"cannot read the mode file ({type(exc).__name__}: {exc})".replace("\n", " "),
                             str(vtu_path)) from None
-        fields = mode_fields(grid.point_data.keys())
+        energies = np.asarray(grid.field_data["energy"]) if "energy" in grid.field_data.keys() else None
+        fields = mode_fields(grid.point_data.keys(), energies)
         missing = [i for i in indices if i not in fields]
         if missing:
             raise MeshError(f"mode(s) {missing} not in the file; it holds {len(fields)} modes", str(vtu_path))
