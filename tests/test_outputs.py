@@ -558,7 +558,7 @@ def test_spectrum_with_no_modes_is_written_and_read_back(tmp_path):
     assert (tmp_path / "out" / "spectrum.csv").read_text().splitlines()[0].split(",")[:6] == CSV_COLUMNS
     assert len((tmp_path / "out" / "spectrum.csv").read_text().splitlines()) == 1
     mesh = meshio.read(tmp_path / "out" / "modes.vtu")
-    assert [n for n in mesh.point_data if n.startswith("mode")] == []
+    assert [n for n in mesh.point_data if n.startswith("psi_")] == []
 
 
 def test_spectrum_with_no_modes_has_a_repr():
