@@ -170,3 +170,44 @@ def test_complex_modes_and_currents_are_written_under_their_names(tmp_path):
 def _series(folder):
     root = ET.parse(folder / "series.pvd").getroot()
     return [(d.get("timestep"), folder / d.get("file")) for d in root.iter("DataSet")]
+
+
+def test_pvd_series_keeps_track_names_and_signs_through_the_steps(tmp_path):
+    from shellmodes.studies.sweep import run_sweep
+
+    amplitudes = [-0.1, 0.0, 0.1]  # oblate through the sphere (5-fold l = 2 degeneracy) to prolate
+    case = case_from_dict({"surface": {"shape": "star", "radius": 1.0,
+                                       "deformation": [{"l": 2, "m": 0, "amplitude": -0.1}]},
+                           "resolution": {"degree": 2, "subdivisions": 1}, "modes": {"count": 9},
+                           "sweep": {"workers": 1, "parameters": [
+                               {"key": "surface.deformation[0].amplitude", "values": amplitudes},
+                               {"key": "surface.radius", "values": [1.0, 1.1, 1.2]}]}})
+    result = run_sweep(case, tmp_path / "sweep")
+    folder = tmp_path / "sweep"
+    assert not (folder / ".track-states").exists()
+    series = _series(folder)
+    # clean time values: the first key's values as written in the case, no float noise
+    assert [t for t, _ in series] == [repr(a) for a in amplitudes]
+    reader = pv.get_reader(folder / "series.pvd")
+    assert reader.time_values == amplitudes
+    names, grids = None, []
+    for k, t in enumerate(reader.time_values):
+        reader.set_active_time_value(t)
+        grid = reader.read()[0]
+        grids.append(grid)
+        these = sorted(grid.point_data.keys())
+        assert these == [f"track_{i:02d}" for i in range(len(result.tracks))]
+        names = names or these
+        assert these == names  # the same names at every step: a viewer keeps its colouring
+        # every swept key recorded at every step
+        assert grid.field_data["surface.deformation[0].amplitude"][0] == amplitudes[k]
+        assert grid.field_data["surface.radius"][0] == pytest.approx([1.0, 1.1, 1.2][k], rel=1e-15)
+        energies = {r["track"]: r["energy"] for r in result.rows if r["step"] == k}
+        np.testing.assert_array_equal(grid.field_data["track_energy"][list(energies)], list(energies.values()))
+    # signs consistent step to step: each track's state overlaps its previous state positively.  The
+    # nodal (not mass-weighted) dot product serves as the sign test, both steps numbering nodes alike.
+    for before, after in zip(grids, grids[1:]):
+        for name in names:
+            a, b = np.asarray(before.point_data[name]), np.asarray(after.point_data[name])
+            if np.all(np.isfinite(a)) and np.all(np.isfinite(b)):
+                assert np.dot(a, b) > 0.5 * np.linalg.norm(a) * np.linalg.norm(b), name

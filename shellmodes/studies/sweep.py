@@ -614,9 +614,12 @@ class _Collector:
     """
 
     def __init__(self, out: Path, steps, min_overlap: float):
+        from shellmodes.studies.sweep_files import TrackStates
         from shellmodes.studies.sweep_track import LevelTracker
 
         self.out, self.steps = out, list(steps)
+        #: each step's track states, signs made consistent, kept on disk for series.pvd
+        self.states = TrackStates(out)
         self.tracker = LevelTracker(min_overlap=min_overlap)
         self.rows, self.next, self.ready = [], 0, set()
         #: mass matrices assembled by local workers, by step index (else assembled here when needed)
@@ -644,6 +647,9 @@ class _Collector:
             triples = self.tracker.add(StepModes(
                 vectors=vectors, eigenvalues=np.array([m["eigenvalue"] for m in modes]), groups=groups,
                 labels=[m["l"] for m in modes], M=M))
+            mode_group = {j: h for h, members in enumerate(groups) for j in members}
+            multiplet_of = {track: mode_group[j] for j, track, _ in triples}
+            self.states.add(step.index, *self.tracker.states(), multiplet_of)
             for j, track, overlap in triples:
                 mode = modes[j]
                 self.rows.append({"step": step.index, **dict(step.values), "track": track, "mode": j,

@@ -1,10 +1,17 @@
 """The files of a whole sweep: sweep.csv, sweep.json, levels.png and series.pvd.
 
-``series.pvd`` is a VTK collection in ParaView's open PVD XML format: one
-``DataSet`` per step pointing at ``steps/step-XXXX/modes.vtu``, its
-``timestep`` the value of the first swept key (or the step index when those
-values are not strictly monotonic, since a viewer orders data sets by
-timestep), so that a viewer's time control scrubs through the deformation.
+``series.pvd`` is a VTK collection in the open PVD XML format: one
+``DataSet`` per step pointing at ``series/step-XXXX.vtu``, its ``timestep``
+the value of the first swept key rounded to 12 significant digits (or the
+step index when those values are not strictly monotonic, since a viewer
+orders data sets by timestep), so that a viewer's time control scrubs
+through the deformation.  Each step's file holds one point array per tracked
+level with the same name at every step (``track_02``, :func:`track_array_name`;
+NaN where the track does not exist at that step), its state's sign (inside a
+degenerate multiplet: the multiplet's basis) made consistent from step to
+step (:class:`TrackStates`), and as field data the step index, the value of
+every swept key (under the key's name), and per track its energy, mode index
+and parent l (NaN or -1 where absent).
 
 ``levels.png`` draws energy against the first swept key, one line per track,
 coloured by the track's parent l with the palette below (our own choice:
@@ -25,7 +32,8 @@ import numpy as np
 
 from shellmodes.io.outputs import atomic_directory
 
-__all__ = ["write_sweep_files", "LEVEL_COLOURS", "colour_of", "SWEEP_FIELDS"]
+__all__ = ["write_sweep_files", "LEVEL_COLOURS", "colour_of", "SWEEP_FIELDS", "TrackStates", "track_array_name",
+           "TRACK_STATES"]
 
 #: colours of parent degrees l = 0, 1, 2, ... (cycled); chosen for this project
 LEVEL_COLOURS = ("#1b1b1b", "#c0392b", "#2471a3", "#229954", "#d68910", "#7d3c98", "#17a589", "#a04000",
@@ -35,6 +43,69 @@ UNLABELLED = "#b3b6b7"
 SWEEP_FIELDS = ("track", "mode", "energy", "eigenvalue", "parent_l", "overlap", "residual")
 
 
+#: hidden folder of the sweep where the collector keeps each step's track states until series.pvd is written
+TRACK_STATES = ".track-states"
+
+
+def track_array_name(track: int) -> str:
+    """The point-array name of a tracked level in the series files: ``track_02``."""
+    return f"track_{int(track):02d}"
+
+
+class TrackStates:
+    """Each step's track states on disk (``.track-states/step-XXXX.npz``), turned to follow the previous step.
+
+    Inside a degenerate multiplet a track has no state of its own (any basis of the multiplet is one),
+    so the written states are the basis of the multiplet's span closest to the same tracks' states at
+    the previous step: B Q with B the tracker's states of the multiplet and Q the orthogonal polar
+    factor of B^T P (orthogonal Procrustes; P the previous states, nodal inner product, the steps
+    numbering nodes alike).  For a single level this is the sign that makes its overlap with the
+    previous state positive.  A track's first state is signed so its largest value is positive.
+    """
+
+    def __init__(self, folder, create: bool = True):
+        self.folder = Path(folder) / TRACK_STATES
+        if create:
+            self.folder.mkdir(parents=True, exist_ok=True)
+        self.last: dict = {}
+
+    def add(self, step: int, ids, states, multiplet_of: dict | None = None) -> None:
+        """Save the states (N, k) of tracks ``ids``; ``multiplet_of[track]`` groups them by multiplet."""
+        from scipy.linalg import svd
+
+        states = np.array(states, dtype=float, copy=True)
+        ids = [int(t) for t in ids]
+        groups: dict = {}
+        for k, track in enumerate(ids):
+            groups.setdefault((multiplet_of or {}).get(track, ("alone", k)), []).append(k)
+        for members in groups.values():
+            known = [k for k in members if ids[k] in self.last and self.last[ids[k]].shape == states[:, k].shape]
+            fresh = [k for k in members if k not in known]
+            if known:
+                B = states[:, members]
+                P = np.column_stack([self.last[ids[k]] for k in known])
+                W, _, Vt = svd(B.T @ P)  # (m, m), (p, p)
+                Q = np.hstack([W[:, :len(known)] @ Vt, W[:, len(known):]])
+                turned = B @ Q
+                states[:, known + fresh] = turned
+            for k in fresh:
+                u = states[:, k]
+                if u[np.argmax(np.abs(u))] < 0:
+                    states[:, k] = -u
+        self.last = {track: states[:, k].copy() for k, track in enumerate(ids)}
+        tmp = self.folder / f".step-{step:04d}.npz"
+        with open(tmp, "wb") as f:
+            np.savez(f, ids=np.asarray(ids, dtype=np.int64), states=states)
+        tmp.replace(self.folder / f"step-{step:04d}.npz")
+
+    def load(self, step: int):
+        path = self.folder / f"step-{step:04d}.npz"
+        if not path.is_file():
+            return None
+        with np.load(path) as data:
+            return data["ids"], data["states"]
+
+
 def colour_of(l) -> str:
     return UNLABELLED if l is None else LEVEL_COLOURS[int(l) % len(LEVEL_COLOURS)]
 
@@ -42,11 +113,16 @@ def colour_of(l) -> str:
 def _timesteps(result) -> tuple[list[float], str]:
     if not result.steps:
         return [], "step"
-    values = [s.values[0][1] for s in result.steps]
+    values = [_clean(s.values[0][1]) for s in result.steps]
     d = np.diff(values)
     if len(values) == 1 or np.all(d > 0) or np.all(d < 0):
         return values, result.keys[0]
     return [float(s.index) for s in result.steps], "step"
+
+
+def _clean(value: float) -> float:
+    """A swept value without float noise (0.30000000000000004 -> 0.3): 12 significant digits."""
+    return float(f"{float(value):.12g}")
 
 
 def _csv_text(result) -> str:
@@ -86,15 +162,57 @@ def _json_data(result, case) -> dict:
     }
 
 
-def _collection_text(result) -> str:
+def _collection_text(result, written) -> str:
     root = ET.Element("VTKFile", type="Collection", version="0.1", byte_order="LittleEndian")
     collection = ET.SubElement(root, "Collection")
     times, _ = _timesteps(result)
+    _, axis = _timesteps(result)
+    root.insert(0, ET.Comment(f" timestep: {axis}; swept keys per step are field data of each file: "
+                              f"{', '.join(result.keys)} "))
     for step, t in zip(result.steps, times):
-        ET.SubElement(collection, "DataSet", timestep=repr(float(t)), group="", part="0",
-                      file=f"steps/{step.folder_name}/modes.vtu")
+        if step.index in written:
+            ET.SubElement(collection, "DataSet", timestep=repr(float(t)), group="", part="0",
+                          file=f"series/{step.folder_name}.vtu")
     ET.indent(root)
     return '<?xml version="1.0"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
+
+
+def _write_series(result, folder: Path) -> set:
+    """series/step-XXXX.vtu for every tracked step: one array per track, same names at every step."""
+    import meshio
+
+    from shellmodes.io.outputs import write_vtu
+
+    states = TrackStates(result.folder, create=False)
+    tracks = [t["track"] for t in result.tracks]
+    by_step: dict = {}
+    for row in result.rows:
+        by_step.setdefault(row["step"], {})[row["track"]] = row
+    written = set()
+    (folder / "series").mkdir()
+    for step in result.steps:
+        loaded = states.load(step.index)
+        if loaded is None:
+            continue
+        ids, vectors = loaded
+        mesh = meshio.read(result.folder / "steps" / step.folder_name / "modes.vtu")
+        column = {int(t): k for k, t in enumerate(ids)}
+        point_data = {}
+        for t in tracks:
+            point_data[track_array_name(t)] = vectors[:, column[t]] if t in column else \
+                np.full(len(mesh.points), np.nan)
+        rows = by_step.get(step.index, {})
+        field_data = {"step": np.array([step.index]),
+                      **{key: np.array([_clean(v)]) for key, v in step.values},
+                      "track_energy": np.array([rows[t]["energy"] if t in rows else np.nan for t in tracks]),
+                      "track_mode": np.array([rows[t]["mode"] if t in rows else -1 for t in tracks]),
+                      "track_parent_l": np.array([-1 if t["parent_l"] is None else t["parent_l"]
+                                                  for t in result.tracks])}
+        cell_data = {k: v for k, v in mesh.cell_data.items() if k == "region"}
+        write_vtu(folder / "series" / f"{step.folder_name}.vtu", mesh.points, mesh.cells, point_data=point_data,
+                  cell_data=cell_data, field_data=field_data)
+        written.add(step.index)
+    return written
 
 
 def _plot_levels(result, case, path: Path) -> None:
@@ -131,9 +249,10 @@ def _plot_levels(result, case, path: Path) -> None:
 
 def write_sweep_files(result, case) -> Path:
     """Write sweep.csv, sweep.json, levels.png and series.pvd of ``result`` into ``result.folder``."""
-    with atomic_directory(result.folder) as tmp:
+    with atomic_directory(result.folder, stale=(TRACK_STATES,)) as tmp:
         (tmp / "sweep.csv").write_text(_csv_text(result))
         (tmp / "sweep.json").write_text(json.dumps(_json_data(result, case), indent=2) + "\n")
-        (tmp / "series.pvd").write_text(_collection_text(result))
+        written = _write_series(result, tmp)
+        (tmp / "series.pvd").write_text(_collection_text(result, written))
         _plot_levels(result, case, tmp / "levels.png")
     return result.folder
