@@ -33,7 +33,7 @@ STAGES = [
     ("pipeline", ["pipeline"]),
     ("outputs", ["io.pictures", "io.outputs", "io"]),
     ("studies", ["studies"]),
-    ("report", ["io.report"]),
+    ("report", ["io.report", "io.report_folders"]),
     ("cli", ["cli", "__main__"]),
 ]
 
