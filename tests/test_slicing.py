@@ -245,7 +245,7 @@ def test_slices_on_a_scheduler_address():
     problem = _problem({"shape": "sphere"}, 2, 3)
     args = dict(lower_bound=0.0, scale=problem.spectral_scale, slice_modes=16)
     serial = sliced_modes(problem.K, problem.M, 64, workers=1, **args)
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0",
                                   scheduler_kwargs={"dashboard": False}) as cluster:
         remote = sliced_modes(problem.K, problem.M, 64, scheduler=cluster.scheduler_address, **args)
     assert np.allclose(remote.lam, serial.lam, rtol=1e-12, atol=0)

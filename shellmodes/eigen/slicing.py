@@ -354,7 +354,7 @@ class _Dask:
                 self.name = f"dask scheduler {scheduler}"
             else:
                 self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                            dashboard_address=None, scheduler_kwargs={"dashboard": False},
+                                            dashboard_address=":0", scheduler_kwargs={"dashboard": False},
                                             memory_limit=0)
                 self.client = Client(self.cluster, set_as_default=False)
                 self.name = f"{workers} local dask worker processes"
