@@ -29,6 +29,7 @@ from shellmodes.case.schema import Case
 from shellmodes.eigen.planner import Problem, Solved, SolverPlan, plan_solver, solve_plan
 from shellmodes.errors import CaseError, ProblemError, ShellmodesError
 from shellmodes.fem.discretisation import Discretisation, build_discretisation, fixed_walls
+from shellmodes.io import progress
 from shellmodes.spectrum.labelling import Labels, label_modes
 from shellmodes.spectrum.multiplets import Spectrum
 
@@ -59,6 +60,7 @@ def solve_case(case: Case, problem: Problem, scale: EnergyScale) -> tuple[Solver
     below = None if modes.below is None else scale.eigenvalue(modes.below)
     try:
         plan = plan_solver(problem, modes)
+        progress.stage(f"assembling and solving ({plan.path}, {problem.disc.ndofs} unknowns)")
         solved = solve_plan(plan, problem, modes, count=modes.count, below=below)
         if len(solved.pairs.lam) == 0:
             lowest = float(solve_plan(plan, problem, modes, count=1).pairs.lam[0])
@@ -97,6 +99,7 @@ def run_case(case: Case) -> Spectrum:
     check_resources(case)  # the memory guard: refuse before any mesh or matrix is built
     t_start = time.perf_counter()
     scale = energy_scale(case)
+    progress.stage("building the mesh")
     disc = build_discretisation(case)
     t_mesh = time.perf_counter() - t_start
     problem = build_problem(case, disc, scale)
@@ -104,6 +107,8 @@ def run_case(case: Case) -> Spectrum:
     plan, solved = solve_case(case, problem, scale)
     t_solve = time.perf_counter() - t_solve - problem.timings.get("assembly", 0.0)
     energies = scale.energies(solved.pairs.lam)
+    progress.note_count_raised(case.modes.count, len(solved.pairs.lam), case.source)
+    progress.stage("labelling the multiplets")
     labels = label_modes(problem, plan, solved, scale, case.modes.multiplet_tolerance)
     solved.messages.extend(labels.messages)
     timings = {"mesh": t_mesh, "assembly": problem.timings.get("assembly", 0.0), "eigensolve": t_solve,

@@ -14,7 +14,6 @@ def add_command(subparsers) -> None:
     r = subparsers.add_parser("run", help="solve one case file")
     r.add_argument("case", help="TOML case file")
     r.add_argument("--out", help="output folder (default: the case file's name beside it)")
-    r.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
     r.add_argument("--report", action="store_true", help="also write report.html (needs the plot extra)")
     r.set_defaults(func=main)
 

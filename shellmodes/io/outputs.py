@@ -58,15 +58,16 @@ def _write_json(spectrum, folder: Path):
 
 @register("spectrum.csv")
 def _write_csv(spectrum, folder: Path):
+    from shellmodes.spectrum.tables import csv_headings, csv_row
+
     rows = spectrum.modes_table()
     buf = io.StringIO()
     names = ["index", "energy", "eigenvalue", "multiplet", "l", "residual"]
     names += [k for k in ("dominant_l", "l_weight", "mean_L2", "abs_m") if rows and k in rows[0]]
     names += [k for k in spectrum.mode_columns if k not in names]
-    writer = csv.DictWriter(buf, fieldnames=names, lineterminator="\n")
-    writer.writeheader()
-    for row in rows:
-        writer.writerow({**row, "l": "" if row["l"] is None else row["l"]})
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(csv_headings(names, spectrum.info.get("units", {})))
+    writer.writerows(csv_row(row, names) for row in rows)
     (folder / "spectrum.csv").write_text(buf.getvalue())
 
 

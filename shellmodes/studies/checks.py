@@ -193,14 +193,31 @@ def _electron():
 
 
 def run_checks(only: str | None = None) -> list[CheckResult]:
+    """Run the validation set (or the checks whose name contains ``only``).
+
+    Parameters
+    ----------
+    only : str, optional
+        Run only checks whose name contains this text.
+
+    Returns
+    -------
+    list of CheckResult
+        One result per check run, in the order of :data:`CHECKS`; progress goes to
+        :mod:`shellmodes.io.progress` (one step per check).
+    """
+    from shellmodes.io import progress
+
+    chosen = [(name, entry) for name, entry in CHECKS.items() if not only or only in name]
     out = []
-    for name, (fn, source, tol) in CHECKS.items():
-        if only and only not in name:
-            continue
-        t0 = time.perf_counter()
-        value, reference, error = fn()
-        out.append(CheckResult(name, float(value), float(reference), float(error), float(tol), source,
-                               time.perf_counter() - t0))
+    with progress.task("checks", len(chosen), "check") as bar:
+        for name, (fn, source, tol) in chosen:
+            progress.stage(name)
+            t0 = time.perf_counter()
+            value, reference, error = fn()
+            out.append(CheckResult(name, float(value), float(reference), float(error), float(tol), source,
+                                   time.perf_counter() - t0))
+            bar.advance()
     return out
 
 

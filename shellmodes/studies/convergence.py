@@ -525,14 +525,14 @@ _CSV_FIELDS = ["index", "size", "l", "eigenvalue", "extrapolated", "error", "rel
 def write_study(study: ConvergenceStudy, folder) -> Path:
     """Write ``convergence.json`` and ``convergence.csv`` into ``folder`` (all or nothing)."""
     from shellmodes.io.outputs import atomic_directory
+    from shellmodes.spectrum.tables import csv_cell
 
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=_CSV_FIELDS, lineterminator="\n")
     writer.writeheader()
     for row in study.rows:
         d = row.as_dict()
-        writer.writerow({k: ("" if d[k] is None else " ".join(map(str, d[k])) if k == "modes"
-                             else "yes" if d[k] is True else "no" if d[k] is False else d[k])
+        writer.writerow({k: " ".join(map(str, d[k])) if k == "modes" and d[k] is not None else csv_cell(d[k])
                          for k in _CSV_FIELDS})
     with atomic_directory(folder) as tmp:
         (tmp / "convergence.json").write_text(json.dumps(study.as_dict(), indent=2) + "\n")

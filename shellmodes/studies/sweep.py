@@ -552,7 +552,7 @@ def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | N
     if scheduler:
         check_scheduler_address(scheduler, case.source)
     check_writable(out, case.source)
-    require_plot_extra("a sweep's levels.png", case.source, modules=("matplotlib",), extra="sweep")
+    require_plot_extra("a sweep's levels.png", case.source, modules=("matplotlib",))
     if invalid is not None and not steps:
         raise SweepStopped(f"{invalid.reason}; no step was solved", invalid.source, invalid.key, None)
     steps_dir = out / "steps"

@@ -1,0 +1,214 @@
+"""A user's first hour: one install, progress and silence, readable tables and CSV.
+
+Each test names the item of the first-hour list it guards (install 1, progress 3-5, tables 9 and 13).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import logging
+import sys
+from pathlib import Path
+
+import pytest
+
+from shellmodes.cli.progress import TerminalReporter
+from shellmodes.io import progress
+from shellmodes.spectrum.tables import clean_zeros, csv_cell, csv_key
+
+ROOT = Path(__file__).resolve().parent.parent
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+SPHERE = """\
+[surface]
+shape = "sphere"
+[resolution]
+degree = 2
+subdivisions = 1
+[modes]
+count = {count}
+"""
+
+
+def _case(tmp_path, text, name="case.toml") -> Path:
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+# -- item 1: one install ------------------------------------------------------------------------
+
+def test_pictures_renders_and_progress_are_ordinary_dependencies():
+    project = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]
+    required = {d.split(">")[0].split("[")[0].split(";")[0].strip() for d in project["dependencies"]}
+    assert {"pyvista", "matplotlib", "tqdm"} <= required
+    # heavy optional parts stay optional
+    assert not {"dask", "pypardiso", "python-mumps", "scikit-sparse"} & required
+
+
+def test_readme_opens_with_one_paragraph_and_two_commands():
+    text = (ROOT / "README.md").read_text()
+    commands = [line.strip() for line in text.splitlines() if line.startswith("    python3 -m pip install")]
+    assert commands[0].endswith("python3 -m shellmodes run cases/unit-sphere.toml")
+    assert any("[test]" in c and c.endswith("python3 -m pytest -q") for c in commands)
+
+
+# -- items 3-5: progress and silence ----------------------------------------------------------
+
+def test_quiet_and_verbose_are_accepted_after_the_command_too(tmp_path, run_cli):
+    case = _case(tmp_path, SPHERE.format(count=4))
+    after = run_cli("run", case, "--out", tmp_path / "a", "-q")
+    before = run_cli("-q", "run", case, "--out", tmp_path / "b")
+    assert after.status == before.status == 0
+    assert after.stdout == before.stdout == "" and after.stderr == before.stderr == ""
+    loud = run_cli("run", case, "--out", tmp_path / "c", "-v")
+    assert loud.status == 0 and "building the mesh" in loud.stderr
+
+
+def test_verbose_without_a_terminal_has_no_carriage_returns_and_no_third_party_logs(tmp_path, run_cli):
+    case = _case(tmp_path, SPHERE.format(count=4))
+    result = run_cli("run", case, "--out", tmp_path / "out", "--verbose")
+    assert result.status == 0
+    assert "\r" not in result.stderr and "\r" not in result.stdout
+    assert "assembling and solving" in result.stderr
+    # our own logger says INFO with -v; the libraries' loggers stay at WARNING
+    assert logging.getLogger("shellmodes.pipeline").getEffectiveLevel() == logging.INFO
+    for name in ("matplotlib", "pyvista", "distributed", "numba", "PIL"):
+        assert logging.getLogger(name).getEffectiveLevel() >= logging.WARNING, name
+
+
+def test_raising_the_mode_count_to_finish_a_multiplet_is_said(tmp_path, run_cli):
+    # the sphere's l = 1 level is threefold (modes 1, 2, 3): asking for 2 modes gets 4
+    case = _case(tmp_path, SPHERE.format(count=2))
+    result = run_cli("run", case, "--out", tmp_path / "out")
+    assert result.status == 0
+    assert "modes.count raised from 2 to 4" in result.stderr
+    quiet = run_cli("run", case, "--out", tmp_path / "out", "-q")
+    assert quiet.stderr == ""
+
+
+def test_terminal_reporter_draws_bars_on_a_terminal_and_plain_lines_elsewhere():
+    stream = io.StringIO()
+    with progress.reporting(TerminalReporter(bars=True, stream=stream)):
+        with progress.task("refinements", 3, "solve") as t:
+            for s in (1, 2, 3):
+                progress.stage(f"subdivisions {s}")
+                t.advance(subdivisions=s)
+        progress.note("something to know")
+    drawn = stream.getvalue()
+    assert "refinements" in drawn and "\r" in drawn and "note: something to know" in drawn
+
+    plain = io.StringIO()
+    with progress.reporting(TerminalReporter(verbose=True, stream=plain)):  # StringIO is no terminal
+        with progress.task("checks", 2, "check") as t:
+            t.advance()
+            t.advance()
+        progress.note("said once")
+        progress.note("said once")
+    text = plain.getvalue()
+    assert "\r" not in text
+    assert "checks: 2 of 2 done" in text
+    assert text.count("note: said once") == 1
+
+
+def test_library_progress_is_silent_without_a_reporter(capsys):
+    with progress.task("nothing", 2) as t:
+        t.advance()
+    progress.stage("quiet")
+    progress.note("unheard")
+    assert capsys.readouterr() == ("", "")
+
+
+def test_thin_shell_has_out_and_quiet_and_writes_files(tmp_path, run_cli):
+    case = _case(tmp_path, SPHERE.format(count=4))
+    out = tmp_path / "thin"
+    result = run_cli("thin-shell", case, "--thickness", "0.2", "--out", out, "-q")
+    assert result.status == 0, result.stderr
+    assert result.stdout == ""
+    assert sorted(p.name for p in out.iterdir()) == ["thin-shell.csv", "thin-shell.json"]
+    rows = list(csv.DictReader((out / "thin-shell.csv").open()))
+    assert [csv_key(h) for h in rows[0]][:3] == ["mode", "surface", "d=0.2"]
+
+
+# -- items 9 and 13: tables and CSV -----------------------------------------------------------
+
+def test_terminal_table_names_its_columns_and_prints_exact_zeros_as_0(tmp_path, run_cli):
+    case = _case(tmp_path, SPHERE.format(count=4))
+    result = run_cli("run", case, "--out", tmp_path / "out")
+    lines = result.stdout.splitlines()
+    head = next(line for line in lines if "multiplet" in line)
+    for column in ("multiplet", "E [hbar^2/(2 m L^2)]", "lambda [1/L^2]", "rel. spread", "max residual"):
+        assert column in head
+    first = lines[lines.index(head) + 2].split()
+    assert first[:3] == ["0", "0", "0"]  # the constant mode's eigenvalue is exactly 0 (rounding below 1e-10)
+    assert "[1]" not in result.stdout
+    assert any("in units of hbar^2/(2 m L^2)" in line for line in lines)
+
+
+def test_shell_table_shows_radial_order_n(tmp_path, run_cli):
+    text = """\
+[shell]
+inner = { shape = "sphere", radius = 1.0 }
+outer = { shape = "sphere", radius = 2.0 }
+cells = "prisms"
+layers = 1
+radial_degree = 4
+[resolution]
+degree = 2
+subdivisions = 1
+[modes]
+count = 4
+"""
+    result = run_cli("run", _case(tmp_path, text), "--out", tmp_path / "out")
+    assert result.status == 0, result.stderr
+    head = next(line for line in result.stdout.splitlines() if "multiplet" in line).split()
+    assert "n" in head and "l" in head
+
+
+def test_csv_cells_are_plain():
+    assert [csv_cell(v) for v in (True, False, None, float("nan"), 2, 0.5)] == ["true", "false", "", "", 2, 0.5]
+    # rounding noise of an exact zero (the constant mode) becomes 0; a small real value stays
+    assert clean_zeros([-4.6e-14, 1e-6, 2.0]).tolist() == [0.0, 1e-6, 2.0]
+
+
+def test_torus_csv_leaves_l_empty_and_has_units_in_headers(tmp_path, run_cli):
+    text = """\
+[surface]
+shape = "torus"
+major_radius = 2.0
+minor_radius = 1.0
+[units]
+length = "nm"
+energy = "meV"
+[resolution]
+degree = 2
+subdivisions = 1
+[modes]
+count = 3
+"""
+    out = tmp_path / "out"
+    assert run_cli("run", _case(tmp_path, text), "--out", out, "-q").status == 0
+    rows = list(csv.DictReader((out / "spectrum.csv").open()))
+    assert "energy [meV]" in rows[0] and "eigenvalue [1/nm^2]" in rows[0]
+    assert all(row["l"] == "" for row in rows)
+    assert "nan" not in (out / "spectrum.csv").read_text().lower()
+
+
+@pytest.mark.parametrize("case_name, axisymmetric", [("unit-sphere.toml", True),
+                                                     ("squashed-nanoshell.toml", False)])
+def test_abs_m_is_in_the_outputs_where_the_readme_says(case_name, axisymmetric, tmp_path, run_cli):
+    # the README lists abs_m among the modes' fields for axisymmetric shapes (|m| is a good quantum
+    # number only there); the squashed nanoshell has a Y_22 term
+    text = (ROOT / "cases" / case_name).read_text()
+    text = text.replace("degree = 4", "degree = 2").replace("subdivisions = 4", "subdivisions = 1")
+    out = tmp_path / "out"
+    result = run_cli("run", _case(tmp_path, text), "--out", out, "-q")
+    assert result.status == 0, result.stderr
+    head = (out / "spectrum.csv").read_text().splitlines()[0].split(",")
+    assert ("abs_m" in head) == axisymmetric
+    assert "abs_m (axisymmetric shapes)" in (ROOT / "README.md").read_text()
