@@ -17,6 +17,7 @@ __all__ = [
     "DoubtfulResultWarning",
     "MultipletCutWarning",
     "MeshQualityWarning",
+    "RenamedKeyWarning",
 ]
 
 
@@ -85,3 +86,7 @@ class MultipletCutWarning(UserWarning):
 
 class MeshQualityWarning(UserWarning):
     """The mesh is valid but badly shaped for accurate results."""
+
+
+class RenamedKeyWarning(FutureWarning):
+    """A case file uses an old name of a key or value; it still works (see :mod:`shellmodes.case.aliases`)."""

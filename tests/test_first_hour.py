@@ -212,3 +212,77 @@ def test_abs_m_is_in_the_outputs_where_the_readme_says(case_name, axisymmetric, 
     head = (out / "spectrum.csv").read_text().splitlines()[0].split(",")
     assert ("abs_m" in head) == axisymmetric
     assert "abs_m (axisymmetric shapes)" in (ROOT / "README.md").read_text()
+
+
+# -- item 14: names ---------------------------------------------------------------------------
+
+def test_old_names_keep_working_with_a_one_line_warning(tmp_path):
+    import warnings
+
+    from shellmodes.case.schema import load_case
+    from shellmodes.errors import RenamedKeyWarning
+
+    path = _case(tmp_path, """\
+[surface]
+shape = "star"
+radius = 2.0
+deformation = [{ l = 2, m = 0, amplitude = 0.05 }]
+[output]
+pictures = true
+picture_modes = 2
+""")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        case = load_case(path)
+    assert case.surface.shape == "deformed_sphere" and case.output.picture_multiplets == 2
+    texts = [str(w.message) for w in caught if issubclass(w.category, RenamedKeyWarning)]
+    assert len(texts) == 2 and all("\n" not in t and str(path) in t for t in texts)
+    assert any("'deformed_sphere'" in t for t in texts) and any("output.picture_multiplets" in t for t in texts)
+
+
+def test_bundled_cases_and_docs_use_the_new_names():
+    for path in (ROOT / "cases").glob("*.toml"):
+        text = path.read_text()
+        assert '"star"' not in text and "picture_modes" not in text, path.name
+    keys = (ROOT / "docs" / "CASE_KEYS.md").read_text()
+    assert 'shape = "deformed_sphere"' in keys and "output.picture_multiplets" in keys
+
+
+def test_thin_shell_table_names_its_rows_for_what_they_hold():
+    import numpy as np
+
+    from shellmodes.studies.thin_shell import ThinShellComparison
+
+    result = ThinShellComparison(thickness=(0.1,), surface=np.array([0.0, 2.0]),
+                                 shell={0.1: np.array([987.0, 989.0])}, energy_per_lambda=None, energy_unit="1")
+    table = result.table()
+    assert "hbar^2 pi^2/(2 m d^2)" in table and "pi^2/d^2 " not in table
+    assert "bridge" not in table and "references." not in table
+
+
+# -- item 16: schema ----------------------------------------------------------------------------
+
+def test_schema_has_an_id_a_shape_discriminator_and_a_description_on_every_key():
+    from shellmodes.case.schema import case_schema
+
+    schema = case_schema()
+    assert schema["$id"].startswith("urn:")
+    surface = schema["properties"]["surface"]["anyOf"][0]
+    assert surface["discriminator"]["propertyName"] == "shape"
+    assert "deformed_sphere" in surface["discriminator"]["mapping"]
+
+    missing = []
+
+    def visit(node, where):
+        if isinstance(node, dict):
+            for name, prop in (node.get("properties") or {}).items():
+                if not prop.get("description"):
+                    missing.append(f"{where}.{name}")
+            for key, value in node.items():
+                visit(value, f"{where}/{key}")
+        elif isinstance(node, list):
+            for value in node:
+                visit(value, where)
+
+    visit(schema, "")
+    assert missing == []

@@ -67,16 +67,16 @@ def case_keys_markdown() -> str:
     from shellmodes.case.schema import (
         CapSurface,
         DeformationTerm,
+        DeformedSphereSurface,
         EllipsoidSurface,
         MeshSurface,
         SnapTarget,
         SphereSurface,
         SpheroidSurface,
-        StarSurface,
         TorusSurface,
     )
 
-    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
+    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, DeformedSphereSurface, TorusSurface, CapSurface,
                 MeshSurface):
         shape = cls.model_fields["shape"].annotation.__args__[0]
         out += ["", f"## [surface] with shape = \"{shape}\"", "", "| key | type | default | meaning |",

@@ -55,7 +55,7 @@ def build_shape(case: Case):
     name = spec.pop("shape")
     spec.pop("rim", None)
     try:
-        if name == "star":
+        if name == "deformed_sphere":
             spec["deformation"] = [(d["l"], d["m"], d["amplitude"]) for d in spec["deformation"]]
         if name == "mesh":
             path = Path(spec["file"])
@@ -66,7 +66,7 @@ def build_shape(case: Case):
             if snap is not None:
                 snap_name = snap.pop("shape")
                 params = {k: v for k, v in snap.items() if v is not None}
-                if snap_name == "star":
+                if snap_name == "deformed_sphere":
                     params["deformation"] = [(d["l"], d["m"], d["amplitude"])
                                              for d in snap.get("deformation") or ()]
                 target = make_shape(snap_name, **params)
@@ -240,7 +240,7 @@ def spherically_symmetric(case: Case) -> bool:
     if shell.file is not None or case.potential is not None:
         return False
     walls = [w for w in (shell.inner, *shell.interfaces, shell.outer) if w is not None]
-    return all(w.shape == "sphere" or (w.shape == "star" and not w.deformation) for w in walls)
+    return all(w.shape == "sphere" or (w.shape == "deformed_sphere" and not w.deformation) for w in walls)
 
 
 def shell_level(case: Case) -> int:

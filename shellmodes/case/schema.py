@@ -17,6 +17,7 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, NonNegativeInt, ValidationError, field_validator, model_validator
 
+from shellmodes.case.aliases import upgrade, warn_renamed
 from shellmodes.case.expression import ExpressionError, compile_expression
 from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
 from shellmodes.errors import CaseError
@@ -57,7 +58,7 @@ class _Table(BaseModel):
 
 
 class DeformationTerm(_Table):
-    """One term a_lm Y_lm of a star-shaped radius r = R (1 + sum a_lm Y_lm)."""
+    """One term a_lm Y_lm of a harmonically deformed sphere's radius r = R (1 + sum a_lm Y_lm)."""
 
     l: int = Field(ge=0, le=40, description="degree of the real spherical harmonic")
     m: int = Field(description="order, -l <= m <= l (m > 0 cosine-like, m < 0 sine-like)")
@@ -96,8 +97,10 @@ class SpheroidSurface(_Table):
         return self
 
 
-class StarSurface(_Table):
-    shape: Literal["star"]
+class DeformedSphereSurface(_Table):
+    """A harmonically deformed sphere r = R (1 + sum a_lm Y_lm) (old shape name: star)."""
+
+    shape: Literal["deformed_sphere"]
     radius: Length = Field(1.0, description="mean radius R")
     deformation: tuple[DeformationTerm, ...] = Field((), description="terms of r = R(1 + sum a_lm Y_lm)")
 
@@ -140,13 +143,14 @@ def _check_shape_keys(table, keys: dict, what: str):
 
 
 _WALL_KEYS = {"sphere": (("radius",), ()), "ellipsoid": (("axes",), ()),
-              "spheroid": (("equatorial_radius", "polar_radius"), ()), "star": (("radius",), ("deformation",))}
+              "spheroid": (("equatorial_radius", "polar_radius"), ()),
+              "deformed_sphere": (("radius",), ("deformation",))}
 
 _SNAP_KEYS = {  # shape -> (required keys, optional keys)
     "sphere": ((), ("radius",)),
     "ellipsoid": (("axes",), ()),
     "spheroid": (("equatorial_radius", "polar_radius"), ()),
-    "star": ((), ("radius", "deformation")),
+    "deformed_sphere": ((), ("radius", "deformation")),
     "torus": (("major_radius", "minor_radius"), ()),
 }
 
@@ -154,14 +158,15 @@ _SNAP_KEYS = {  # shape -> (required keys, optional keys)
 class SnapTarget(_Table):
     """An analytic shape to snap an imported mesh's geometry nodes onto (keys as for that shape)."""
 
-    shape: Literal["sphere", "ellipsoid", "spheroid", "star", "torus"]
-    radius: Length | None = None
-    axes: tuple[Length, Length, Length] | None = None
-    equatorial_radius: Length | None = None
-    polar_radius: Length | None = None
-    deformation: tuple[DeformationTerm, ...] | None = None
-    major_radius: Length | None = None
-    minor_radius: Length | None = None
+    shape: Literal["sphere", "ellipsoid", "spheroid", "deformed_sphere", "torus"]
+    radius: Length | None = Field(None, description="sphere or deformed_sphere: radius R")
+    axes: tuple[Length, Length, Length] | None = Field(None, description="ellipsoid: semi-axes along x, y, z")
+    equatorial_radius: Length | None = Field(None, description="spheroid: semi-axis in the x-y plane")
+    polar_radius: Length | None = Field(None, description="spheroid: semi-axis along z")
+    deformation: tuple[DeformationTerm, ...] | None = Field(None, description="deformed_sphere: terms of "
+                                                              "r = R(1 + sum a_lm Y_lm)")
+    major_radius: Length | None = Field(None, description="torus: distance from the z axis to the tube centre")
+    minor_radius: Length | None = Field(None, description="torus: tube radius")
 
     @model_validator(mode="after")
     def _keys_of_shape(self):
@@ -176,20 +181,22 @@ class MeshSurface(_Table):
 
 
 Surface = Annotated[
-    SphereSurface | EllipsoidSurface | SpheroidSurface | StarSurface | TorusSurface | CapSurface | MeshSurface,
+    SphereSurface | EllipsoidSurface | SpheroidSurface | DeformedSphereSurface | TorusSurface | CapSurface
+    | MeshSurface,
     Field(discriminator="shape"),
 ]
 
 
 class Wall(_Table):
-    """A closed wall of a shell: sphere, ellipsoid, spheroid or star-shaped surface about the origin."""
+    """A closed wall of a shell: sphere, ellipsoid, spheroid or harmonically deformed sphere about the origin."""
 
-    shape: Literal["sphere", "ellipsoid", "spheroid", "star"]
-    radius: Length | None = Field(None, description="sphere or star: radius R")
+    shape: Literal["sphere", "ellipsoid", "spheroid", "deformed_sphere"]
+    radius: Length | None = Field(None, description="sphere or deformed_sphere: radius R")
     axes: tuple[Length, Length, Length] | None = Field(None, description="ellipsoid: semi-axes")
     equatorial_radius: Length | None = Field(None, description="spheroid: semi-axis in the x-y plane")
     polar_radius: Length | None = Field(None, description="spheroid: semi-axis along z")
-    deformation: tuple[DeformationTerm, ...] | None = Field(None, description="star: r = R(1 + sum a_lm Y_lm)")
+    deformation: tuple[DeformationTerm, ...] | None = Field(None, description="deformed_sphere: "
+                                                              "r = R(1 + sum a_lm Y_lm)")
 
     @model_validator(mode="after")
     def _keys_of_shape(self):
@@ -408,7 +415,8 @@ class Output(_Table):
     vtu: bool = Field(True, description="write modes.vtu with every mode as a point field")
     pictures: bool = Field(False, description="also write levels.png and off-screen renders mode-NNNN.png "
                                               "(cut views for shells; needs the plot extra and vtu = true)")
-    picture_modes: int = Field(4, ge=1, le=100, description="how many multiplets to render (one mode each)")
+    picture_multiplets: int = Field(4, ge=1, le=100, description="how many multiplets to render, one mode of each "
+                                    "(old name: picture_modes)")
 
     @model_validator(mode="after")
     def _pictures_need_vtu(self):
@@ -510,14 +518,14 @@ def _model_of(annotation):
 
 
 def _variant(tag):
-    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
+    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, DeformedSphereSurface, TorusSurface, CapSurface,
                 MeshSurface):
         if cls.model_fields["shape"].annotation.__args__[0] == tag:
             return cls
     return None
 
 
-_TAGS = {"sphere", "ellipsoid", "spheroid", "star", "torus", "cap", "mesh"}
+_TAGS = {"sphere", "ellipsoid", "spheroid", "deformed_sphere", "torus", "cap", "mesh"}
 
 
 def _validator_label(part: str) -> bool:
@@ -595,6 +603,8 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
         raise CaseError("a case must be a table of tables", source)
     if "source" in data:
         raise CaseError("unknown key; 'source' is reserved", source, "source")
+    renamed: list = []
+    data = upgrade(data, source, renamed)  # old names of keys and values: warned once the case validates
     # a table given as None (e.g. from Case.model_dump) counts as absent
     data = {k: v for k, v in data.items() if not (k in ("surface", "shell", "potential", "sweep") and v is None)}
     if "surface" not in data and "shell" not in data:
@@ -603,7 +613,9 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
     if "surface" in data and "shell" in data:
         raise CaseError("give [surface] or [shell], not both", source, "shell")
     try:
-        return Case.model_validate({**_tuples(data), "source": source})
+        case = Case.model_validate({**_tuples(data), "source": source})
+        warn_renamed(renamed)
+        return case
     except RecursionError:
         raise CaseError(f"the case is nested more than {MAX_NESTING} levels deep", source) from None
     except ValidationError as exc:
@@ -648,4 +660,37 @@ def case_schema() -> dict:
     schema["oneOf"] = [{"required": ["surface"], "not": {"required": ["shell"]}},
                        {"required": ["shell"], "not": {"required": ["surface"]}}]
     schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["$id"] = SCHEMA_ID
+    schema["description"] = ("A shellmodes case file: one geometry table ([surface] or [shell]) and optional "
+                             "tables for resolution, particle, units, potential, modes, output, sweep and limits.")
+    _describe_every_key(schema)
     return schema
+
+
+#: the schema's identifier: a URN (the project publishes no web address for it)
+SCHEMA_ID = "urn:shellmodes:case-file:schema:1"
+
+
+def _describe_every_key(schema: dict) -> None:
+    """Give every property a description: a table its model's docstring, a shape tag the family it picks."""
+    defs = schema.get("$defs", {})
+
+    def visit(node):
+        if isinstance(node, dict):
+            for name, prop in (node.get("properties") or {}).items():
+                if "description" in prop:
+                    continue
+                if name == "shape":
+                    allowed = prop.get("enum") or [prop.get("const")]
+                    prop["description"] = "which shape this table describes: " + ", ".join(map(str, allowed))
+                    continue
+                ref = prop.get("$ref") or next((a.get("$ref") for a in prop.get("anyOf", []) if "$ref" in a), None)
+                target = defs.get(ref.rsplit("/", 1)[-1], {}) if ref else {}
+                prop["description"] = target.get("description") or f"the [{name}] table"
+            for value in node.values():
+                visit(value)
+        elif isinstance(node, list):
+            for value in node:
+                visit(value)
+
+    visit(schema)

@@ -262,7 +262,7 @@ def _separates(case) -> bool:
     if case.modes.method not in ("auto", "separable"):
         return False
     walls = [w for w in (shell.inner, *shell.interfaces, shell.outer) if w is not None]
-    if not all(w.shape == "sphere" or (w.shape == "star" and not w.deformation) for w in walls):
+    if not all(w.shape == "sphere" or (w.shape == "deformed_sphere" and not w.deformation) for w in walls):
         return False
     from shellmodes.case.model import energy_scale, radial_potential
 

@@ -88,7 +88,7 @@ def _write_vtu(spectrum, folder: Path):
 
 
 def _write_pictures(spectrum, folder: Path):
-    """levels.png and one render per multiplet (first ``output.picture_modes``), when the case asks."""
+    """levels.png and one render per multiplet (first ``output.picture_multiplets``), when the case asks."""
     output = (spectrum.info.get("case") or {}).get("output") or {}
     if not output.get("pictures") or not (folder / "modes.vtu").exists():
         return
@@ -96,7 +96,7 @@ def _write_pictures(spectrum, folder: Path):
 
     data = spectrum_json(spectrum)
     spectrum_picture(data, folder / "levels.png", title=(spectrum.info.get("case") or {}).get("title") or None)
-    chosen = [m.members[0] for m in spectrum.multiplets[: output.get("picture_modes", 4)]]
+    chosen = [m.members[0] for m in spectrum.multiplets[: output.get("picture_multiplets", 4)]]
     render_modes(folder / "modes.vtu", chosen, str(folder / "mode-{index:04d}.png"),
                  unit=spectrum.info["units"]["energy"])
 

@@ -244,7 +244,7 @@ def perturbation_rows(shape, eigenvalues, multiplets, energy_per_lambda: float =
     the amplitudes shrink (differences O(a^2)).  Energies are eigenvalues times
     ``energy_per_lambda``; shapes other than deformed stars give no rows.
     """
-    if shape.name != "star" or not shape.deformation:
+    if shape.name != "deformed_sphere" or not shape.deformation:
         return []
     e0 = energy_per_lambda
     labels = np.full(len(eigenvalues), -1)

@@ -90,11 +90,11 @@ def _offset_wall(surface: dict, delta: float, key: str, source: str) -> dict:
     if shape == "sphere":
         radius = surface["radius"] + delta
         wall = {"shape": "sphere", "radius": radius}
-    elif shape == "star":
+    elif shape == "deformed_sphere":
         R = surface["radius"]
         radius = R + delta
         # r = R (1 + sum a Y) + delta = (R + delta)(1 + sum a R/(R + delta) Y): constant thickness
-        wall = {"shape": "star", "radius": radius,
+        wall = {"shape": "deformed_sphere", "radius": radius,
                 "deformation": [{**t, "amplitude": t["amplitude"] * R / radius} for t in surface["deformation"]]}
     elif shape == "ellipsoid":
         radius = min(surface["axes"]) + delta
@@ -105,7 +105,7 @@ def _offset_wall(surface: dict, delta: float, key: str, source: str) -> dict:
                 "polar_radius": surface["polar_radius"] + delta}
     else:
         raise CaseError(f"value {shape!r}: the thin-shell comparison needs a closed shape about the origin; "
-                        "allowed: sphere, star, ellipsoid, spheroid", source, "surface.shape")
+                        "allowed: sphere, deformed_sphere, ellipsoid, spheroid", source, "surface.shape")
     if radius <= 0:
         raise CaseError(f"thickness {2 * abs(delta)!r} is too large for this surface (inner wall radius "
                         f"{radius:.3g} <= 0)", source, key)
