@@ -263,7 +263,7 @@ def test_thin_shell_table_names_its_rows_for_what_they_hold():
 # -- item 16: schema ----------------------------------------------------------------------------
 
 def test_schema_has_an_id_a_shape_discriminator_and_a_description_on_every_key():
-    from shellmodes.case.schema import case_schema
+    from shellmodes.case.schema import case_schema, schema_properties
 
     schema = case_schema()
     assert schema["$id"].startswith("urn:")
@@ -271,18 +271,5 @@ def test_schema_has_an_id_a_shape_discriminator_and_a_description_on_every_key()
     assert surface["discriminator"]["propertyName"] == "shape"
     assert "deformed_sphere" in surface["discriminator"]["mapping"]
 
-    missing = []
-
-    def visit(node, where):
-        if isinstance(node, dict):
-            for name, prop in (node.get("properties") or {}).items():
-                if not prop.get("description"):
-                    missing.append(f"{where}.{name}")
-            for key, value in node.items():
-                visit(value, f"{where}/{key}")
-        elif isinstance(node, list):
-            for value in node:
-                visit(value, where)
-
-    visit(schema, "")
+    missing = [f"{where}.{name}" for where, name, prop in schema_properties(schema) if not prop.get("description")]
     assert missing == []

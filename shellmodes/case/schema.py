@@ -671,26 +671,28 @@ def case_schema() -> dict:
 SCHEMA_ID = "urn:shellmodes:case-file:schema:1"
 
 
+def schema_properties(node, where: str = ""):
+    """Every ``(path, name, property)`` of a JSON Schema: the top level and every nested table and ``$defs``."""
+    if isinstance(node, dict):
+        for name, prop in (node.get("properties") or {}).items():
+            yield where, name, prop
+        for key, value in node.items():
+            yield from schema_properties(value, f"{where}/{key}")
+    elif isinstance(node, list):
+        for value in node:
+            yield from schema_properties(value, where)
+
+
 def _describe_every_key(schema: dict) -> None:
     """Give every property a description: a table its model's docstring, a shape tag the family it picks."""
     defs = schema.get("$defs", {})
-
-    def visit(node):
-        if isinstance(node, dict):
-            for name, prop in (node.get("properties") or {}).items():
-                if "description" in prop:
-                    continue
-                if name == "shape":
-                    allowed = prop.get("enum") or [prop.get("const")]
-                    prop["description"] = "which shape this table describes: " + ", ".join(map(str, allowed))
-                    continue
-                ref = prop.get("$ref") or next((a.get("$ref") for a in prop.get("anyOf", []) if "$ref" in a), None)
-                target = defs.get(ref.rsplit("/", 1)[-1], {}) if ref else {}
-                prop["description"] = target.get("description") or f"the [{name}] table"
-            for value in node.values():
-                visit(value)
-        elif isinstance(node, list):
-            for value in node:
-                visit(value)
-
-    visit(schema)
+    for _, name, prop in list(schema_properties(schema)):
+        if "description" in prop:
+            continue
+        if name == "shape":
+            allowed = prop.get("enum") or [prop.get("const")]
+            prop["description"] = "which shape this table describes: " + ", ".join(map(str, allowed))
+            continue
+        ref = prop.get("$ref") or next((a.get("$ref") for a in prop.get("anyOf", []) if "$ref" in a), None)
+        target = defs.get(ref.rsplit("/", 1)[-1], {}) if ref else {}
+        prop["description"] = target.get("description") or f"the [{name}] table"
