@@ -11,6 +11,7 @@ import logging
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from shellmodes.cli.progress import TerminalReporter
@@ -273,3 +274,35 @@ def test_schema_has_an_id_a_shape_discriminator_and_a_description_on_every_key()
 
     missing = [f"{where}.{name}" for where, name, prop in schema_properties(schema) if not prop.get("description")]
     assert missing == []
+
+
+# -- item 15: sample meshes travel with the package -----------------------------------------------
+
+def test_a_copied_scanned_mesh_case_still_finds_its_mesh(tmp_path):
+    from shellmodes.case.model import build_shape
+    from shellmodes.case.schema import load_case
+
+    copy = tmp_path / "elsewhere" / "scanned-pebble.toml"
+    copy.parent.mkdir()
+    copy.write_text((ROOT / "cases" / "scanned-pebble.toml").read_text())
+    shape = build_shape(load_case(copy))
+    assert shape.name == "mesh" and shape.closed
+    # the pebble r = 1 + 0.15 cos 2theta + 0.05 sin^3 theta cos 3phi lies between 0.8 and 1.2 of the origin
+    # (the formula in meshes/make_samples.py; bounds from |0.15| + |0.05|)
+    r = np.linalg.norm(shape.data.points, axis=1)
+    assert 0.8 - 1e-9 <= r.min() and r.max() <= 1.2 + 1e-9  # the bounds are attained: rounding allowed
+
+
+def test_an_unknown_sample_is_refused_naming_the_ones_shipped(tmp_path, run_cli):
+    case = _case(tmp_path, '[surface]\nshape = "mesh"\nfile = "sample:pebble7.vtu"\n')
+    result = run_cli("run", case, "--out", tmp_path / "out")
+    assert result.status == 2
+    assert "surface.file" in result.stderr and "sample:pebble6.vtu" in result.stderr
+    assert result.stderr.count("\n") == 1
+    assert not (tmp_path / "out").exists()
+
+
+def test_sample_meshes_are_package_data():
+    project = tomllib.loads((ROOT / "pyproject.toml").read_text())
+    data = project["tool"]["setuptools"]["package-data"]["shellmodes"]
+    assert "samples/*.vtu" in data and "samples/*.stl" in data

@@ -49,6 +49,17 @@ def _versions() -> dict:
 
 
 # --------------------------------------------------------------------------------------------- surfaces
+def mesh_file(case: Case, value: str, key: str) -> Path:
+    """The mesh file a case names (a ``sample:`` name or a path relative to the case file)."""
+    from shellmodes.errors import ProblemError
+    from shellmodes.meshfiles.samples import resolve_mesh_file
+
+    try:
+        return resolve_mesh_file(value, case.base_dir, key)
+    except ProblemError as exc:
+        raise CaseError(exc.reason, case.source, exc.key) from None
+
+
 def build_shape(case: Case):
     """The :class:`~shellmodes.shapes.Shape` a surface case describes."""
     spec = case.surface.model_dump()
@@ -58,9 +69,7 @@ def build_shape(case: Case):
         if name == "deformed_sphere":
             spec["deformation"] = [(d["l"], d["m"], d["amplitude"]) for d in spec["deformation"]]
         if name == "mesh":
-            path = Path(spec["file"])
-            if not path.is_absolute():
-                path = case.base_dir / path
+            path = mesh_file(case, spec["file"], "surface.file")
             snap = spec.pop("snap")
             target = None
             if snap is not None:

@@ -175,7 +175,8 @@ class SnapTarget(_Table):
 
 class MeshSurface(_Table):
     shape: Literal["mesh"]
-    file: str = Field(description="mesh file (.vtu .vtk .msh .stl .obj .ply), relative to the case file")
+    file: str = Field(description="mesh file (.vtu .vtk .msh .stl .obj .ply), relative to the case file; or "
+                      "'sample:NAME' for a mesh shipped with shellmodes (sample:pebble6.vtu, sample:pebble.stl)")
     snap: SnapTarget | None = Field(None, description="snap geometry nodes onto this exact shape")
     rim: Rim = Field("dirichlet", description="condition on the rim of an open mesh")
 

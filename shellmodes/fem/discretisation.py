@@ -24,7 +24,6 @@ import warnings
 from abc import ABC, abstractmethod
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import ClassVar
 
 import numpy as np
@@ -476,9 +475,9 @@ def _tetrahedra(case: Case) -> TetrahedralDiscretisation:
 
     shell, res = case.shell, case.resolution
     if shell.file is not None:
-        path = Path(shell.file)
-        if not path.is_absolute():
-            path = case.base_dir / path
+        from shellmodes.case.model import mesh_file
+
+        path = mesh_file(case, shell.file, "shell.file")
         try:
             return TetrahedralDiscretisation(read_volume_mesh(
                 path, degree=res.degree, require_regions=bool(shell.regions), quadrature_order=res.quadrature_order))
