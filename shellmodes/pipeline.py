@@ -126,6 +126,11 @@ def _measure(problem: Problem, solved: Solved) -> float:
     return float(ones @ (problem.operators.M @ ones))
 
 
+#: run.log's words for each discretisation (no Python reprs reach the user)
+_CELLS = {"surface": "curved triangles on a surface", "tetrahedra": "curved tetrahedra in a 3-D shell or ball",
+          "prisms": "layered curved prisms in a 3-D shell or ball"}
+
+
 def _spectrum(case: Case, problem: Problem, plan: SolverPlan, solved: Solved, labels: Labels, scale: EnergyScale,
               energies: np.ndarray, timings: dict) -> Spectrum:
     """Package solved and labelled modes with their units, mesh, plan and timing records."""
@@ -146,7 +151,7 @@ def _spectrum(case: Case, problem: Problem, plan: SolverPlan, solved: Solved, la
              "energy_scale": scale.origin,
              "eigenvalue": f"1/{case.units.length}^2" if case.units.length != "1" else "1"}
     run_versions = versions()
-    lines = [f"case: {case.source}", f"{disc.kind}: {disc!r}",
+    lines = [f"case: {case.source}", f"cells: {_CELLS.get(disc.kind, disc.kind)}",
              f"{disc.describe()}, {measure_name} = {measure:.10g}" + (
                  f" ({problem.nfree} free)" if problem.nfree < disc.ndofs else ""),
              plan.describe(),

@@ -306,3 +306,19 @@ def test_sample_meshes_are_package_data():
     project = tomllib.loads((ROOT / "pyproject.toml").read_text())
     data = project["tool"]["setuptools"]["package-data"]["shellmodes"]
     assert "samples/*.vtu" in data and "samples/*.stl" in data
+
+
+def test_run_log_has_no_python_reprs_and_help_loads_no_numerics(tmp_path, run_cli):
+    import re
+    import subprocess
+
+    case = _case(tmp_path, SPHERE.format(count=4))
+    assert run_cli("run", case, "--out", tmp_path / "out", "-q").status == 0
+    log = (tmp_path / "out" / "run.log").read_text()
+    assert not re.search(r"[A-Z]\w+\(\w+=", log), log  # e.g. CurvedSurface(degree=...)
+    assert "cells: curved triangles on a surface" in log
+    # item 2: --help parses the commands without loading numpy, scipy or any solver (the start stays quick)
+    code = ("import sys\nfrom shellmodes.cli import main\ntry:\n    main(['--help'])\nexcept SystemExit:\n    pass\n"
+            "print(sorted(m for m in ('numpy', 'scipy', 'skfem', 'pyvista', 'matplotlib') if m in sys.modules))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, timeout=120)
+    assert done.stdout.strip().splitlines()[-1] == "[]"
