@@ -94,8 +94,10 @@ def run_case(case: Case) -> Spectrum:
     >>> [m.size for m in s.multiplets]
     [1, 3]
     """
+    from shellmodes.eigen.extras import check_extras
     from shellmodes.eigen.resources import check_resources
 
+    check_extras(case)  # optional parts the case names (back-end, AMG, scheduler): before anything is built
     check_resources(case)  # the memory guard: refuse before any mesh or matrix is built
     t_start = time.perf_counter()
     scale = energy_scale(case)

@@ -322,3 +322,27 @@ def test_run_log_has_no_python_reprs_and_help_loads_no_numerics(tmp_path, run_cl
             "print(sorted(m for m in ('numpy', 'scipy', 'skfem', 'pyvista', 'matplotlib') if m in sys.modules))")
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, timeout=120)
     assert done.stdout.strip().splitlines()[-1] == "[]"
+
+
+def test_a_missing_optional_part_is_refused_before_solving(tmp_path, run_cli, monkeypatch):
+    import importlib.util
+
+    from shellmodes.eigen.backends import BACKENDS
+
+    monkeypatch.setitem(BACKENDS, "mumps", {**BACKENDS["mumps"], "available": lambda: False})
+    case = _case(tmp_path, SPHERE.format(count=4) + 'backend = "mumps"\n')
+    result = run_cli("run", case, "--out", tmp_path / "out")
+    assert result.status == 2 and result.stderr.count("\n") == 1
+    assert "modes.backend" in result.stderr and "shellmodes[mumps]" in result.stderr
+    assert not (tmp_path / "out").exists()
+
+    real = importlib.util.find_spec
+    monkeypatch.setattr(importlib.util, "find_spec", lambda name, *a: None if name == "distributed" else real(name, *a))
+    sweep = _case(tmp_path, SPHERE.format(count=4) + """\
+[sweep]
+scheduler = "tcp://127.0.0.1:1"
+parameters = [{ key = "surface.radius", values = [1.0, 2.0] }]
+""", "sweep.toml")
+    result = run_cli("sweep", sweep, "--out", tmp_path / "sweep-out")
+    assert result.status == 2 and "sweep.scheduler" in result.stderr and "shellmodes[sweep]" in result.stderr
+    assert not (tmp_path / "sweep-out").exists()

@@ -24,6 +24,9 @@ def main(args) -> int:
 
     case_path = Path(args.case)
     case = load_case(case_path)
+    from shellmodes.eigen.extras import check_extras
+
+    check_extras(case)  # a scheduler without dask is refused before any step starts
     out = Path(args.out) if args.out else default_out(case_path)
     from shellmodes.io.progress import task
 
