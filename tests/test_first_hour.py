@@ -346,3 +346,24 @@ parameters = [{ key = "surface.radius", values = [1.0, 2.0] }]
     result = run_cli("sweep", sweep, "--out", tmp_path / "sweep-out")
     assert result.status == 2 and "sweep.scheduler" in result.stderr and "shellmodes[sweep]" in result.stderr
     assert not (tmp_path / "sweep-out").exists()
+
+
+def test_shell_regions_is_now_media_and_errors_name_the_key_as_written():
+    import warnings
+
+    from shellmodes.case.schema import case_from_dict
+    from shellmodes.errors import CaseError, RenamedKeyWarning
+
+    walls = {"inner": {"shape": "sphere", "radius": 1.0}, "interfaces": [{"shape": "sphere", "radius": 1.5}],
+             "outer": {"shape": "sphere", "radius": 2.0}, "layers": 1}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        case = case_from_dict({"shell": {**walls, "regions": [{"name": "a"}, {"name": "b", "offset": 1.0}]}})
+    assert [m.name for m in case.shell.media] == ["a", "b"] and case.shell.regions == case.shell.media
+    assert any(issubclass(w.category, RenamedKeyWarning) and "shell.media" in str(w.message) for w in caught)
+    with pytest.raises(CaseError) as bad:
+        case_from_dict({"shell": {**walls, "regions": [{"name": "a"}, {"effective_mass": 0.0}]}})
+    assert bad.value.key == "shell.regions[1].effective_mass"  # the file's own words
+    with pytest.raises(CaseError) as bad:
+        case_from_dict({"shell": {**walls, "media": [{"name": "a"}, {"effective_mass": 0.0}]}})
+    assert bad.value.key == "shell.media[1].effective_mass"

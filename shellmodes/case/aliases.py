@@ -5,7 +5,8 @@ Names changed so that they say what they are:
 - ``shape = "star"`` is ``shape = "deformed_sphere"`` (a sphere whose radius is harmonically
   deformed, r = R (1 + sum a_lm Y_lm)), for surfaces, snap targets and shell walls;
 - ``output.picture_modes`` is ``output.picture_multiplets`` (it counts multiplets, one mode
-  rendered from each).
+  rendered from each);
+- ``shell.regions`` is ``shell.media`` (the materials; ``shell.layers`` is the mesh).
 
 :func:`upgrade` rewrites the parsed tables before validation and warns once per old name with a
 :class:`~shellmodes.errors.RenamedKeyWarning` naming the file, the key and the new name.
@@ -26,12 +27,12 @@ import warnings
 
 from shellmodes.errors import RenamedKeyWarning
 
-__all__ = ["upgrade", "warn_renamed", "OLD_SHAPES", "OLD_KEYS"]
+__all__ = ["upgrade", "warn_renamed", "key_as_written", "OLD_SHAPES", "OLD_KEYS"]
 
 #: old shape value -> new
 OLD_SHAPES = {"star": "deformed_sphere"}
 #: (table, old key) -> new key
-OLD_KEYS = {("output", "picture_modes"): "picture_multiplets"}
+OLD_KEYS = {("output", "picture_modes"): "picture_multiplets", ("shell", "regions"): "media"}
 
 
 def _message(source: str, key: str, old: str, new: str) -> str:
@@ -95,3 +96,19 @@ def upgrade(data: dict, source: str = "<case>", notes: list | None = None) -> di
     else:
         notes.extend(found)
     return data
+
+
+def key_as_written(key: str | None, data: dict) -> str | None:
+    """A dotted case key in the words of the file: ``shell.media[0]`` stays ``shell.regions[0]`` there.
+
+    Used for validation errors, so the one error line names the key the user can find in the file.
+    """
+    if not key or not isinstance(data, dict):
+        return key
+    for (table, old), new in OLD_KEYS.items():
+        section = data.get(table)
+        prefix = f"{table}.{new}"
+        if isinstance(section, dict) and old in section and new not in section and (
+                key == prefix or key.startswith((prefix + ".", prefix + "["))):
+            return f"{table}.{old}" + key[len(prefix):]
+    return key

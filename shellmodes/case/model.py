@@ -308,23 +308,23 @@ def media(case: Case, disc, scale: EnergyScale) -> Media:
     ids = disc.region_ids
     entries_by_id = {}
     named = {name: tag for tag, name in getattr(disc, "region_names", {}).items()}
-    for i, region in enumerate(shell.regions):
+    for i, region in enumerate(shell.media):
         # default tag: the region's place (inside out), or the i-th tag present in a mesh file
         tag = region.tag if region.tag is not None else (ids[i] if shell.file is not None and i < len(ids) else i)
         if isinstance(tag, str):
             if tag not in named:
                 present = ", ".join(sorted(named)) if named else "none (the mesh names no volume regions)"
                 raise CaseError(f"value {tag!r}: no region of that name in the mesh; names present: {present}",
-                                case.source, f"shell.regions[{i}].tag")
+                                case.source, f"shell.media[{i}].tag")
             tag = named[tag]
         if tag not in ids:
             raise CaseError(f"value {tag!r}: no such region in the mesh; regions present: "
-                            f"{', '.join(map(str, ids))}", case.source, f"shell.regions[{i}].tag")
+                            f"{', '.join(map(str, ids))}", case.source, f"shell.media[{i}].tag")
         entries_by_id[tag] = region
     missing = [r for r in ids if r not in entries_by_id]
-    if shell.regions and missing:
-        raise CaseError(f"the mesh has regions {', '.join(map(str, missing))} that shell.regions does not "
-                        "describe; list every region", case.source, "shell.regions")
+    if shell.media and missing:
+        raise CaseError(f"the mesh has regions {', '.join(map(str, missing))} that shell.media does not "
+                        "describe; list every region", case.source, "shell.media")
     # offsets are always in units.energy (whatever potential.unit is)
     offset_scale = 1.0 if (case.units.energy == "1" or scale.per_lambda is None) else 1.0 / scale.per_lambda
     inverse_mass, offsets, names = {}, {}, {}

@@ -17,7 +17,7 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, NonNegativeInt, ValidationError, field_validator, model_validator
 
-from shellmodes.case.aliases import upgrade, warn_renamed
+from shellmodes.case.aliases import key_as_written, upgrade, warn_renamed
 from shellmodes.case.expression import ExpressionError, compile_expression
 from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
 from shellmodes.errors import CaseError
@@ -204,8 +204,8 @@ class Wall(_Table):
         return _check_shape_keys(self, _WALL_KEYS, "wall")
 
 
-class Region(_Table):
-    """One medium of a shell (core, shell, outer medium): its effective mass and band offset."""
+class Medium(_Table):
+    """One medium (material) of a 3-D shell or ball, inside out (core, shell, barrier): mass and band offset."""
 
     name: str = Field("", description="label used in reports")
     tag: NonNegativeInt | str | None = Field(None, description="region id, or its physical name, in a mesh file "
@@ -225,8 +225,10 @@ class Shell(_Table):
     file: str | None = Field(None, description="tetrahedral mesh file instead of walls (tetra or tetra10)")
     inner_condition: Rim = Field("dirichlet", description="condition on the inner wall")
     outer_condition: Rim = Field("dirichlet", description="condition on the outer wall")
-    layers: int | tuple[int, ...] = Field(4, description="radial element layers per medium (one number for all)")
-    regions: tuple[Region, ...] = Field((), description="media inside out; default: one medium per layer gap")
+    layers: int | tuple[int, ...] = Field(4, description="mesh: radial element layers in each medium (one number for "
+                                          "all media)")
+    media: tuple[Medium, ...] = Field((), description="the materials between the walls, inside out (old name: "
+                                      "regions); default: one medium between each pair of walls")
     cells: Literal["tetrahedra", "prisms"] | None = Field(
         None, description="tetrahedra (degree 1-2; mesh files) or layered curved prisms (triangle degree 1-4 "
         "times a radial degree; a ball's innermost layer closes at the centre on one merged dof); default: "
@@ -244,6 +246,11 @@ class Shell(_Table):
         "above a level among the lowest modes.count, next to a medium where that level is allowed) the layers reach "
         "out to where the level's state has fallen by this factor (e.g. 1e-8), judged from the level's energy "
         "(a fine 1-D radial estimate between the walls' mean spheres, offsets only) and the barrier")
+
+    @property
+    def regions(self) -> tuple[Medium, ...]:
+        """The media under their old name (code written against ``shell.regions`` keeps working)."""
+        return self.media
 
     @model_validator(mode="after")
     def _walls_or_file(self):
@@ -267,8 +274,8 @@ class Shell(_Table):
             media = len(self.interfaces) + 1
             if not isinstance(self.layers, int) and len(self.layers) != media:
                 raise ValueError(f"layers has {len(self.layers)} entries for {media} media")
-            if self.regions and len(self.regions) != media:
-                raise ValueError(f"regions has {len(self.regions)} entries but the walls make {media} media")
+            if self.media and len(self.media) != media:
+                raise ValueError(f"media has {len(self.media)} entries but the walls make {media} media")
             for key in ("grading", "layer_boundaries"):
                 value = getattr(self, key)
                 if isinstance(value, tuple) and len(value) != media:
@@ -605,7 +612,7 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
     if "source" in data:
         raise CaseError("unknown key; 'source' is reserved", source, "source")
     renamed: list = []
-    data = upgrade(data, source, renamed)  # old names of keys and values: warned once the case validates
+    written, data = data, upgrade(data, source, renamed)  # old names of keys and values: warned once the case validates
     # a table given as None (e.g. from Case.model_dump) counts as absent
     data = {k: v for k, v in data.items() if not (k in ("surface", "shell", "potential", "sweep") and v is None)}
     if "surface" not in data and "shell" not in data:
@@ -624,7 +631,7 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
         # a typo'd key usually also leaves a required key missing: report the typo first
         first = next((e for e in errors if e["type"] == "extra_forbidden"), errors[0])
         key, message = _format_error(first)
-        raise CaseError(message, source, key or None) from None
+        raise CaseError(message, source, key_as_written(key, written) or None) from None
 
 
 def load_case(path) -> Case:

@@ -480,7 +480,7 @@ def _tetrahedra(case: Case) -> TetrahedralDiscretisation:
         path = mesh_file(case, shell.file, "shell.file")
         try:
             return TetrahedralDiscretisation(read_volume_mesh(
-                path, degree=res.degree, require_regions=bool(shell.regions), quadrature_order=res.quadrature_order))
+                path, degree=res.degree, require_regions=bool(shell.media), quadrature_order=res.quadrature_order))
         except MeshError as exc:
             raise CaseError(exc.reason, exc.source or case.source, "shell.file") from None
     with _shell_errors(case):
