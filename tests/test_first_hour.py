@@ -367,3 +367,14 @@ def test_shell_regions_is_now_media_and_errors_name_the_key_as_written():
     with pytest.raises(CaseError) as bad:
         case_from_dict({"shell": {**walls, "media": [{"name": "a"}, {"effective_mass": 0.0}]}})
     assert bad.value.key == "shell.media[1].effective_mass"
+
+
+def test_convergence_files_say_which_subdivisions_met_the_tolerance(tmp_path, run_cli):
+    case = _case(tmp_path, SPHERE.format(count=4))
+    out = tmp_path / "conv"
+    result = run_cli("converge", case, "--out", out, "--tolerance", "1e-2", "-q")
+    assert result.status == 0, result.stderr
+    head = (out / "convergence.csv").read_text().splitlines()[0].split(",")
+    assert "tolerance_met_at_subdivisions" in head and "reached_at" not in head
+    rows = list(csv.DictReader((out / "convergence.csv").open()))
+    assert {row["asymptotic"] for row in rows} <= {"true", "false"}

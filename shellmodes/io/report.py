@@ -462,9 +462,9 @@ def _study_section(path: Path, data: dict, run: dict | None = None) -> str:
                      _num(r.get("l")), _num(r.get("energy")), _num(r.get("energy_extrapolated")),
                      _sci(r.get("energy_error")), _sci(r.get("relative_error")), _num(r.get("order"), 3),
                      '<span class="tag pass">yes</span>' if ok else '<span class="tag">no</span>',
-                     _num(r.get("reached_at")), *extra])
+                     _num(r.get("tolerance_met_at_subdivisions", r.get("reached_at"))), *extra])
     head = ["#", "modes", "size", "l", f"finest [{unit}]", f"extrapolated [{unit}]", f"error [{unit}]",
-            "rel. error", "order", "asymptotic", "reached at"]
+            "rel. error", "order", "asymptotic", "tolerance met at subdivisions"]
     if mine is not None:
         head.append(f"this run's error [{unit}]")
         whose = ("The last column estimates the error of this run's own levels: |extrapolated − this run|; "

@@ -222,7 +222,7 @@ class ConvergenceRow:
                 "error": self.error, "relative_error": _finite(self.relative_error), "order": _finite(self.order),
                 "asymptotic": self.asymptotic, "energy": self.energy,
                 "energy_extrapolated": self.energy_extrapolated, "energy_error": self.energy_error,
-                "reached_at": self.reached_at}
+                "tolerance_met_at_subdivisions": self.reached_at}
 
 
 @dataclass(frozen=True, eq=False)
@@ -519,7 +519,8 @@ def _rows(done, boundaries, finest_labels, p_expected, bounds, window, e0) -> li
 
 # ----------------------------------------------------------------------------- files and command line
 _CSV_FIELDS = ["index", "size", "l", "eigenvalue", "extrapolated", "error", "relative_error", "order",
-               "asymptotic", "energy", "energy_extrapolated", "energy_error", "reached_at", "modes"]
+               "asymptotic", "energy", "energy_extrapolated", "energy_error",
+               "tolerance_met_at_subdivisions", "modes"]
 
 
 def write_study(study: ConvergenceStudy, folder) -> Path:
