@@ -378,3 +378,54 @@ def test_convergence_files_say_which_subdivisions_met_the_tolerance(tmp_path, ru
     assert "tolerance_met_at_subdivisions" in head and "reached_at" not in head
     rows = list(csv.DictReader((out / "convergence.csv").open()))
     assert {row["asymptotic"] for row in rows} <= {"true", "false"}
+
+
+# -- item 16: the Python API and packaging --------------------------------------------------------
+
+def test_every_public_name_has_numpydoc_sections_and_every_public_function_full_hints():
+    import inspect
+
+    import shellmodes
+
+    sections = ("Parameters", "Returns", "Attributes", "Raises", "Examples", "Yields", "Notes")
+    lacking = []
+    for name in shellmodes.__all__:
+        obj = getattr(shellmodes, name)
+        if not (inspect.isfunction(obj) or inspect.isclass(obj)):
+            continue
+        doc = inspect.getdoc(obj) or ""
+        if not any(f"{s}\n---" in doc for s in sections):
+            lacking.append(f"{name}: no numpydoc section")
+        if inspect.isfunction(obj):
+            sig = inspect.signature(obj)
+            missing = [p for p, v in sig.parameters.items() if v.annotation is inspect.Parameter.empty
+                       and v.kind not in (v.VAR_KEYWORD, v.VAR_POSITIONAL)]
+            if sig.return_annotation is inspect.Signature.empty:
+                missing.append("return")
+            if missing:
+                lacking.append(f"{name}: no type hint on {', '.join(missing)}")
+    assert lacking == []
+
+
+def test_examples_of_the_new_modules_run():
+    import doctest
+
+    import shellmodes.case.aliases
+    import shellmodes.case.schema
+    import shellmodes.errors
+    import shellmodes.io.progress
+    import shellmodes.meshfiles.samples
+    import shellmodes.shapes
+    import shellmodes.spectrum.tables
+
+    for module in (shellmodes.io.progress, shellmodes.spectrum.tables, shellmodes.case.aliases,
+                   shellmodes.meshfiles.samples, shellmodes.errors, shellmodes.shapes, shellmodes.case.schema):
+        failures, tried = doctest.testmod(module)
+        assert tried > 0 and failures == 0, module.__name__
+
+
+def test_pyproject_has_classifiers():
+    text = (ROOT / "pyproject.toml").read_text()
+    project = tomllib.loads(text)["project"]
+    assert "Topic :: Scientific/Engineering :: Physics" in project["classifiers"]
+    assert "Typing :: Typed" in project["classifiers"] and (ROOT / "shellmodes" / "py.typed").exists()

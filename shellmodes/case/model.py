@@ -25,7 +25,7 @@ from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MAS
 from shellmodes.errors import CaseError, GeometryError, MeshError
 from shellmodes.harmonics import angles, real_sph_harm
 from shellmodes.limits import DEFAULT_SHELL_SUBDIVISIONS, DEFAULT_SUBDIVISIONS, MAX_SHELL_SUBDIVISIONS, MAX_SUBDIVISIONS
-from shellmodes.shapes import make_shape
+from shellmodes.shapes import Shape, make_shape
 
 __all__ = ["EnergyScale", "Media", "versions", "build_shape", "energy_scale", "compiled_potential",
            "point_potential", "radial_potential", "wall_function", "shell_walls", "media",
@@ -60,8 +60,24 @@ def mesh_file(case: Case, value: str, key: str) -> Path:
         raise CaseError(exc.reason, case.source, exc.key) from None
 
 
-def build_shape(case: Case):
-    """The :class:`~shellmodes.shapes.Shape` a surface case describes."""
+def build_shape(case: Case) -> Shape:
+    """The :class:`~shellmodes.shapes.Shape` a surface case describes.
+
+    Parameters
+    ----------
+    case : Case
+        A case with a ``[surface]`` table.
+
+    Returns
+    -------
+    Shape
+        The exact map of the surface (a mesh file is read here).
+
+    Raises
+    ------
+    CaseError
+        Impossible parameters or an unreadable mesh, naming the case key.
+    """
     spec = case.surface.model_dump()
     name = spec.pop("shape")
     spec.pop("rim", None)

@@ -444,7 +444,25 @@ class Limits(_Table):
 
 
 class Case(_Table):
-    """A whole case file."""
+    """A whole case file, validated and immutable.
+
+    Attributes
+    ----------
+    title : str
+        Free text shown in reports.
+    surface, shell
+        Exactly one geometry table: a curved surface or a 3-D shell or ball.
+    resolution, particle, units, potential, modes, output, sweep, limits
+        The other tables (``shellmodes keys`` lists every key).
+    source : str
+        Where the case came from (a file name, or ``"<case>"``).
+
+    Examples
+    --------
+    >>> case = case_from_dict({"surface": {"shape": "sphere", "radius": 2.0}})
+    >>> case.surface.radius, case.modes.count
+    (2.0, 20)
+    """
 
     title: str = Field("", description="free text shown in reports")
     surface: Surface | None = Field(None, description="a curved surface (give surface or shell)")
@@ -634,8 +652,18 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
         raise CaseError(message, source, key_as_written(key, written) or None) from None
 
 
-def load_case(path) -> Case:
+def load_case(path: str | Path) -> Case:
     """Read and validate a TOML case file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file; relative mesh files in it are taken from its folder.
+
+    Returns
+    -------
+    Case
+        The validated case.
 
     Raises
     ------
@@ -660,7 +688,19 @@ def load_case(path) -> Case:
 
 
 def case_schema() -> dict:
-    """JSON Schema of the case file (for editors: completion and validation)."""
+    """JSON Schema of the case file (for editors: completion and validation).
+
+    Returns
+    -------
+    dict
+        A draft 2020-12 schema with an ``$id``, a ``shape`` discriminator on the surface union and a
+        description on every key (``shellmodes schema`` prints it).
+
+    Examples
+    --------
+    >>> case_schema()["$id"]
+    'urn:shellmodes:case-file:schema:1'
+    """
     schema = Case.model_json_schema(mode="validation")
     schema.get("properties", {}).pop("source", None)
     schema["title"] = "shellmodes case file"

@@ -24,7 +24,7 @@ import warnings
 from abc import ABC, abstractmethod
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
 import scipy.sparse as sp
@@ -43,6 +43,10 @@ from shellmodes.errors import CaseError, GeometryError, MeshError
 from shellmodes.fem.assemble import restricted
 from shellmodes.fem.forms import expand
 from shellmodes.fem.shellmesh import check_wall_order
+
+if TYPE_CHECKING:
+    from shellmodes.fem.surface import CurvedSurface
+    from shellmodes.shapes import Shape
 
 __all__ = ["Discretisation", "Operators", "ExportCells", "SurfaceDiscretisation", "TetrahedralDiscretisation",
            "PrismDiscretisation", "build_discretisation", "register_builder", "BUILDERS", "discretise",
@@ -270,8 +274,21 @@ class SurfaceDiscretisation(Discretisation):
         return f"mesh: degree {self.degree}, {self.nelements} elements, {self.ndofs} dofs, h = {self.h:.4g}"
 
 
-def discretise(case: Case, shape=None):
-    """The curved Lagrange surface (:class:`~shellmodes.fem.surface.CurvedSurface`) of a surface case."""
+def discretise(case: Case, shape: Shape | None = None) -> CurvedSurface:
+    """The curved Lagrange surface (:class:`~shellmodes.fem.surface.CurvedSurface`) of a surface case.
+
+    Parameters
+    ----------
+    case : Case
+        A case with a ``[surface]`` table.
+    shape : Shape, optional
+        The surface's exact map, if already built (default: from the case).
+
+    Returns
+    -------
+    CurvedSurface
+        Elements and geometry of ``case.resolution`` on the shape.
+    """
     from shellmodes.fem.surface import curved_surface
 
     shape = build_shape(case) if shape is None else shape

@@ -15,11 +15,16 @@ import os
 import re
 import shutil
 import tempfile
+from collections.abc import Iterable
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from shellmodes.io.pictures import ordinary_permissions
+
+if TYPE_CHECKING:
+    from shellmodes.spectrum.multiplets import Spectrum
 
 __all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_field_name", "EXPORTERS", "register",
            "check_writable", "check_run_output", "clear_leftovers", "ordinary_permissions", "RUN_FILES"]
@@ -271,8 +276,28 @@ RUN_FILES = (r"spectrum\.json", r"spectrum\.csv", r"modes\.vtu", r"run\.log", r"
              r"mode-\d+\.png", r"report-.*\.png")
 
 
-def write_outputs(spectrum, folder, files=None) -> Path:
-    """Write every registered output (or ``files``) for ``spectrum`` into ``folder``."""
+def write_outputs(spectrum: Spectrum, folder: str | Path, files: Iterable[str] | None = None) -> Path:
+    """Write every registered output (or ``files``) for ``spectrum`` into ``folder``.
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        A solved spectrum (:func:`shellmodes.run_case`).
+    folder : str or Path
+        The run folder; created if missing.  Files appear all at once or not at all.
+    files : iterable of str, optional
+        Names of the outputs to write (default: every registered one, see :data:`EXPORTERS`).
+
+    Returns
+    -------
+    Path
+        ``folder``.
+
+    Raises
+    ------
+    ValueError
+        An unknown output name.
+    """
     names = list(EXPORTERS) if files is None else list(files)
     unknown = set(names) - set(EXPORTERS)
     if unknown:

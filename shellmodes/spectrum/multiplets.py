@@ -22,6 +22,26 @@ __all__ = ["Multiplet", "Spectrum", "parent_degree", "build_multiplets"]
 
 @dataclass(frozen=True)
 class Multiplet:
+    """One multiplet: a run of modes whose eigenvalues lie within ``modes.multiplet_tolerance``.
+
+    Attributes
+    ----------
+    index : int
+        Position in the spectrum, from 0.
+    members : tuple of int
+        Mode indices.
+    eigenvalue, energy : float
+        Mean eigenvalue (1/L^2) and mean energy (case unit).
+    size : int
+        Number of modes.
+    l, expected_size : int or None
+        Parent degree of the sphere and its 2l+1 (None where no parent is defined, e.g. a torus).
+    spread, relative_spread : float
+        max - min energy, absolute (case unit) and relative to |mean|.
+    subspace_l, subspace_weight, subspace_mean_L2 : float or None
+        Basis-independent angular content of the multiplet's subspace, where analysed.
+    """
+
     index: int
     members: tuple[int, ...]
     eigenvalue: float

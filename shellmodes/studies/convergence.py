@@ -34,6 +34,7 @@ import logging
 import math
 import time
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -44,6 +45,7 @@ from shellmodes.case.schema import Case, case_from_dict
 from shellmodes.errors import CaseError, DoubtfulResultWarning
 from shellmodes.limits import CONVERGE_MAX_SUBDIVISIONS, MAX_SUBDIVISIONS
 from shellmodes.pipeline import run_case
+from shellmodes.spectrum.multiplets import Spectrum
 
 __all__ = ["ConvergenceStudy", "ConvergenceRow", "Refinement", "convergence_study", "expected_order",
            "order_range", "observed_order_three", "extrapolate", "shared_groups", "write_study"]
@@ -229,8 +231,20 @@ class ConvergenceRow:
 class ConvergenceStudy:
     """A case solved at successive refinements, with per-multiplet error bars.
 
-    ``reached`` is the coarsest subdivisions at which every row's estimate met
-    ``tolerance`` (None if not reached or no tolerance was asked for).
+    Attributes
+    ----------
+    refinements : tuple of Refinement
+        One record per solve (subdivisions, dofs, h).
+    rows : tuple of ConvergenceRow
+        One row per multiplet: eigenvalues per refinement, observed order, extrapolated value
+        and error estimate.
+    degree, geometry_degree : int
+        Element and geometry degrees; ``expected_order``/``order_range`` the rates they allow.
+    tolerance : float or None
+        The relative error asked for; ``reached`` is the coarsest subdivisions at which every
+        row's estimate met it (None if not reached or no tolerance was asked for).
+    energy_unit : str
+        Unit of the energy columns; ``energy_per_lambda`` converts eigenvalues.
     """
 
     source: str
@@ -359,7 +373,8 @@ def _size(lam, scale):
 
 
 def convergence_study(case: Case, refinements: int = 3, tolerance: float | None = None,
-                      max_subdivisions: int = CONVERGE_MAX_SUBDIVISIONS, progress=None,
+                      max_subdivisions: int = CONVERGE_MAX_SUBDIVISIONS,
+                      progress: Callable[[int, Spectrum], None] | None = None,
                       order_window: float = DEFAULT_ORDER_WINDOW) -> ConvergenceStudy:
     """Solve ``case`` at successive refinements and estimate each eigenvalue's error.
 

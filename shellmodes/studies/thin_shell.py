@@ -15,6 +15,7 @@ star shapes; approximately constant for ellipsoids).
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass
 
 import numpy as np
@@ -27,6 +28,22 @@ __all__ = ["ThinShellComparison", "thin_shell_comparison", "write_comparison"]
 
 @dataclass(frozen=True)
 class ThinShellComparison:
+    """A surface case beside shells of finite thickness around it.
+
+    Attributes
+    ----------
+    thickness : tuple of float
+        The wall separations d (units.length).
+    surface : ndarray
+        Surface eigenvalues lambda (1/L^2).
+    shell : dict
+        d -> eigenvalues of the shell's lowest radial band.
+    energy_per_lambda : float or None
+        Energy of lambda = 1 in ``energy_unit`` (None: dimensionless).
+    exact : dict or None
+        d -> the exact band of a spherical shell (spheres only).
+    """
+
     thickness: tuple[float, ...]
     surface: np.ndarray            # surface eigenvalues lambda (1/L^2)
     shell: dict                    # d -> shell eigenvalues lambda of the lowest radial band
@@ -112,8 +129,8 @@ def _offset_wall(surface: dict, delta: float, key: str, source: str) -> dict:
     return wall
 
 
-def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subdivisions: int | None = None,
-                          cells: str = "prisms"):
+def thin_shell_comparison(case: Case, thickness: Iterable[float], layers: int | None = None,
+                          subdivisions: int | None = None, cells: str = "prisms") -> ThinShellComparison:
     """Solve ``case`` (a surface case) and the shells of each thickness around it.
 
     ``cells = "prisms"`` (the default) puts one layer of radial degree
