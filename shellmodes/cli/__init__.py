@@ -89,6 +89,10 @@ def main(argv=None) -> int:
     reporter = make_reporter(args)
     _REPORTER.append(reporter)
     try:
+        if args.command != "run":  # under mpiexec every rank would run the whole command and write
+            from shellmodes.cli.mpi_ranks import one_process_only
+
+            one_process_only(args.command)
         with reporting(reporter):
             return args.func(args)
     except ShellmodesError as exc:
