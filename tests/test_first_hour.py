@@ -429,3 +429,12 @@ def test_pyproject_has_classifiers():
     project = tomllib.loads(text)["project"]
     assert "Topic :: Scientific/Engineering :: Physics" in project["classifiers"]
     assert "Typing :: Typed" in project["classifiers"] and (ROOT / "shellmodes" / "py.typed").exists()
+
+
+def test_the_command_line_names_old_keys_after_success_and_keeps_an_error_to_one_line(tmp_path, run_cli):
+    old = SPHERE.format(count=4).replace('shape = "sphere"', 'shape = "star"\nradius = 1.0')
+    done = run_cli("run", _case(tmp_path, old), "--out", tmp_path / "out", "-q")
+    assert done.status == 0
+    assert "is now called 'deformed_sphere'" in done.stderr and done.stderr.count("\n") == 1
+    bad = run_cli("run", _case(tmp_path, old.replace("count = 4", "count = 0"), "bad.toml"), "--out", tmp_path / "x")
+    assert bad.status == 2 and bad.stderr.count("\n") == 1 and bad.stderr.startswith("shellmodes: error:")

@@ -63,8 +63,22 @@ def _parser() -> argparse.ArgumentParser:
 _REPORTER = []
 
 
+#: renamed-key warnings held back until the command succeeds (an error stays one line on its own)
+_RENAMED: list[str] = []
+
+
 def _show_warning(message, category, filename, lineno, file=None, line=None):
+    from shellmodes.errors import RenamedKeyWarning
+
     text = f"warning: {message}"
+    if issubclass(category, RenamedKeyWarning):
+        if text not in _RENAMED:
+            _RENAMED.append(text)
+        return
+    _print_warning(text)
+
+
+def _print_warning(text: str) -> None:
     if _REPORTER and _REPORTER[-1].bars:
         _REPORTER[-1]._line(text)
     else:
@@ -94,7 +108,10 @@ def main(argv=None) -> int:
 
             one_process_only(args.command)
         with reporting(reporter):
-            return args.func(args)
+            status = args.func(args)
+        for text in _RENAMED:  # the command worked: now say which names to update
+            _print_warning(text)
+        return status
     except ShellmodesError as exc:
         print(f"shellmodes: error: {exc}", file=sys.stderr)
         return 2
@@ -115,6 +132,7 @@ def main(argv=None) -> int:
     finally:
         reporter.close()
         _REPORTER.remove(reporter)
+        _RENAMED.clear()
 
 
 #: errors of the storage, not of the program: disk full, file-size limit, quota, read-only file system
