@@ -210,7 +210,7 @@ def thin_shell_comparison(case: Case, thickness: Iterable[float], layers: int | 
         check_resources(shell_case(d, case.modes.count or 20), layers_key="--layers")
     from shellmodes.io import progress
 
-    with progress.task("thin-shell solves (surface, then each thickness)", 1 + len(thickness), "solve") as bar:
+    with progress.task("thin-shell solves", 1 + len(thickness), "solve") as bar:
         surface = run_case(case)
         bar.advance(surface="done")
         count = len(surface.eigenvalues)
