@@ -160,9 +160,10 @@ def task(what: str, total: int | None = None, unit: str = "step") -> Iterator[Ta
 def note_count_raised(requested: int | None, returned: int, source: str = "") -> None:
     """Say that ``modes.count`` was raised from ``requested`` to ``returned`` to finish the last multiplet.
 
-    Nothing is said when no count was requested (``modes.below``) or none was added.
+    Nothing is said when no count was requested (``modes.below``), none was added, or the case is
+    the program's own (a source in angle brackets such as ``<check>``, not a user's file).
     """
-    if requested is not None and returned > requested:
-        where = f"{source}: " if source and source != "<case>" else ""
+    if requested is not None and returned > requested and not source.startswith("<"):
+        where = f"{source}: " if source else ""
         note(f"{where}modes.count raised from {requested} to {returned} so that the last multiplet is complete "
              "(a multiplet is never cut)")
