@@ -318,6 +318,8 @@ BAD = {
     "mass-zero": Bad(appended("\n[particle]\nmass = 0.0\n"), "particle.mass", ("0.0", "greater than")),
     "effective-mass-nan": Bad(appended("\n[particle]\neffective_mass = nan\n"), "particle.effective_mass",
                               ("nan", "finite")),
+    "effective-mass-tiny": Bad(appended("\n[particle]\neffective_mass = 1e-9\n"), "particle.effective_mass",
+                               ("1e-09", "effective masses must lie between", "particle.mass")),
     "subdivisions-10": Bad(edited("subdivisions = 1", "subdivisions = 10"), "resolution.subdivisions",
                            ("10", "less than or equal to 9")),
     "deformation-degree-41": Bad(star("{ l = 41, m = 0, amplitude = 0.01 }"), "surface.deformation[0].l",

@@ -586,9 +586,13 @@ def _format_error(error: dict) -> tuple[str, str]:
     msg = error["msg"].replace("Value error, ", "")
     bound = error.get("ctx", {}).get("ge", error.get("ctx", {}).get("le"))
     if kind in ("greater_than_equal", "less_than_equal") and bound in LENGTH_RANGE:
-        msg = msg.replace("0.000001", "1e-06").replace("1000000", "1e+06") + (
-            f"; lengths must lie between {LENGTH_RANGE[0]:g} and {LENGTH_RANGE[1]:g} in units.length: "
-            "choose a units.length that brings the geometry into that range")
+        msg = msg.replace("0.000001", "1e-06").replace("1000000", "1e+06")
+        if loc and loc[-1] == "effective_mass":  # the one Factor key: a multiple of particle.mass
+            msg += (f"; effective masses must lie between {FACTOR_RANGE[0]:g} and {FACTOR_RANGE[1]:g} "
+                    "times particle.mass")
+        else:
+            msg += (f"; lengths must lie between {LENGTH_RANGE[0]:g} and {LENGTH_RANGE[1]:g} in units.length: "
+                    "choose a units.length that brings the geometry into that range")
     if isinstance(value, float) and math.isnan(value):
         value_text = "nan"
     else:
