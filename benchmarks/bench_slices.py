@@ -36,7 +36,8 @@ from shellmodes.eigen.solve import lowest_modes
 from shellmodes.fem.discretisation import build_discretisation
 from shellmodes.fem.forms import assemble_surface
 
-SHAPE = {"shape": "star", "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}, {"l": 3, "m": 1, "amplitude": 0.05}]}
+SHAPE = {"shape": "deformed_sphere",
+         "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}, {"l": 3, "m": 1, "amplitude": 0.05}]}
 
 
 def load() -> str:

@@ -282,7 +282,7 @@ def test_cli_writes_table_json_and_csv(run_cli, tmp_path):
     data = json.loads((out / "convergence.json").read_text())
     rows = list(csv.DictReader((out / "convergence.csv").open()))
     assert len(rows) == len(data["rows"]) == 2  # l = 0 and l = 1
-    assert [r["size"] for r in rows] == ["1", "3"] and [r["asymptotic"] for r in rows] == ["yes", "yes"]
+    assert [r["size"] for r in rows] == ["1", "3"] and [r["asymptotic"] for r in rows] == ["true", "true"]
     assert [r["subdivisions"] for r in data["refinements"]] == [1, 2, 3]
     assert data["case"]["title"] == "converge probe"  # the configuration, as for spectrum.json
     study = convergence_study(sphere_case(1, 1, count=4))  # the CLI does what the API does

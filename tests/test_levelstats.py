@@ -88,10 +88,11 @@ def test_spacings_tell_poisson_from_wigner():
     assert w["small_fraction"] < 0.1 < p["small_fraction"]  # level repulsion: few small spacings
 
 
-def test_star_classes_and_picture(tmp_path):
+def test_deformed_sphere_classes_and_picture(tmp_path):
     pytest.importorskip("matplotlib")
-    star = {"shape": "star", "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}, {"l": 3, "m": 1, "amplitude": 0.05}]}
-    spectrum = _run(star, 3, 80, degree=2)
+    deformed = {"shape": "deformed_sphere",
+                "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}, {"l": 3, "m": 1, "amplitude": 0.05}]}
+    spectrum = _run(deformed, 3, 80, degree=2)
     stats = spectrum.info["statistics"]
     # Y_20 is even under every mirror; Y_31 ~ x (5 z^2 - r^2) is odd under x -> -x only
     assert stats["classes"]["planes"] == ["y=0", "z=0"] and stats["classes"]["mixed"] is False

@@ -78,8 +78,9 @@ def test_planted_boundaries_inside_multiplets_are_moved(sphere):
 
 
 def test_slices_match_single_shift():
-    star = {"shape": "star", "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}, {"l": 3, "m": 1, "amplitude": 0.05}]}
-    problem = _problem(star, 2, 3)
+    deformed = {"shape": "deformed_sphere",
+                "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}, {"l": 3, "m": 1, "amplitude": 0.05}]}
+    problem = _problem(deformed, 2, 3)
     scale = problem.spectral_scale
     single = lowest_modes(problem.K, problem.M, 80, lower_bound=0.0, scale=scale, method="lanczos")
     sliced = sliced_modes(problem.K, problem.M, 80, lower_bound=0.0, scale=scale, slice_modes=20, workers=1)

@@ -67,26 +67,26 @@ def case_keys_markdown() -> str:
     from shellmodes.case.schema import (
         CapSurface,
         DeformationTerm,
+        DeformedSphereSurface,
         EllipsoidSurface,
         MeshSurface,
         SnapTarget,
         SphereSurface,
         SpheroidSurface,
-        StarSurface,
         TorusSurface,
     )
 
-    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
+    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, DeformedSphereSurface, TorusSurface, CapSurface,
                 MeshSurface):
         shape = cls.model_fields["shape"].annotation.__args__[0]
         out += ["", f"## [surface] with shape = \"{shape}\"", "", "| key | type | default | meaning |",
                 "|---|---|---|---|"]
         out += [f"| `surface.{k}` | {t} | {d} | {m} |" for k, t, d, m in _rows("", cls)]
-    from shellmodes.case.schema import Region, SweepParameter, Wall
+    from shellmodes.case.schema import Medium, SweepParameter, Wall
 
     for title, cls in (("surface.deformation[] entries", DeformationTerm), ("surface.snap", SnapTarget),
                        ("shell.inner, shell.interfaces[], shell.outer (walls)", Wall),
-                       ("shell.regions[] entries", Region),
+                       ("shell.media[] entries", Medium),
                        ("sweep.parameters[] entries", SweepParameter)):
         out += ["", f"## {title}", "", "| key | type | default | meaning |", "|---|---|---|---|"]
         out += [f"| `{k}` | {t} | {d} | {m} |" for k, t, d, m in _rows("", cls)]

@@ -167,8 +167,19 @@ _APPLIES = {
     ("particle", "mass_unit"): lambda t: t.get("mass") is not None,
     ("particle", "effective_mass"): lambda t: t.get("mass") is not None,
     ("particle", "inertia_unit"): lambda t: t.get("moment_of_inertia") is not None,
-    ("output", "picture_modes"): lambda t: bool(t.get("pictures")),
+    ("output", "picture_multiplets"): lambda t: bool(t.get("pictures")),
+    ("output", "picture_modes"): lambda t: bool(t.get("pictures")),  # the old name, in older run folders
+    **{("modes", key): lambda t: _sliced(t) for key in ("slice_modes", "workers", "scheduler")},
 }
+
+
+def _sliced(modes: dict) -> bool:
+    """Whether a [modes] table asks for spectrum slicing (as the planner decides for surfaces)."""
+    from shellmodes.limits import SLICE_FROM
+
+    count = modes.get("count")
+    return modes.get("method") == "slices" or (modes.get("method", "auto") == "auto" and isinstance(count, int)
+                                                and count >= SLICE_FROM)
 
 
 def applicable_case(case: dict) -> dict:
@@ -498,9 +509,9 @@ def _study_section(path: Path, data: dict, run: dict | None = None) -> str:
                      _num(r.get("l")), _num(r.get("energy")), _num(r.get("energy_extrapolated")),
                      _sci(r.get("energy_error")), _sci(r.get("relative_error")), _num(r.get("order"), 3),
                      '<span class="tag pass">yes</span>' if ok else '<span class="tag">no</span>',
-                     _num(r.get("reached_at")), *extra])
+                     _num(r.get("tolerance_met_at_subdivisions", r.get("reached_at"))), *extra])
     head = ["#", "modes", "size", "l", f"finest [{unit}]", f"extrapolated [{unit}]", f"error [{unit}]",
-            "rel. error", "order", "asymptotic", "reached at"]
+            "rel. error", "order", "asymptotic", "tolerance met at subdivisions"]
     if mine is not None:
         head.append(f"this run's error [{unit}]")
         whose = ("The last column estimates the error of this run's own levels: |extrapolated − this run|; "

@@ -80,7 +80,7 @@ def _surface(problem, plan, solved, scale, tolerance) -> Labels:
     resolvable = int(np.sqrt(disc.ndofs / 8.0)) - 1
     l_max = max(0, min(top + 3, resolvable))
     axisymmetric = shape.name in ("sphere", "spheroid") or (
-        shape.name == "star" and all(m == 0 for _, m, _ in shape.deformation))
+        shape.name == "deformed_sphere" and all(m == 0 for _, m, _ in shape.deformation))
     M = problem.operators.M
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # l_max is chosen within the resolvable range above

@@ -22,6 +22,26 @@ __all__ = ["Multiplet", "Spectrum", "parent_degree", "build_multiplets"]
 
 @dataclass(frozen=True)
 class Multiplet:
+    """One multiplet: a run of modes whose eigenvalues lie within ``modes.multiplet_tolerance``.
+
+    Attributes
+    ----------
+    index : int
+        Position in the spectrum, from 0.
+    members : tuple of int
+        Mode indices.
+    eigenvalue, energy : float
+        Mean eigenvalue (1/L^2) and mean energy (case unit).
+    size : int
+        Number of modes.
+    l, expected_size : int or None
+        Parent degree of the sphere and its 2l+1 (None where no parent is defined, e.g. a torus).
+    spread, relative_spread : float
+        max - min energy, absolute (case unit) and relative to |mean|.
+    subspace_l, subspace_weight, subspace_mean_L2 : float or None
+        Basis-independent angular content of the multiplet's subspace, where analysed.
+    """
+
     index: int
     members: tuple[int, ...]
     eigenvalue: float
@@ -157,23 +177,16 @@ class Spectrum:
         return rows
 
     def summary(self, max_rows: int = 40) -> str:
-        """A compact terminal table, one row per multiplet."""
-        unit = self.info.get("units", {}).get("energy", "1")
-        head = f"{'#':>4} {'energy [' + unit + ']':>18} {'lambda':>16} {'size':>5} {'l':>3} {'2l+1':>5} " \
-               f"{'spread':>10} {'max resid':>10}"
-        lines = [head, "-" * len(head)]
-        for m in self.multiplets[:max_rows]:
-            res = float(np.max(self.residuals[list(m.members)]))
-            mark = "" if m.expected_size in (None, m.size) else "  split" if m.size < m.expected_size else ""
-            lines.append(f"{m.index:>4} {m.energy:>18.10g} {m.eigenvalue:>16.10g} {m.size:>5} "
-                         f"{'-' if m.l is None else m.l:>3} {'-' if m.expected_size is None else m.expected_size:>5} "
-                         f"{m.relative_spread:>10.2e} {res:>10.1e}{mark}")
-        if len(self.multiplets) > max_rows:
-            lines.append(f"... {len(self.multiplets) - max_rows} more multiplets in spectrum.csv")
+        """A compact terminal table, one row per multiplet (:func:`shellmodes.spectrum.tables.multiplet_table`)."""
+        from shellmodes.spectrum.tables import energy_unit, multiplet_table
+
+        unit = energy_unit(self.info.get("units", {}))
+        lines = [multiplet_table(self, max_rows)]
         rows = self.info.get("perturbation") or []
         if rows:
             lines.append("")
-            lines.append(f"splitting of each parent l [{unit}]: finite elements vs first-order perturbation theory")
+            lines.append(f"splitting of each parent l [{unit}]: finite elements (FE) vs first-order "
+                         "perturbation theory")
             lines.append(f"{'l':>4} {'FE':>14} {'1st order':>14} {'ratio':>8} {'max |FE - 1st|':>16}")
             for r in rows:
                 ratio = "-" if r["ratio"] is None else f"{r['ratio']:.4f}"

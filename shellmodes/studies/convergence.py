@@ -34,6 +34,7 @@ import logging
 import math
 import time
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -44,6 +45,7 @@ from shellmodes.case.schema import Case, case_from_dict
 from shellmodes.errors import CaseError, DoubtfulResultWarning
 from shellmodes.limits import CONVERGE_MAX_SUBDIVISIONS, MAX_SUBDIVISIONS
 from shellmodes.pipeline import run_case
+from shellmodes.spectrum.multiplets import Spectrum
 
 __all__ = ["ConvergenceStudy", "ConvergenceRow", "Refinement", "convergence_study", "expected_order",
            "order_range", "observed_order_three", "extrapolate", "shared_groups", "write_study"]
@@ -222,15 +224,27 @@ class ConvergenceRow:
                 "error": self.error, "relative_error": _finite(self.relative_error), "order": _finite(self.order),
                 "asymptotic": self.asymptotic, "energy": self.energy,
                 "energy_extrapolated": self.energy_extrapolated, "energy_error": self.energy_error,
-                "reached_at": self.reached_at}
+                "tolerance_met_at_subdivisions": self.reached_at}
 
 
 @dataclass(frozen=True, eq=False)
 class ConvergenceStudy:
     """A case solved at successive refinements, with per-multiplet error bars.
 
-    ``reached`` is the coarsest subdivisions at which every row's estimate met
-    ``tolerance`` (None if not reached or no tolerance was asked for).
+    Attributes
+    ----------
+    refinements : tuple of Refinement
+        One record per solve (subdivisions, dofs, h).
+    rows : tuple of ConvergenceRow
+        One row per multiplet: eigenvalues per refinement, observed order, extrapolated value
+        and error estimate.
+    degree, geometry_degree : int
+        Element and geometry degrees; ``expected_order``/``order_range`` the rates they allow.
+    tolerance : float or None
+        The relative error asked for; ``reached`` is the coarsest subdivisions at which every
+        row's estimate met it (None if not reached or no tolerance was asked for).
+    energy_unit : str
+        Unit of the energy columns; ``energy_per_lambda`` converts eigenvalues.
     """
 
     source: str
@@ -359,7 +373,8 @@ def _size(lam, scale):
 
 
 def convergence_study(case: Case, refinements: int = 3, tolerance: float | None = None,
-                      max_subdivisions: int = CONVERGE_MAX_SUBDIVISIONS, progress=None,
+                      max_subdivisions: int = CONVERGE_MAX_SUBDIVISIONS,
+                      progress: Callable[[int, Spectrum], None] | None = None,
                       order_window: float = DEFAULT_ORDER_WINDOW) -> ConvergenceStudy:
     """Solve ``case`` at successive refinements and estimate each eigenvalue's error.
 
@@ -519,20 +534,21 @@ def _rows(done, boundaries, finest_labels, p_expected, bounds, window, e0) -> li
 
 # ----------------------------------------------------------------------------- files and command line
 _CSV_FIELDS = ["index", "size", "l", "eigenvalue", "extrapolated", "error", "relative_error", "order",
-               "asymptotic", "energy", "energy_extrapolated", "energy_error", "reached_at", "modes"]
+               "asymptotic", "energy", "energy_extrapolated", "energy_error",
+               "tolerance_met_at_subdivisions", "modes"]
 
 
 def write_study(study: ConvergenceStudy, folder) -> Path:
     """Write ``convergence.json`` and ``convergence.csv`` into ``folder`` (all or nothing)."""
     from shellmodes.io.outputs import atomic_directory
+    from shellmodes.spectrum.tables import csv_cell
 
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=_CSV_FIELDS, lineterminator="\n")
     writer.writeheader()
     for row in study.rows:
         d = row.as_dict()
-        writer.writerow({k: ("" if d[k] is None else " ".join(map(str, d[k])) if k == "modes"
-                             else "yes" if d[k] is True else "no" if d[k] is False else d[k])
+        writer.writerow({k: " ".join(map(str, d[k])) if k == "modes" and d[k] is not None else csv_cell(d[k])
                          for k in _CSV_FIELDS})
     with atomic_directory(folder) as tmp:
         (tmp / "convergence.json").write_text(json.dumps(study.as_dict(), indent=2) + "\n")
