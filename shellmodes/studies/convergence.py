@@ -609,7 +609,8 @@ def _rows(done, boundaries, finest_labels, p_expected, bounds, window, e0) -> li
 
 # ----------------------------------------------------------------------------- files and command line
 _CSV_FIELDS = ["index", "size", "l", "eigenvalue", "extrapolated", "error", "relative_error", "order",
-               "previous_order", "safety_factor", "status", "asymptotic", "energy", "energy_extrapolated", "energy_error", "reached_at", "modes"]
+               "previous_order", "safety_factor", "status", "asymptotic",
+               "energy", "energy_extrapolated", "energy_error", "reached_at", "modes"]
 
 
 def write_study(study: ConvergenceStudy, folder) -> Path:
