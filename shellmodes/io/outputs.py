@@ -60,13 +60,16 @@ def _write_json(spectrum, folder: Path):
 def _write_csv(spectrum, folder: Path):
     rows = spectrum.modes_table()
     buf = io.StringIO()
+    # the six contract columns first; label_rule (which rule gave l) only where some mode has an l
     names = ["index", "energy", "eigenvalue", "multiplet", "l", "residual"]
+    names += ["label_rule"] if any(row["l"] is not None for row in rows) else []
     names += [k for k in ("dominant_l", "l_weight", "mean_L2", "abs_m") if rows and k in rows[0]]
     names += [k for k in spectrum.mode_columns if k not in names]
-    writer = csv.DictWriter(buf, fieldnames=names, lineterminator="\n")
+    writer = csv.DictWriter(buf, fieldnames=names, lineterminator="\n", extrasaction="ignore")
     writer.writeheader()
     for row in rows:
-        writer.writerow({**row, "l": "" if row["l"] is None else row["l"]})
+        writer.writerow({**row, "l": "" if row["l"] is None else row["l"],
+                         "label_rule": row["label_rule"] or ""})
     (folder / "spectrum.csv").write_text(buf.getvalue())
 
 

@@ -36,12 +36,18 @@ class Multiplet:
     subspace_l: int | None = None
     subspace_weight: float | None = None
     subspace_mean_L2: float | None = None
+    #: which rule gave ``l``: "dominant-weight" (the subspace's dominant degree, weight >= 1/2),
+    #: "nearest-l" (nearest l(l+1) to lambda R_eq^2), "separable", "overlap", "angular-fit"; None: no l
+    label_rule: str | None = None
+    #: surfaces of revolution about z: the sorted |m| of the subspace (-1 unresolved), see spectrum/azimuthal
+    abs_m: tuple[int, ...] | None = None
 
     def as_dict(self) -> dict:
         return {"index": self.index, "energy": self.energy, "eigenvalue": self.eigenvalue, "size": self.size,
                 "l": self.l, "expected_size": self.expected_size, "spread": self.spread,
                 "relative_spread": self.relative_spread, "subspace_l": self.subspace_l,
                 "subspace_weight": self.subspace_weight, "subspace_mean_L2": self.subspace_mean_L2,
+                "label_rule": self.label_rule, "abs_m": None if self.abs_m is None else list(self.abs_m),
                 "modes": list(self.members)}
 
     def with_content(self, row: dict) -> Multiplet:
@@ -49,6 +55,11 @@ class Multiplet:
         :func:`~shellmodes.spectrum.angular.multiplet_content`."""
         return replace(self, subspace_l=int(row["l"]), subspace_weight=float(row["purity"]),
                        subspace_mean_L2=float(row["mean_L2"]))
+
+    def with_parent(self, rule: str, l: int | None = None) -> Multiplet:
+        """This multiplet with its parent l set by ``rule`` (l unchanged when None)."""
+        l = self.l if l is None else int(l)
+        return replace(self, l=l, label_rule=rule, expected_size=None if l is None else 2 * l + 1)
 
 
 def build_multiplets(lam, energy, tolerance, scale, radius_eq2=None, mode_l=None) -> list[Multiplet]:
@@ -74,6 +85,13 @@ def build_multiplets(lam, energy, tolerance, scale, radius_eq2=None, mode_l=None
                              size=len(members), l=l, expected_size=None if l is None else 2 * l + 1,
                              spread=spread, relative_spread=spread / abs(mean) if mean else 0.0))
     return out
+
+
+def _m_text(abs_m) -> str:
+    """The |m| values of a multiplet, each once ("?" unresolved): "0", "1", "0,1,2"."""
+    if abs_m is None:
+        return "-"
+    return ",".join("?" if v < 0 else str(v) for v in sorted(set(abs_m)))
 
 
 @dataclass(frozen=True, eq=False)
@@ -140,8 +158,12 @@ class Spectrum:
     def modes_table(self) -> list[dict]:
         """One record per mode; with angular content also the dominant l, its weight and <L^2>."""
         mult, ls = self.mode_multiplet, self.mode_l
+        rules = [None] * len(self.eigenvalues)
+        for m in self.multiplets:
+            for i in m.members:
+                rules[i] = m.label_rule
         rows = [{"index": i, "energy": float(self.energies[i]), "eigenvalue": float(self.eigenvalues[i]),
-                 "multiplet": int(mult[i]), "l": ls[i], "residual": float(self.residuals[i])}
+                 "multiplet": int(mult[i]), "l": ls[i], "label_rule": rules[i], "residual": float(self.residuals[i])}
                 for i in range(len(self.eigenvalues))]
         a = self.angular
         if a is not None:
@@ -159,15 +181,20 @@ class Spectrum:
     def summary(self, max_rows: int = 40) -> str:
         """A compact terminal table, one row per multiplet."""
         unit = self.info.get("units", {}).get("energy", "1")
+        axial = any(m.abs_m is not None for m in self.multiplets)
+        ruled = any(m.label_rule is not None for m in self.multiplets)
         head = f"{'#':>4} {'energy [' + unit + ']':>18} {'lambda':>16} {'size':>5} {'l':>3} {'2l+1':>5} " \
-               f"{'spread':>10} {'max resid':>10}"
+               f"{'spread':>10} {'max resid':>10}" + (f" {'|m|':>7}" if axial else "") + \
+               (f" {'l rule':>15}" if ruled else "")
         lines = [head, "-" * len(head)]
         for m in self.multiplets[:max_rows]:
             res = float(np.max(self.residuals[list(m.members)]))
             mark = "" if m.expected_size in (None, m.size) else "  split" if m.size < m.expected_size else ""
             lines.append(f"{m.index:>4} {m.energy:>18.10g} {m.eigenvalue:>16.10g} {m.size:>5} "
                          f"{'-' if m.l is None else m.l:>3} {'-' if m.expected_size is None else m.expected_size:>5} "
-                         f"{m.relative_spread:>10.2e} {res:>10.1e}{mark}")
+                         f"{m.relative_spread:>10.2e} {res:>10.1e}"
+                         + (f" {_m_text(m.abs_m):>7}" if axial else "")
+                         + (f" {m.label_rule or '-':>15}" if ruled else "") + mark)
         if len(self.multiplets) > max_rows:
             lines.append(f"... {len(self.multiplets) - max_rows} more multiplets in spectrum.csv")
         rows = self.info.get("perturbation") or []
