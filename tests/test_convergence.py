@@ -355,3 +355,61 @@ def test_shell_cases_converge_with_layers_refined_alongside():
     assert 2.5 < first.order < 4.5
     # the extrapolated value is closer to the exact one than the finest solve
     assert abs(first.extrapolated - exact) < abs(study.refinements[-1].eigenvalues[0] - exact)
+
+
+# ----------------------------------------------------------------------------- error bars on five shapes
+def _revolution_reference(levels, m_max: int, count: int) -> np.ndarray:
+    """Sorted eigenvalues from per-m 1-D levels (m = 0 once, each m > 0 as a +-m pair)."""
+    values = [v for m in range(m_max + 1) for v in levels(m) for _ in range(1 if m == 0 else 2)]
+    return np.sort(values)[:count]
+
+
+def _five_shapes():
+    from shellmodes.studies.profile_levels import spheroid_levels, torus_levels
+
+    def surface(shape, subdivisions, count):
+        return {"surface": shape, "resolution": {"degree": 2, "subdivisions": subdivisions},
+                "modes": {"count": count}}
+
+    ball = {"shell": {"outer": {"shape": "sphere", "radius": 1.0}, "layers": 2, "radial_degree": 2},
+            "resolution": {"degree": 2, "subdivisions": 2}, "modes": {"count": 20}}
+    return {
+        # l(l+1) (DLMF 14.30.10)
+        "sphere": (surface({"shape": "sphere"}, 1, 16), ref.sphere_eigenvalues),
+        # the 1-D profile solve per m (studies.profile_levels, checked on the sphere in test_axial_labels)
+        "spheroid": (surface({"shape": "spheroid", "equatorial_radius": 1.0, "polar_radius": 1.5}, 1, 16),
+                     lambda n: _revolution_reference(lambda m: spheroid_levels(1.0, 1.5, m, 8), 7, n)),
+        "torus": (surface({"shape": "torus", "major_radius": 3.0, "minor_radius": 1.0}, 1, 20),
+                  lambda n: _revolution_reference(lambda m: torus_levels(3.0, 1.0, m, 8), 9, n)),
+        # Ferrers-function roots (references.cap_eigenvalues)
+        "cap": (surface({"shape": "cap", "half_angle": 120.0, "rim": "dirichlet"}, 2, 12),
+                lambda n: ref.cap_eigenvalues(np.radians(120.0), n)),
+        # squares of the zeros of j_l (DLMF 10.21, references.ball_dirichlet)
+        "ball": (ball, lambda n: np.sort([k**2 for l in range(7) for k in ref.ball_dirichlet(l, 4)
+                                          for _ in range(2 * l + 1)])[:n]),
+    }
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["sphere", "spheroid", "torus", "cap", "ball"])
+def test_error_bars_bracket_the_true_error_on_five_shapes(name):
+    data, exact = _five_shapes()[name]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DoubtfulResultWarning)  # coarse starts are flagged; the bar must hold
+        study = convergence_study(case_from_dict(data, "<test>"), refinements=4)
+    reference = np.asarray(exact(max(max(r.modes) for r in study.rows) + 1))
+    ratios, verified = [], []
+    for row in study.rows:
+        true = abs(row.finest - np.mean(reference[list(row.modes)]))
+        if true > 1e-11 * max(1.0, abs(row.finest)):  # not at rounding level
+            ratios.append(row.error / true)
+            verified.append(row.asymptotic)
+    ratios, verified = np.array(ratios), np.array(verified, dtype=bool)
+    assert len(ratios) >= 3
+    # the issue's target: the bar brackets the true error for >= 95 % of levels (measured: all), and is
+    # <= 10x it for most: measured 1.25-1.6x on every row whose order is verified; flagged rows of
+    # pre-asymptotic coarse starts (the 120-degree cap and the ball at degree 2, orders drifting from 6 to
+    # 4.5 or from 1 to 4) carry Fs = 3 at the expected order and measured 12-15x (bench_errorbars.py)
+    assert np.mean(ratios >= 1) >= 0.95, ratios
+    assert np.all(ratios[verified] <= 10), (ratios, verified)
+    assert np.all(ratios[~verified] <= 20), (ratios, verified)  # flagged: conservative, but not absurd
