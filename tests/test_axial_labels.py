@@ -141,3 +141,20 @@ def test_rule_and_m_are_written_to_json_and_csv(tmp_path, run_cli):
     assert all(isinstance(m["abs_m"], list) for m in data["multiplets"])
     header = (tmp_path / "out" / "spectrum.csv").read_text().splitlines()[0].split(",")
     assert "label_rule" in header and "abs_m" in header
+
+
+def test_cap_m_classes_match_the_ferrers_roots():
+    # 120-degree cap, hard rim: lambda = nu(nu+1) with P_nu^-m(cos theta0) = 0 and the order m of each
+    # root (references.cap_eigenvalues, DLMF 14.3 Ferrers functions)
+    cap = solve({"shape": "cap", "half_angle": 120.0, "rim": "dirichlet"}, 3, 3, 12)
+    exact, _, order = ref.cap_eigenvalues(np.radians(120.0), 14, return_labels=True)
+    checked = 0
+    for mult, m in _classes(cap):
+        same = exact[np.abs(order) == m]
+        nearest = same[np.argmin(np.abs(same - mult.eigenvalue))]
+        # degree 3 at subdivisions 3: measured FE error up to 6.0e-5 relative; levels of different |m|
+        # differ by at least 6 % here, so a wrong |m| cannot pass
+        assert abs(mult.eigenvalue - nearest) <= 3e-4 * nearest, (m, mult.eigenvalue, nearest)
+        assert mult.l is None  # a cap is not sphere-like: no parent l, no continuation
+        checked += 1
+    assert checked >= 7
