@@ -47,7 +47,7 @@ import numpy as np
 from shellmodes import errors
 from shellmodes.case.schema import Case, case_from_dict
 from shellmodes.errors import CaseError, ShellmodesError
-from shellmodes.io.outputs import EXPORTERS, atomic_directory
+from shellmodes.io.outputs import EXPORTERS, MODE_ARRAY, atomic_directory
 
 __all__ = ["SweepStep", "SweepResult", "SweepStopped", "plan_steps", "run_sweep", "load_step"]
 
@@ -310,8 +310,14 @@ def load_step(folder):
     """Read a saved step: (modes table, multiplet member lists, (N, n) vectors, record).
 
     The vectors come from the point fields of ``modes.vtu``, named
-    ``modeNNNN_E=...`` (:func:`shellmodes.io.outputs.mode_field_name`).
+    ``psi_NNNN`` (:func:`shellmodes.io.outputs.mode_array_names`).
     """
+    spectrum, groups, vectors, record, _ = _read_step(folder)
+    return spectrum, groups, vectors, record
+
+
+def _read_step(folder):
+    """:func:`load_step` and the step's meshio mesh (points and cells, for the series files)."""
     import meshio
 
     folder = Path(folder)
@@ -325,7 +331,7 @@ def load_step(folder):
         raise ShellmodesError(str(exc)) from None
     fields = {}
     for name, values in mesh.point_data.items():
-        match = re.match(r"mode(\d+)_E=", name)
+        match = MODE_ARRAY.match(name)
         if match:
             fields[int(match.group(1))] = np.asarray(values, dtype=float).reshape(len(mesh.points))
     modes = spectrum["modes"]
@@ -334,7 +340,7 @@ def load_step(folder):
                               f"lists {len(modes)}; delete the folder and rerun the sweep")
     vectors = np.column_stack([fields[i] for i in range(len(modes))]) if modes else np.zeros((len(mesh.points), 0))
     groups = [m["modes"] for m in spectrum["multiplets"]]
-    return spectrum, groups, vectors, record
+    return spectrum, groups, vectors, record, mesh
 
 
 def _mass_matrix(case: Case):
@@ -608,9 +614,12 @@ class _Collector:
     """
 
     def __init__(self, out: Path, steps, min_overlap: float):
+        from shellmodes.studies.sweep_files import TrackStates
         from shellmodes.studies.sweep_track import LevelTracker
 
         self.out, self.steps = out, list(steps)
+        #: each step's track states, signs made consistent, kept on disk for series.pvd
+        self.states = TrackStates(out)
         self.tracker = LevelTracker(min_overlap=min_overlap)
         self.rows, self.next, self.ready = [], 0, set()
         #: mass matrices assembled by local workers, by step index (else assembled here when needed)
@@ -638,6 +647,9 @@ class _Collector:
             triples = self.tracker.add(StepModes(
                 vectors=vectors, eigenvalues=np.array([m["eigenvalue"] for m in modes]), groups=groups,
                 labels=[m["l"] for m in modes], M=M))
+            mode_group = {j: h for h, members in enumerate(groups) for j in members}
+            multiplet_of = {track: mode_group[j] for j, track, _ in triples}
+            self.states.add(step.index, *self.tracker.states(), multiplet_of)
             for j, track, overlap in triples:
                 mode = modes[j]
                 self.rows.append({"step": step.index, **dict(step.values), "track": track, "mode": j,
