@@ -193,6 +193,8 @@ def test_spectrum_csv_has_one_row_per_mode_equal_to_json(text, tmp_path, run_cli
                 assert row[heading] == "", key
             elif isinstance(value, int):
                 assert int(row[heading]) == value, key
+            elif isinstance(value, str):  # label_rule
+                assert row[heading] == value, key
             else:
                 # both files print repr(float): equal bit for bit
                 assert float(row[heading]) == value, key

@@ -197,7 +197,9 @@ def _write_csv(spectrum, folder: Path):
 
     rows = spectrum.modes_table()
     buf = io.StringIO()
+    # the six contract columns first; label_rule (which rule gave l) only where some mode has an l
     names = ["index", "energy", "eigenvalue", "multiplet", "l", "residual"]
+    names += ["label_rule"] if any(row["l"] is not None for row in rows) else []
     names += [k for k in ("dominant_l", "l_weight", "mean_L2", "abs_m") if rows and k in rows[0]]
     names += [k for k in spectrum.mode_columns if k not in names]
     writer = csv.writer(buf, lineterminator="\n")

@@ -521,7 +521,8 @@ def _study_section(path: Path, data: dict, run: dict | None = None) -> str:
                  "study's finest mesh, not of this run's numbers.")
     warn = "".join(f"<li>{_e(w)}</li>" for w in data.get("warnings") or [])
     return (f'<p class="quiet">From {_e(path)}: each row is a group of modes shared by every refinement; '
-            "the error estimates |extrapolated − finest| for the finest mesh (Richardson). "
+            "the error is a bar on the finest mesh's value, Fs |l3 − l2| / (r^p − 1) (Roache's grid convergence "
+            "index: Fs 1.25 where the observed order is verified, 3 where it is not and the row is flagged). "
             f"{_e(whose)}</p>"
             f'<div class="cards"><div class="card"><h3>Study</h3>{_dl(facts)}</div>'
             f'<div class="card"><h3>Refinements</h3>{refinements}</div></div>'

@@ -56,12 +56,18 @@ class Multiplet:
     subspace_l: int | None = None
     subspace_weight: float | None = None
     subspace_mean_L2: float | None = None
+    #: which rule gave ``l``: "dominant-weight" (the subspace's dominant degree, weight >= 1/2),
+    #: "nearest-l" (nearest l(l+1) to lambda R_eq^2), "separable", "overlap", "angular-fit"; None: no l
+    label_rule: str | None = None
+    #: surfaces of revolution about z: the sorted |m| of the subspace (-1 unresolved), see spectrum/azimuthal
+    abs_m: tuple[int, ...] | None = None
 
     def as_dict(self) -> dict:
         return {"index": self.index, "energy": self.energy, "eigenvalue": self.eigenvalue, "size": self.size,
                 "l": self.l, "expected_size": self.expected_size, "spread": self.spread,
                 "relative_spread": self.relative_spread, "subspace_l": self.subspace_l,
                 "subspace_weight": self.subspace_weight, "subspace_mean_L2": self.subspace_mean_L2,
+                "label_rule": self.label_rule, "abs_m": None if self.abs_m is None else list(self.abs_m),
                 "modes": list(self.members)}
 
     def with_content(self, row: dict) -> Multiplet:
@@ -69,6 +75,11 @@ class Multiplet:
         :func:`~shellmodes.spectrum.angular.multiplet_content`."""
         return replace(self, subspace_l=int(row["l"]), subspace_weight=float(row["purity"]),
                        subspace_mean_L2=float(row["mean_L2"]))
+
+    def with_parent(self, rule: str, l: int | None = None) -> Multiplet:
+        """This multiplet with its parent l set by ``rule`` (l unchanged when None)."""
+        l = self.l if l is None else int(l)
+        return replace(self, l=l, label_rule=rule, expected_size=None if l is None else 2 * l + 1)
 
 
 def build_multiplets(lam, energy, tolerance, scale, radius_eq2=None, mode_l=None) -> list[Multiplet]:
@@ -160,8 +171,12 @@ class Spectrum:
     def modes_table(self) -> list[dict]:
         """One record per mode; with angular content also the dominant l, its weight and <L^2>."""
         mult, ls = self.mode_multiplet, self.mode_l
+        rules = [None] * len(self.eigenvalues)
+        for m in self.multiplets:
+            for i in m.members:
+                rules[i] = m.label_rule
         rows = [{"index": i, "energy": float(self.energies[i]), "eigenvalue": float(self.eigenvalues[i]),
-                 "multiplet": int(mult[i]), "l": ls[i], "residual": float(self.residuals[i])}
+                 "multiplet": int(mult[i]), "l": ls[i], "label_rule": rules[i], "residual": float(self.residuals[i])}
                 for i in range(len(self.eigenvalues))]
         a = self.angular
         if a is not None:

@@ -23,7 +23,7 @@ import math
 import numpy as np
 
 __all__ = ["csv_headings", "csv_row", "csv_key", "energy_unit", "eigenvalue_unit", "units_caption", "clean_zeros",
-           "csv_cell", "with_unit", "multiplet_table", "ZERO_RELATIVE"]
+           "csv_cell", "with_unit", "m_text", "multiplet_table", "ZERO_RELATIVE"]
 
 #: values below this fraction of the largest magnitude in their column are rounding noise of an exact
 #: zero (a closed surface's constant mode): eigenvalue solvers reach about 1e-13 relative (common practice)
@@ -92,12 +92,20 @@ def _most_common(values):
     return int(found[np.argmax(counts)])
 
 
+def m_text(abs_m) -> str:
+    """The |m| values of a multiplet, each once ("?" unresolved): "0", "1", "0,1,2"; "-" when unknown."""
+    if abs_m is None:
+        return "-"
+    return ",".join("?" if v < 0 else str(v) for v in sorted(set(abs_m)))
+
+
 def multiplet_table(spectrum, max_rows: int = 40) -> str:
     """The terminal table of a run, one row per multiplet.
 
     Columns: multiplet index, energy and eigenvalue with units, size, the radial order n (shells
     whose modes carry it), the parent degree l and its 2l+1, the relative spread (max - min) / |mean|
-    of the multiplet's energies, and the largest residual among its modes.
+    of the multiplet's energies, the largest residual among its modes, and where known the |m|
+    values of the multiplet (surfaces of revolution) and the rule that gave its l.
 
     Parameters
     ----------
@@ -121,6 +129,9 @@ def multiplet_table(spectrum, max_rows: int = 40) -> str:
     if n_mode is not None:
         cols.append(("n", 3))
     cols += [("l", 3), ("2l+1", 5), ("rel. spread", 11), ("max residual", 12)]
+    axial = any(m.abs_m is not None for m in spectrum.multiplets)
+    ruled = any(m.label_rule is not None for m in spectrum.multiplets)
+    cols += ([("|m|", 7)] if axial else []) + ([("l rule", 15)] if ruled else [])
     head = " ".join(f"{name:>{width}}" for name, width in cols)
     lines = [head, "-" * len(head)]
     for k, m in enumerate(spectrum.multiplets[:max_rows]):
@@ -131,6 +142,8 @@ def multiplet_table(spectrum, max_rows: int = 40) -> str:
             cells.append(f"{'-' if n is None else n:>3}")
         cells += [f"{'-' if m.l is None else m.l:>3}", f"{'-' if m.expected_size is None else m.expected_size:>5}",
                   f"{m.relative_spread:>11.2e}", f"{res:>12.1e}"]
+        cells += [f"{m_text(m.abs_m):>7}"] if axial else []
+        cells += [f"{m.label_rule or '-':>15}"] if ruled else []
         split = m.expected_size is not None and m.size < m.expected_size
         lines.append(" ".join(cells) + ("  split" if split else ""))
     if len(spectrum.multiplets) > max_rows:
