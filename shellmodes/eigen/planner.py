@@ -21,6 +21,11 @@ Paths
 ``lobpcg-amg``
     3-D problems whose Cholesky factor would not fit (or when asked):
     LOBPCG with algebraic multigrid.
+``shift-invert-hermitian``
+    A vector potential (magnetic field or flux line): K is complex Hermitian;
+    SuperLU of K - sigma M in symmetric mode and complex Lanczos, a
+    Rayleigh-Ritz step, and the spin splitting where the case asks for it
+    (:mod:`shellmodes.eigen.hermitian`).
 ``shift-invert``
     Everything else: a sparse Cholesky factor of K - sigma M with sigma
     strictly below the spectrum, and ARPACK Lanczos, the blocked iteration
@@ -66,6 +71,13 @@ class Problem:
     #: spherically symmetric (concentric spherical walls, no potential): labels are exact quantum numbers
     symmetric: bool = False
     timings: dict = field(default_factory=dict)
+    #: thin-layer and vector-potential terms (:class:`~shellmodes.case.fields.FieldTerms`), or None
+    terms: object = None
+
+    @property
+    def complex(self) -> bool:
+        """A vector potential makes K complex Hermitian (path ``shift-invert-hermitian``)."""
+        return self.terms is not None and self.terms.complex
 
     @cached_property
     def space(self):
@@ -92,9 +104,11 @@ class Problem:
             curved cell folds (key ``shell``).
         """
         try:
-            operators = self.disc.assemble(self.media, self.potential)
+            operators = self.disc.assemble(self.media, self.potential, self.terms)
         except GeometryError as exc:
             raise ProblemError(str(exc), "shell") from None
+        except ProblemError:
+            raise
         except ValueError as exc:
             if self.potential is None:
                 raise
@@ -122,7 +136,7 @@ class Problem:
     @property
     def separable(self) -> bool:
         """Concentric spherical prism walls and no potential or V(r) only."""
-        return (getattr(self.disc, "separates", lambda: False)()
+        return (getattr(self.disc, "separates", lambda: False)() and not self.complex
                 and (self.potential is None or self.radial is not None))
 
 
@@ -181,6 +195,8 @@ def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:
                           "Kronecker sums, so surface modes and their radial problems give the modes exactly")
     operators = problem.operators
     lower, scale, n = operators.lower_bound, disc.spectral_scale(operators), problem.nfree
+    if problem.complex:
+        return _plan_hermitian(problem, modes, lower, scale)
     if disc.kind == "prisms" and (method == "lobpcg" or (method == "auto" and n >= PRISM_ITERATIVE_FROM)):
         return SolverPlan("lobpcg-spherical", "lobpcg", "spherical-reference", lower, scale, n,
                           f"deformed prisms, {n} unknowns: LOBPCG preconditioned by the exact inverse of the "
@@ -220,6 +236,25 @@ def _plan_volume(problem: Problem, modes: Modes, lower: float, scale: float) -> 
     return SolverPlan("lobpcg-amg" if resolved == "lobpcg" else path, resolved,
                       _backend_name(n, resolved, modes.backend), lower, scale, n, reason,
                       None if estimate is None else int(estimate.bytes))
+
+
+def _plan_hermitian(problem: Problem, modes: Modes, lower: float, scale: float) -> SolverPlan:
+    """Complex Hermitian K (a vector potential): complex LU and complex Lanczos, or a dense solve.
+
+    The field-free lower bound stays valid (diamagnetic inequality, :mod:`shellmodes.fem.magnetic`).
+    CHOLMOD through cholespy is real-only, and the blocked iteration and LOBPCG work on real blocks,
+    so every back-end and iteration a case names is replaced here, and the reason says so.
+    """
+    n = problem.nfree
+    method = resolve_method(n, "lanczos", modes.count)
+    reason = ("vector potential: complex Hermitian K; SuperLU in symmetric mode on K - sigma M (positive "
+              "definite, no pivoting) and complex Lanczos" if method != "dense"
+              else f"vector potential: complex Hermitian K, {n} unknowns: a dense solve is cheaper")
+    asked = [f"{k} {v!r}" for k, v in (("method", modes.method), ("backend", modes.backend)) if v != "auto"]
+    if asked:
+        reason += f" (case asks for {', '.join(asked)}: real-only, not used)"
+    return SolverPlan("shift-invert-hermitian", method, "dense" if method == "dense" else "splu-hermitian",
+                      lower, scale, n, reason)
 
 
 def _backend_name(n: int, method: str, backend: str) -> str:
@@ -265,7 +300,8 @@ def solve_plan(plan: SolverPlan, problem: Problem, modes: Modes, count: int | No
     OpenBLAS threads spin when the cores are shared (measured on a 2-core
     machine under load: 1 thread was 4-6x faster than 2).
     """
-    runner = {"separable": _separable, "lobpcg-spherical": _lobpcg_spherical}.get(plan.path, _assembled)
+    runner = {"separable": _separable, "lobpcg-spherical": _lobpcg_spherical,
+              "shift-invert-hermitian": _hermitian}.get(plan.path, _assembled)
     with warnings.catch_warnings(record=True) as caught, threadpool_limits(limits=1):
         warnings.simplefilter("always")
         solved = runner(plan, problem, modes, count, below)
@@ -280,6 +316,20 @@ def _assembled(plan, problem, modes, count, below, **options) -> Solved:
                          scale=plan.scale, backend=modes.backend, multiplet_tolerance=modes.multiplet_tolerance,
                          residual_limit=modes.residual_limit, method=plan.method, **options)
     return Solved(pairs, problem.expand(pairs.vectors), [])
+
+
+def _hermitian(plan, problem, modes, count, below) -> Solved:
+    """Complex modes (Rayleigh-Ritz in the found subspace), split by spin where the case asks."""
+    from shellmodes.eigen.hermitian import rayleigh_ritz, spin_split
+
+    pairs = lowest_modes(problem.K, problem.M, count=count, below=below, lower_bound=plan.lower_bound,
+                         scale=plan.scale, backend=plan.backend, multiplet_tolerance=modes.multiplet_tolerance,
+                         residual_limit=modes.residual_limit, method=plan.method)
+    pairs = rayleigh_ritz(pairs, problem.K, problem.M)
+    labels = {}
+    if problem.terms.spin_shift is not None:
+        pairs, labels = spin_split(pairs, problem.terms.spin_shift, count, modes.multiplet_tolerance, plan.scale)
+    return Solved(pairs, problem.expand(pairs.vectors), [], labels)
 
 
 def _lobpcg_spherical(plan, problem, modes, count, below) -> Solved:

@@ -21,8 +21,8 @@ import numpy as np
 
 from shellmodes.io.pictures import ordinary_permissions
 
-__all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_field_name", "EXPORTERS", "register",
-           "check_writable", "check_run_output", "clear_leftovers", "ordinary_permissions", "RUN_FILES"]
+__all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_field_name", "mode_array_names", "EXPORTERS",
+           "register", "check_writable", "check_run_output", "clear_leftovers", "ordinary_permissions", "RUN_FILES"]
 
 EXPORTERS: dict = {}
 
@@ -41,13 +41,42 @@ def mode_field_name(i: int, energy: float) -> str:
     return f"mode{i:04d}_E={energy:.9g}"
 
 
+def mode_array_names(index: int, complex_: bool) -> dict:
+    """VTU point-array names of mode ``index`` (4 digits): ``{"psi": "psi_0003"}`` for a real mode;
+    ``re``, ``im``, ``density``, ``phase`` and ``current`` (a 3-vector) names for a complex one."""
+    tag = f"{index:04d}"
+    if not complex_:
+        return {"psi": f"psi_{tag}"}
+    return {"re": f"psi_{tag}_re", "im": f"psi_{tag}_im", "density": f"density_{tag}", "phase": f"phase_{tag}",
+            "current": f"current_{tag}"}
+
+
+def _complex_point_data(spectrum) -> dict:
+    """Real and imaginary parts, density, phase and (surfaces) the probability current of every complex mode."""
+    out = {}
+    U = spectrum.vectors
+    currents = None
+    problem = spectrum.problem
+    if problem is not None and problem.disc.kind == "surface" and U.shape[1]:
+        from shellmodes.fem.magnetic import nodal_currents
+
+        currents = nodal_currents(problem.terms, problem.disc.raw, U)
+    for i in range(U.shape[1]):
+        names, u = mode_array_names(i, True), U[:, i]
+        out[names["re"]], out[names["im"]] = np.real(u), np.imag(u)
+        out[names["density"]], out[names["phase"]] = np.abs(u) ** 2, np.angle(u)
+        if currents is not None:
+            out[names["current"]] = currents[i]
+    return out
+
+
 def spectrum_json(spectrum) -> dict:
     return {
         "modes": spectrum.modes_table(),
         "multiplets": [m.as_dict() for m in spectrum.multiplets],
         **{k: spectrum.info.get(k) for k in ("units", "mesh", "solver", "versions", "case", "timings",
                                               "warnings")},
-        **({"perturbation": spectrum.info["perturbation"]} if "perturbation" in spectrum.info else {}),
+        **{k: spectrum.info[k] for k in ("perturbation", "thin_layer", "fields") if k in spectrum.info},
     }
 
 
@@ -77,7 +106,10 @@ def _write_vtu(spectrum, folder: Path):
     export = spectrum.export
     if not export:
         return
-    point_data = {mode_field_name(i, e): spectrum.vectors[:, i] for i, e in enumerate(spectrum.energies)}
+    if np.iscomplexobj(spectrum.vectors):  # magnetic fields: real, imaginary, density, phase, current
+        point_data = _complex_point_data(spectrum)
+    else:
+        point_data = {mode_field_name(i, e): spectrum.vectors[:, i] for i, e in enumerate(spectrum.energies)}
     point_data.update(export.get("point_data", {}))
     mesh = meshio.Mesh(export["points"], export["cells"], point_data=point_data,
                        cell_data=export.get("cell_data", {}))
