@@ -47,7 +47,7 @@ import numpy as np
 from shellmodes import errors
 from shellmodes.case.schema import Case, case_from_dict
 from shellmodes.errors import CaseError, ShellmodesError
-from shellmodes.io.outputs import EXPORTERS, atomic_directory
+from shellmodes.io.outputs import EXPORTERS, atomic_directory, mode_array_names
 
 __all__ = ["SweepStep", "SweepResult", "SweepStopped", "plan_steps", "run_sweep", "load_step"]
 
@@ -310,7 +310,8 @@ def load_step(folder):
     """Read a saved step: (modes table, multiplet member lists, (N, n) vectors, record).
 
     The vectors come from the point fields of ``modes.vtu``, named
-    ``modeNNNN_E=...`` (:func:`shellmodes.io.outputs.mode_field_name`).
+    ``modeNNNN_E=...`` (:func:`shellmodes.io.outputs.mode_field_name`) or ``psi_NNNN``, and for
+    complex modes ``psi_NNNN_re`` and ``psi_NNNN_im`` (:func:`shellmodes.io.outputs.mode_array_names`).
     """
     import meshio
 
@@ -325,9 +326,13 @@ def load_step(folder):
         raise ShellmodesError(str(exc)) from None
     fields = {}
     for name, values in mesh.point_data.items():
-        match = re.match(r"mode(\d+)_E=", name)
+        match = re.match(r"mode(\d+)_E=|psi_(\d+)(_re)?$", name)
         if match:
-            fields[int(match.group(1))] = np.asarray(values, dtype=float).reshape(len(mesh.points))
+            index = int(match.group(1) or match.group(2))
+            fields[index] = np.asarray(values, dtype=float).reshape(len(mesh.points))
+            if match.group(3):  # a complex mode (magnetic fields): the real part plus psi_NNNN_im
+                imag = np.asarray(mesh.point_data[mode_array_names(index, True)["im"]], dtype=float)
+                fields[index] = fields[index] + 1j * imag.reshape(len(mesh.points))
     modes = spectrum["modes"]
     if sorted(fields) != list(range(len(modes))):
         raise ShellmodesError(f"{folder}: modes.vtu holds modes {sorted(fields)[:5]}..., spectrum.json "

@@ -8,9 +8,13 @@ E_surface(i) - E_surface(0), so users see when the surface model is good
 enough; the band bottom itself is printed against hbar^2 pi^2/(2 m d^2).
 Measuring from the band bottom also cancels most of the finite-element error
 of the stiff radial factor, which grows like (pi/d)^2 times the relative
-error.  Walls are the surface offset by
--d/2 and +d/2 along the radius (exact constant thickness for spheres and
-star shapes; approximately constant for ellipsoids).
+error.  Walls are the parallel surfaces at normal distance -d/2 and +d/2 (wall
+key ``offset``, :mod:`shellmodes.shapes.parallel_wall`): constant thickness, so
+the band bottom minus pi^2/d^2 tends to the surface's lowest level *with* the
+thin-layer potential V_g = -(H^2 - K) (da Costa, Phys. Rev. A 23, 1982 (1981));
+the row ``bottom - pi^2/d^2`` shows it beside the surface's lowest level.
+A surface case with ``fields.curvature_potential`` keeps V_g on the surface
+only; the shells get their walls instead.
 """
 
 from __future__ import annotations
@@ -48,6 +52,9 @@ class ThinShellComparison:
             lines.append(f"{i:>4} {(lam - self.surface[0]) * scale:>16.6g} " + " ".join(cells))
         lines.append(f"{'band bottom':>21} " + " ".join(f"{self.shell[d][0] * scale:>14.6g}" for d in self.thickness))
         lines.append(f"{'pi^2/d^2':>21} " + " ".join(f"{np.pi**2 / d**2 * scale:>14.6g}" for d in self.thickness))
+        lines.append(f"{'bottom - pi^2/d^2':>21} " + " ".join(
+            f"{(self.shell[d][0] - np.pi**2 / d**2) * scale:>14.6g}" for d in self.thickness)
+            + f"   (surface lowest: {self.surface[0] * scale:.6g})")
         lines.append(f"{'max |shell - surface|':>21} " + " ".join(
             f"{self.deviation(d) * scale:>14.3g}" for d in self.thickness))
         if self.exact is not None:
@@ -85,18 +92,15 @@ def _offset_wall(surface: dict, delta: float, key: str, source: str) -> dict:
         radius = surface["radius"] + delta
         wall = {"shape": "sphere", "radius": radius}
     elif shape == "star":
-        R = surface["radius"]
-        radius = R + delta
-        # r = R (1 + sum a Y) + delta = (R + delta)(1 + sum a R/(R + delta) Y): constant thickness
-        wall = {"shape": "star", "radius": radius,
-                "deformation": [{**t, "amplitude": t["amplitude"] * R / radius} for t in surface["deformation"]]}
+        radius = surface["radius"] + delta
+        wall = {"shape": "star", "radius": surface["radius"], "deformation": surface["deformation"], "offset": delta}
     elif shape == "ellipsoid":
         radius = min(surface["axes"]) + delta
-        wall = {"shape": "ellipsoid", "axes": [a + delta for a in surface["axes"]]}
+        wall = {"shape": "ellipsoid", "axes": surface["axes"], "offset": delta}
     elif shape == "spheroid":
         radius = min(surface["equatorial_radius"], surface["polar_radius"]) + delta
-        wall = {"shape": "spheroid", "equatorial_radius": surface["equatorial_radius"] + delta,
-                "polar_radius": surface["polar_radius"] + delta}
+        wall = {"shape": "spheroid", "equatorial_radius": surface["equatorial_radius"],
+                "polar_radius": surface["polar_radius"], "offset": delta}
     else:
         raise CaseError(f"value {shape!r}: the thin-shell bridge needs a closed shape about the origin; "
                         "allowed: sphere, star, ellipsoid, spheroid", source, "surface.shape")
@@ -148,6 +152,8 @@ def thin_shell_comparison(case: Case, thickness, layers: int | None = None, subd
     data = case.model_dump(mode="json", exclude_none=True)
     surf = data.pop("surface")
     data.pop("sweep", None)
+    if "fields" in data:  # the thin-layer potential belongs to the surface; a shell has its walls instead
+        data["fields"].pop("curvature_potential", None)
 
     def shell_case(d, count):
         shell_data = {**data,
