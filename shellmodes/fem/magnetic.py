@@ -164,22 +164,35 @@ def _quadrature_operators(basis):
     return [sp.csr_matrix((v, (rows, cols)), shape=shape) for v in values]
 
 
-def nodal_currents(terms, surface, vectors: np.ndarray) -> np.ndarray:
+def nodal_currents(terms, surface, vectors: np.ndarray, factorize=None) -> np.ndarray:
     """Probability current j = Im(conj(psi) grad psi) - a |psi|^2 at the nodes (L2 projection), (n, N, 3).
 
     In units of hbar / (m L) times the normalised density (integral |psi|^2 dA = 1 in L^2).
+    ``factorize(A) -> solve`` factors the mass matrix (a back-end of :mod:`shellmodes.eigen.backends`;
+    default SuperLU in symmetric mode).  Measured on the 10,242-node P4 sphere, 36 modes (108 right-hand
+    sides): SuperLU with its default ordering spent 5.6 s in the solves.
     """
     import scipy.sparse.linalg as sla
 
+    if factorize is None:
+        def factorize(A):
+            return sla.splu(A.tocsc(), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
+                            options={"SymmetricMode": True}).solve
+
     basis = surface.basis
+    n = vectors.shape[1]
     a = vector_potential(terms, np.asarray(basis.global_coordinates())).reshape(3, -1)
     value, *gradient = _quadrature_operators(basis)
-    psi = value @ vectors  # (Nq, n) complex
-    weights = np.asarray(basis.dx).ravel()
-    lu = sla.splu(skfem.asm(mass, basis).tocsc())
-    out = np.empty((vectors.shape[1], basis.N, 3))
-    density = np.abs(psi) ** 2
+    # real sparse products on [Re U, Im U]: a real matrix times a complex block would be upcast and copied
+    parts = np.ascontiguousarray(np.hstack([vectors.real, vectors.imag]))
+    at = value @ parts
+    re, im = at[:, :n], at[:, n:]
+    density = re**2 + im**2
+    weights = np.asarray(basis.dx).ravel()[:, None]
+    load = np.empty((basis.N, 3 * n))
     for d, g in enumerate(gradient):
-        j = np.imag(psi.conj() * (g @ vectors)) - a[d][:, None] * density
-        out[:, :, d] = lu.solve(np.ascontiguousarray(value.T @ (weights[:, None] * j))).T
-    return out
+        dg = g @ parts
+        j = re * dg[:, n:] - im * dg[:, :n] - a[d][:, None] * density  # Im(conj(psi) dpsi) - a |psi|^2
+        load[:, d * n:(d + 1) * n] = value.T @ (weights * j)
+    projected = factorize(skfem.asm(mass, basis).tocsr())(load)  # one solve for every mode and component
+    return projected.reshape(basis.N, 3, n).transpose(2, 0, 1).copy()

@@ -58,9 +58,10 @@ def _complex_point_data(spectrum) -> dict:
     currents = None
     problem = spectrum.problem
     if problem is not None and problem.disc.kind == "surface" and U.shape[1]:
+        from shellmodes.eigen.backends import get_backend
         from shellmodes.fem.magnetic import nodal_currents
 
-        currents = nodal_currents(problem.terms, problem.disc.raw, U)
+        currents = nodal_currents(problem.terms, problem.disc.raw, U, factorize=get_backend("auto")[1])
     for i in range(U.shape[1]):
         names, u = mode_array_names(i, True), U[:, i]
         out[names["re"]], out[names["im"]] = np.real(u), np.imag(u)

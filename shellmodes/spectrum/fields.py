@@ -12,6 +12,9 @@ subspace weight, so none depends on the basis chosen inside a degenerate level.
 
 from __future__ import annotations
 
+import hashlib
+from collections import OrderedDict
+
 import numpy as np
 
 from shellmodes.eigen.solve import group_multiplets, lowest_modes
@@ -25,13 +28,42 @@ MODE_LABELS = ("parent_multiplet/parent_l by overlap with the field-free modes o
                "body of revolution about it")
 
 
+#: field-free reference solves kept for reuse: a sweep over a field strength or a flux solves the same
+#: field-free problem at every step (measured: it was a third of a field step's solve, benchmarks/README.md)
+_ZERO_FIELD: OrderedDict = OrderedDict()
+_ZERO_FIELD_KEEP = 2
+
+
+def _fingerprint(*matrices) -> str:
+    digest = hashlib.blake2b(digest_size=16)
+    for A in matrices:
+        A = A.tocsr()
+        digest.update(np.asarray(A.shape, dtype=np.int64).tobytes())
+        for part in (A.indptr, A.indices, A.data):
+            digest.update(np.ascontiguousarray(part).tobytes())
+    return digest.hexdigest()
+
+
 def zero_field_modes(problem, count: int, plan, tolerance: float):
-    """Field-free modes of the same mesh and walls (real), enough to hold every parent multiplet of ``count``."""
+    """Field-free modes of the same mesh and walls (real), enough to hold every parent multiplet of ``count``.
+
+    The last few solves are kept, keyed by the bytes of the field-free K and M (so only an identical
+    problem reuses them): every step of a field sweep needs the same field-free modes.
+    """
     operators = problem.operators
     K0 = problem.space.restrict((operators.K.real - operators.extra["diamagnetic"]).tocsr())
     n = K0.shape[0]
-    return lowest_modes(K0, problem.M, count=max(1, min(n - 2, count + 8)), lower_bound=plan.lower_bound,
-                        scale=plan.scale, multiplet_tolerance=tolerance, residual_limit=1.0)
+    wanted = max(1, min(n - 2, count + 8))
+    key = (_fingerprint(K0, problem.M), wanted, plan.lower_bound, plan.scale, tolerance)
+    if key in _ZERO_FIELD:
+        _ZERO_FIELD.move_to_end(key)
+        return _ZERO_FIELD[key]
+    found = lowest_modes(K0, problem.M, count=wanted, lower_bound=plan.lower_bound, scale=plan.scale,
+                         multiplet_tolerance=tolerance, residual_limit=1.0)
+    _ZERO_FIELD[key] = found
+    while len(_ZERO_FIELD) > _ZERO_FIELD_KEEP:
+        _ZERO_FIELD.popitem(last=False)
+    return found
 
 
 def _symmetric_axis(problem) -> bool:
