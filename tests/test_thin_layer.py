@@ -15,7 +15,12 @@ from shellmodes.fem.curvature import curvatures
 from shellmodes.fem.discretisation import discretise
 from shellmodes.fem.thin_layer import implicit_curvatures, shape_curvatures, thin_layer_at_quadrature, thin_layer_lambda
 from shellmodes.io.outputs import write_outputs
-from shellmodes.studies.profile_reference import spheroid_profile_levels, torus_profile_levels
+from shellmodes.studies.profile_reference import (
+    spheroid_profile_levels,
+    spheroid_shell_levels,
+    torus_profile_levels,
+    torus_shell_levels,
+)
 
 
 def _case(surface, degree=3, subdivisions=2, count=12, thin=True, **extra):
@@ -182,3 +187,32 @@ def test_thin_layer_on_a_shell_is_refused():
                            "fields": {"curvature_potential": True}, "modes": {"count": 2}})
     with pytest.raises(CaseError, match="fields.curvature_potential"):
         run_case(case)
+
+
+@pytest.mark.parametrize("surface", ["spheroid", "torus"])
+def test_da_costa_limit_of_thin_hard_wall_shells(surface):
+    # da Costa, Phys. Rev. A 23, 1982 (1981): a hard-wall shell of thickness d around the surface, minus the
+    # transverse energy (pi / d)^2, tends to the surface levels WITH V_g = -(H^2 - K) as d -> 0, and not to
+    # those without it.  Shell levels from independent spectral solves in normal coordinates
+    # (studies.profile_reference, converged to ~1e-6 here: the basis changes them by less), surface levels
+    # from the 1-D profile equation; angular numbers m = 0 and 1.
+    if surface == "spheroid":
+        def shell(d, m):
+            return spheroid_shell_levels(1.5, 1.0, d, m, 1)[0]
+
+        def plain(m, thin):
+            return spheroid_profile_levels(1.5, 1.0, m, 1, thin_layer=thin)[0]
+    else:
+        def shell(d, m):
+            return torus_shell_levels(2.0, 1.0, d, m, 1, modes=24)[0]
+
+        def plain(m, thin):
+            return torus_profile_levels(2.0, 1.0, m, 1, thin_layer=thin)[0]
+    for m in (0, 1):
+        errors = [shell(d, m) - np.pi**2 / d**2 - plain(m, True) for d in (0.2, 0.1, 0.05)]
+        orders = np.log2(np.abs(errors[:-1]) / np.abs(errors[1:]))
+        # measured: order 2.0 (1.99-2.02) for both surfaces and m; the correction is O(d^2)
+        assert np.all((orders > 1.8) & (orders < 2.2)), orders
+        assert abs(errors[-1]) < 2e-4  # measured 2e-5 to 1.3e-4 at d = 0.05 (0.05 d^2 for the largest)
+        # without V_g the limit is missed by the size of V_g itself (~0.06 and more here)
+        assert abs(shell(0.05, m) - np.pi**2 / 0.05**2 - plain(m, False)) > 100 * abs(errors[-1])

@@ -23,7 +23,7 @@ import numpy as np
 import scipy.linalg as la
 from numpy.polynomial import legendre
 
-__all__ = ["torus_profile_levels", "spheroid_profile_levels", "torus_shell_levels"]
+__all__ = ["torus_profile_levels", "spheroid_profile_levels", "torus_shell_levels", "spheroid_shell_levels"]
 
 
 def torus_profile_levels(R: float, r: float, m: int, count: int, thin_layer: bool = False, modes: int = 48,
@@ -49,6 +49,19 @@ def torus_profile_levels(R: float, r: float, m: int, count: int, thin_layer: boo
     return la.eigh(A, B, eigvals_only=True, subset_by_index=[0, count - 1])
 
 
+def _spheroid_basis(a: float, c: float, m: int, degree: int):
+    """Points x = cos t, weights, g, P_k(x), (1 - x^2)^(m/2) P_k and sqrt(1 - x^2) times its x-derivative."""
+    x, w = legendre.leggauss(4 * degree + 2 * m + 40)
+    s2 = 1 - x**2
+    g = np.sqrt(a**2 * x**2 + c**2 * s2)
+    eye = np.eye(degree + 1)
+    P = np.array([legendre.legval(x, eye[k]) for k in range(degree + 1)])
+    dP = np.array([legendre.legval(x, legendre.legder(eye[k])) for k in range(degree + 1)])
+    env = s2 ** (m / 2)
+    # d/dx [(1-x^2)^(m/2) P] = (1-x^2)^(m/2) P' - m x (1-x^2)^(m/2 - 1) P; times sqrt(1-x^2) to carry (1-x^2)
+    return x, w, g, P, P * env, dP * env * np.sqrt(s2) - m * x * P * s2 ** ((m - 1) / 2)
+
+
 def spheroid_profile_levels(a: float, c: float, m: int, count: int, thin_layer: bool = False, degree: int = 40):
     """Lowest ``count`` eigenvalues of the spheroid profile equation (x^2+y^2)/a^2 + z^2/c^2 = 1.
 
@@ -57,16 +70,8 @@ def spheroid_profile_levels(a: float, c: float, m: int, count: int, thin_layer: 
     = lam integral a g f h dx, g = sqrt(a^2 x^2 + c^2 (1 - x^2)).
     """
     m = abs(m)
-    x, w = legendre.leggauss(4 * degree + 2 * m + 40)
+    x, w, g, P, f, fx_s = _spheroid_basis(a, c, m, degree)
     s2 = 1 - x**2
-    g = np.sqrt(a**2 * x**2 + c**2 * s2)
-    eye = np.eye(degree + 1)
-    P = np.array([legendre.legval(x, eye[k]) for k in range(degree + 1)])
-    dP = np.array([legendre.legval(x, legendre.legder(eye[k])) for k in range(degree + 1)])
-    env = s2 ** (m / 2)
-    f = P * env
-    # d/dx [(1-x^2)^(m/2) P] = (1-x^2)^(m/2) P' - m x (1-x^2)^(m/2 - 1) P; times sqrt(1-x^2) to carry (1-x^2)
-    fx_s = dP * env * np.sqrt(s2) - m * x * P * s2 ** ((m - 1) / 2)
     stiff = (fx_s * w * a / g) @ fx_s.T
     cent = (P * w * m**2 * g / a * s2 ** (m - 1)) @ P.T if m else 0.0
     pot = 0.0
@@ -91,32 +96,60 @@ def torus_shell_levels(R: float, r: float, d: float, m: int, count: int, radial:
     (j = 1..modes); Gauss-Legendre in t and the trapezoid rule in v (periodic); both bases converge
     exponentially for these smooth problems.
     """
-    t0 = r - d / 2
-    xt, wt = legendre.leggauss(2 * radial + 24)
-    t = t0 + d * (xt + 1) / 2
-    wt = wt * d / 2
+    phi, dphi, s, wt = _wall_basis(radial, d)
+    t = r + s
     nv = 8 * modes + 32
     v = 2 * np.pi * np.arange(nv) / nv
     wv = np.full(nv, 2 * np.pi / nv)
-    eye = np.eye(radial)
-    P = np.array([legendre.legval(xt, eye[k]) for k in range(radial)])
-    dP = np.array([legendre.legval(xt, legendre.legder(eye[k])) for k in range(radial)])
-    phi = (1 - xt**2) * P  # vanishes at both walls
-    dphi = ((1 - xt**2) * dP - 2 * xt * P) * (2 / d)
     j = np.arange(1, modes + 1)[:, None]
     psi = np.vstack([np.ones(nv), np.cos(j * v), np.sin(j * v)])
     dpsi = np.vstack([np.zeros(nv), -j * np.sin(j * v), j * np.cos(j * v)])
     rho = R + np.outer(t, np.cos(v))  # (nt, nv)
     weight = np.outer(wt * t, wv) * rho
 
-    def form(g, a, b, c, e):
-        # sum over t, v of g(t, v) a_k(t) b_l(t) c_j(v) e_i(v) as a matrix over (k, j) x (l, i)
-        h = np.einsum("tv,jv,iv->tji", g, c, e)
-        out = np.einsum("kt,lt,tji->kjli", a, b, h)
-        n = a.shape[0] * c.shape[0]
-        return out.reshape(n, n)
+    A = (_tensor_form(weight, dphi, dphi, psi, psi) + _tensor_form(weight / t[:, None] ** 2, phi, phi, dpsi, dpsi)
+         + _tensor_form(weight * m**2 / rho**2, phi, phi, psi, psi))
+    B = _tensor_form(weight, phi, phi, psi, psi)
+    return la.eigh(0.5 * (A + A.T), 0.5 * (B + B.T), eigvals_only=True, subset_by_index=[0, count - 1])
 
-    A = (form(weight, dphi, dphi, psi, psi) + form(weight / t[:, None] ** 2, phi, phi, dpsi, dpsi)
-         + form(weight * m**2 / rho**2, phi, phi, psi, psi))
-    B = form(weight, phi, phi, psi, psi)
+
+def _tensor_form(g, a, b, c, e):
+    """sum over (p, q) of g(p, q) a_k(p) b_l(p) c_j(q) e_i(q), as a matrix over (k, j) x (l, i)."""
+    h = np.einsum("pq,jq,iq->pji", g, c, e)
+    out = np.einsum("kp,lp,pji->kjli", a, b, h)
+    n = a.shape[0] * c.shape[0]
+    return out.reshape(n, n)
+
+
+def _wall_basis(radial: int, d: float):
+    """(1 - y^2) P_k(y) on [-d/2, d/2] (zero at both walls), its derivative, the points and weights."""
+    y, w = legendre.leggauss(2 * radial + 24)
+    eye = np.eye(radial)
+    P = np.array([legendre.legval(y, eye[k]) for k in range(radial)])
+    dP = np.array([legendre.legval(y, legendre.legder(eye[k])) for k in range(radial)])
+    return (1 - y**2) * P, ((1 - y**2) * dP - 2 * y * P) * (2 / d), y * d / 2, w * d / 2
+
+
+def spheroid_shell_levels(a: float, c: float, d: float, m: int, count: int, radial: int = 8, degree: int = 30):
+    """Lowest ``count`` eigenvalues of -Delta with hard walls at normal distance +-d/2 from the spheroid
+    (x^2+y^2)/a^2 + z^2/c^2 = 1, angular number m: the spheroid's thin-layer reference.
+
+    Normal coordinates (s, x = cos t, phi) about the profile rho = a sin t, z = c cos t, with
+    g = sqrt(a^2 x^2 + c^2 (1 - x^2)) and the outward normal (c sin t, a cos t) / g: the scale factors are
+    h_s = 1, h_t = g + s a c / g^2 (meridian curvature a c / g^3), h_phi = sin t (a + s c / g).  With
+    psi = f(s, x) e^{i m phi} the weak form is integral [f_s^2 h_t H + (1 - x^2) f_x^2 H / h_t
+    + m^2 f^2 h_t / ((1 - x^2) H)] ds dx over integral f^2 h_t H ds dx, H = a + s c / g; the basis is
+    (1 - y^2) P_k(y), y = 2 s / d, times (1 - x^2)^(m/2) P_j(x) as in :func:`spheroid_profile_levels`.
+    """
+    m = abs(m)
+    sigma, dsigma, s, ws = _wall_basis(radial, d)
+    x, wx, g, P, e, ex_s = _spheroid_basis(a, c, m, degree)
+    s2 = 1 - x**2
+    ht = g[None, :] + np.outer(s, a * c / g**2)
+    H = a + np.outer(s, c / g)
+    w = np.outer(ws, wx)
+    A = _tensor_form(w * ht * H, dsigma, dsigma, e, e) + _tensor_form(w * H / ht, sigma, sigma, ex_s, ex_s)
+    if m:
+        A = A + _tensor_form(w * m**2 * ht / H, sigma, sigma, P * s2 ** ((m - 1) / 2), P * s2 ** ((m - 1) / 2))
+    B = _tensor_form(w * ht * H, sigma, sigma, e, e)
     return la.eigh(0.5 * (A + A.T), 0.5 * (B + B.T), eigvals_only=True, subset_by_index=[0, count - 1])
