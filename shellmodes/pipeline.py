@@ -156,6 +156,8 @@ def _spectrum(case: Case, problem: Problem, plan: SolverPlan, solved: Solved, la
              f"(requested {modes.count if modes.count else 'below ' + str(modes.below)})",
              "timings [s]: " + ", ".join(f"{k} {v:.3f}" for k, v in timings.items()),
              "versions: " + ", ".join(f"{k} {v}" for k, v in run_versions.items())]
+    solver_info.update(pairs.details.get("solver", {}))  # a path's own records (MPI: per-rank memory and time)
+    lines[-2:-2] = pairs.details.get("log", [])
     lines += [f"warning: {w}" for w in solved.messages]
     info = {"units": units, "mesh": mesh_info, "solver": solver_info, "versions": run_versions,
             "case": case.model_dump(mode="json"), "timings": timings, "warnings": solved.messages,

@@ -346,11 +346,13 @@ class Modes(_Table):
                                           "(at most 0.05: larger ones merge distinct levels)")
     backend: Literal["auto", "splu", "cholmod", "cholmod-system", "pardiso", "mumps"] = Field(
         "auto", description="factorization for shift-invert (auto: the fastest installed)")
-    method: Literal["auto", "lanczos", "block", "lobpcg", "separable"] = Field(
+    method: Literal["auto", "lanczos", "block", "lobpcg", "separable", "mpi"] = Field(
         "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, "
                             "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor, "
-                            "or separation into surface and radial problems (prisms between concentric spheres, "
-                            "the default there)")
+                            "separation into surface and radial problems (prisms between concentric spheres, "
+                            "the default there), or 'mpi': SLEPc Krylov-Schur shift-invert distributed over the "
+                            "MPI ranks of the run (needs scripts/setup-mpi.sh; 'auto' chooses it under mpiexec "
+                            "or run --ranks with more than one rank, except for separable shells)")
     residual_limit: Positive = Field(1e-6, description="largest acceptable relative residual")
 
     @model_validator(mode="before")

@@ -45,6 +45,10 @@ def main(argv=None) -> int:
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING, format="%(message)s")
     warnings.showwarning = _show_warning
     try:
+        if args.command != "run":  # under mpiexec every rank would run the whole command and write
+            from shellmodes.cli.mpi_ranks import one_process_only
+
+            one_process_only(args.command)
         return args.func(args)
     except ShellmodesError as exc:
         print(f"shellmodes: error: {exc}", file=sys.stderr)

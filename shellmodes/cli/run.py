@@ -1,4 +1,7 @@
-"""``shellmodes run CASE [--out DIR] [--report] [-q]``: solve one case file and write its outputs."""
+"""``shellmodes run CASE [--out DIR] [--report] [-q] [--ranks N]``: solve one case file and write its outputs.
+
+``--ranks N`` and runs under ``mpiexec`` go through :mod:`shellmodes.cli.mpi_ranks`.
+"""
 
 from __future__ import annotations
 
@@ -16,10 +19,21 @@ def add_command(subparsers) -> None:
     r.add_argument("--out", help="output folder (default: the case file's name beside it)")
     r.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
     r.add_argument("--report", action="store_true", help="also write report.html (needs the plot extra)")
+    r.add_argument("--ranks", type=int, metavar="N", help="solve on N MPI ranks on this machine (starts mpiexec; "
+                   "needs scripts/setup-mpi.sh); under mpiexec the launcher's rank count is used")
     r.set_defaults(func=main)
 
 
 def main(args) -> int:
+    import sys
+
+    from shellmodes.cli.mpi_ranks import run_on_ranks
+
+    return run_on_ranks(args, lambda: run_here(args), sys.stderr)
+
+
+def run_here(args) -> int:
+    """The run in this process (rank 0 of an MPI run, or a run without MPI)."""
     from shellmodes.case.schema import load_case
     from shellmodes.errors import CaseError
     from shellmodes.io.outputs import check_run_output, write_outputs

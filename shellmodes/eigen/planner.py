@@ -26,6 +26,12 @@ Paths
     SuperLU of K - sigma M in symmetric mode and complex Lanczos, a
     Rayleigh-Ritz step, and the spin splitting where the case asks for it
     (:mod:`shellmodes.eigen.hermitian`).
+``mpi``
+    The assembled problem on the MPI ranks of the run (``modes.method =
+    "mpi"``, or ``"auto"`` in a leader session of more than one rank when the
+    problem is not separable): SLEPc Krylov-Schur shift-invert with a MUMPS
+    Cholesky factor, or CG with algebraic multigrid where the factor's
+    per-rank estimate does not fit (:mod:`shellmodes.eigen.backends.slepc_mpi`).
 ``shift-invert``
     Everything else: a sparse Cholesky factor of K - sigma M with sigma
     strictly below the spectrum, and ARPACK Lanczos, the blocked iteration
@@ -49,7 +55,7 @@ from shellmodes.eigen.solve import Eigenpairs, lowest_modes, resolve_method
 from shellmodes.errors import DoubtfulResultWarning, GeometryError, ProblemError
 from shellmodes.fem.discretisation import Discretisation, Operators
 from shellmodes.harmonics import parent_degree
-from shellmodes.limits import PRISM_ITERATIVE_FROM, WINDOW_START_COUNT
+from shellmodes.limits import DENSE_LIMIT, PRISM_ITERATIVE_FROM, WINDOW_START_COUNT
 
 __all__ = ["Problem", "SolverPlan", "Solved", "plan_solver", "solve_plan"]
 
@@ -152,6 +158,8 @@ class SolverPlan:
     unknowns: int
     reason: str
     factor_estimate_bytes: int | None = None
+    #: what a path measured or estimated to choose (the MPI path: per-rank needs and budget)
+    details: dict = field(default_factory=dict)
 
     @property
     def shift(self) -> float:
@@ -174,6 +182,11 @@ def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:
         A method that does not apply to this problem (``key`` = ``modes.method``).
     """
     disc, method = problem.disc, modes.method
+    if method == "mpi":  # before anything is assembled
+        from shellmodes.eigen.mpi import INSTALL_HINT, available
+
+        if not available():
+            raise ProblemError(f"value 'mpi': {INSTALL_HINT}", "modes.method")
     if method == "separable" and not problem.separable:
         if disc.kind != "prisms":
             why = "it needs shell cells = 'prisms'"
@@ -193,6 +206,9 @@ def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:
         return SolverPlan("separable", "separable", "separable", lower, scale, unknowns,
                           "concentric spherical walls and no potential or V(r) only: the prism matrices are "
                           "Kronecker sums, so surface modes and their radial problems give the modes exactly")
+    if not problem.complex and (method == "mpi" or (method == "auto" and problem.nfree > DENSE_LIMIT
+                                                    and _leader_of_ranks())):
+        return _plan_mpi(problem, modes)
     operators = problem.operators
     lower, scale, n = operators.lower_bound, disc.spectral_scale(operators), problem.nfree
     if problem.complex:
@@ -207,6 +223,36 @@ def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:
                           _backend_name(n, resolved, modes.backend), lower, scale, n,
                           _method_reason(n, resolved, method))
     return _plan_volume(problem, modes, lower, scale)
+
+
+def _leader_of_ranks() -> bool:
+    """Rank 0 of a run on more than one MPI rank (a leader session is open)."""
+    from shellmodes.eigen.mpi import active_session
+
+    leader = active_session()
+    return leader is not None and leader.size > 1
+
+
+def _plan_mpi(problem: Problem, modes: Modes) -> SolverPlan:
+    """The MPI path: the inner solver from the per-rank factor estimate, before any rank allocates.
+
+    Raises
+    ------
+    ProblemError
+        The problem does not fit on these ranks even without a factor (the per-rank memory guard).
+    """
+    from shellmodes.eigen.backends.slepc_mpi import plan_for
+
+    operators = problem.operators
+    lower, scale, n = operators.lower_bound, problem.disc.spectral_scale(operators), problem.nfree
+    record = plan_for(problem.K, problem.M, lower - scale, modes.count or WINDOW_START_COUNT)
+    if record["kind"] is None:
+        raise ProblemError(record["reason"], "modes.count" if modes.count else "modes.below")
+    reason = f"{record['ranks']} MPI ranks: {record['reason']}"
+    if modes.method != "mpi":
+        reason += " (method 'auto' on several ranks)"
+    method = "dense" if record["kind"] == "dense" else "krylov-schur"
+    return SolverPlan("mpi", method, record["kind"], lower, scale, n, reason, record["factor_bytes"], record)
 
 
 def _plan_volume(problem: Problem, modes: Modes, lower: float, scale: float) -> SolverPlan:
@@ -300,7 +346,7 @@ def solve_plan(plan: SolverPlan, problem: Problem, modes: Modes, count: int | No
     OpenBLAS threads spin when the cores are shared (measured on a 2-core
     machine under load: 1 thread was 4-6x faster than 2).
     """
-    runner = {"separable": _separable, "lobpcg-spherical": _lobpcg_spherical,
+    runner = {"separable": _separable, "lobpcg-spherical": _lobpcg_spherical, "mpi": _mpi,
               "shift-invert-hermitian": _hermitian}.get(plan.path, _assembled)
     with warnings.catch_warnings(record=True) as caught, threadpool_limits(limits=1):
         warnings.simplefilter("always")
@@ -330,6 +376,15 @@ def _hermitian(plan, problem, modes, count, below) -> Solved:
     if problem.terms.spin_shift is not None:
         pairs, labels = spin_split(pairs, problem.terms.spin_shift, count, modes.multiplet_tolerance, plan.scale)
     return Solved(pairs, problem.expand(pairs.vectors), [], labels)
+
+
+def _mpi(plan, problem, modes, count, below) -> Solved:
+    from shellmodes.eigen.backends.slepc_mpi import mpi_lowest_modes
+
+    pairs = mpi_lowest_modes(problem.K, problem.M, count, below, lower_bound=plan.lower_bound, scale=plan.scale,
+                             multiplet_tolerance=modes.multiplet_tolerance, residual_limit=modes.residual_limit,
+                             plan=dict(plan.details))
+    return Solved(pairs, problem.expand(pairs.vectors), [])
 
 
 def _lobpcg_spherical(plan, problem, modes, count, below) -> Solved:

@@ -29,7 +29,8 @@ from shellmodes.eigen.resources import check_count, check_growth
 from shellmodes.errors import DoubtfulResultWarning, SolverError
 from shellmodes.limits import BLOCK_COUNT, BLOCK_THRESHOLD, DENSE_LIMIT, WINDOW_START_COUNT
 
-__all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals", "resolve_method"]
+__all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals", "resolve_method", "first_size",
+           "multiplet_end", "checked_pairs"]
 
 log = logging.getLogger(__name__)
 
@@ -50,6 +51,9 @@ class Eigenpairs:
     requested: int | None
     timings: dict = field(default_factory=dict)
     method: str = "lanczos"
+    #: extra records of a solver path: ``"solver"`` (merged into the spectrum's solver record) and ``"log"``
+    #: (lines for run.log)
+    details: dict = field(default_factory=dict)
 
     def __repr__(self):
         lows = ", ".join(f"{v:.6g}" for v in self.lam[:4])
@@ -186,8 +190,7 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
     rng = np.random.default_rng(20261202)
     v0 = rng.standard_normal(n).astype(K.dtype)  # complex for complex Hermitian pairs (magnetic fields)
     t0 = time.perf_counter()
-    target = count if count is not None else min(n, WINDOW_START_COUNT)
-    k = min(n, target + max(6, int(np.ceil(0.15 * target))))
+    k = first_size(n, count)
     while True:
         if name == "dense" or k >= n - 1:
             lam, U = _dense(K, M, min(k, n))
@@ -211,37 +214,63 @@ def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, 
         else:
             lam, U = _shift_invert(K, M, k, sigma, factorize, v0)
             name_used, method_used = name, "lanczos"
-        groups = group_multiplets(lam, multiplet_tolerance, scale)
-        if below is not None:
-            inside = np.flatnonzero(lam < below)
-            if len(inside) == len(lam) and len(lam) < n:
-                k = min(n, 2 * k)
-                check_growth(n, k, count, below, multiplet_tolerance)
-                continue
-            last = inside[-1] if len(inside) else -1
-        else:
-            last = count - 1
-        if last < 0:
-            keep = 0
-        else:
-            group = next(g for g in groups if last in g)
-            keep = group[-1] + 1
-            if keep == len(lam) and len(lam) < n:  # the multiplet may continue beyond what we have
-                k = min(n, k + max(8, len(group) + 8))
-                check_growth(n, k, count, below, multiplet_tolerance)
-                continue
-        break
-    lam, U = lam[:keep], U[:, :keep]
+        keep, k = multiplet_end(lam, n, k, count, below, multiplet_tolerance, scale)
+        if keep is not None:
+            break
+    return checked_pairs(K, M, lam[:keep], U[:, :keep], sigma, count, residual_limit, name_used, method_used,
+                         time.perf_counter() - t0, extra)
+
+
+def first_size(n: int, count: int | None) -> int:
+    """How many pairs to compute first: the count and a margin for the multiplet that may straddle it."""
+    target = count if count is not None else min(n, WINDOW_START_COUNT)
+    return min(n, target + max(6, int(np.ceil(0.15 * target))))
+
+
+def multiplet_end(lam, n: int, k: int, count: int | None, below: float | None, tolerance: float,
+                  scale: float) -> tuple[int | None, int]:
+    """``(keep, k)``: how many of the ascending ``lam`` to keep, or ``(None, larger k)`` to compute more.
+
+    The kept set ends at the requested count or energy, extended to the end of
+    the multiplet there; when that multiplet (or the window) may continue
+    beyond the ``k`` pairs found, more are needed (the growth is capped by
+    :func:`~shellmodes.eigen.resources.check_growth`).
+    """
+    if below is not None:
+        inside = np.flatnonzero(lam < below)
+        if len(inside) == len(lam) and len(lam) < n:
+            k = min(n, 2 * k)
+            check_growth(n, k, count, below, tolerance)
+            return None, k
+        last = inside[-1] if len(inside) else -1
+    else:
+        last = count - 1
+    if last < 0:
+        return 0, k
+    group = next(g for g in group_multiplets(lam, tolerance, scale) if last in g)
+    keep = group[-1] + 1
+    if keep == len(lam) and len(lam) < n:  # the multiplet may continue beyond what we have
+        k = min(n, k + max(8, len(group) + 8))
+        check_growth(n, k, count, below, tolerance)
+        return None, k
+    return keep, k
+
+
+def checked_pairs(K, M, lam, U, sigma: float, count: int | None, residual_limit: float, backend: str,
+                  method: str, elapsed: float, timings: dict | None = None,
+                  details: dict | None = None) -> Eigenpairs:
+    """M-orthonormalised pairs with their residuals as an :class:`Eigenpairs`; large residuals warn."""
+    keep = len(lam)
     U, orth = _m_orthonormalise(U, M)
     residuals = relative_residuals(K, M, lam, U, floor=abs(sigma) if sigma else 1.0)
-    elapsed = time.perf_counter() - t0
-    log.info("solved %d modes with %s (%s) in %.2f s", keep, name_used, method_used, elapsed)
+    log.info("solved %d modes with %s (%s) in %.2f s", keep, backend, method, elapsed)
     if count is not None and keep > count:
         log.info("extended %d requested modes to %d to complete the last multiplet", count, keep)
     worst = float(np.max(residuals)) if keep else 0.0
     if worst > residual_limit:
         warnings.warn(f"largest relative residual {worst:.2e} exceeds the limit {residual_limit:.1e} "
                       f"(mode {int(np.argmax(residuals))}); do not trust these modes without checking",
-                      DoubtfulResultWarning, stacklevel=2)
-    return Eigenpairs(lam=lam, vectors=U, residuals=residuals, orthogonality=orth, shift=sigma,
-                      backend=name_used, requested=count, timings={"eigensolve": elapsed, **extra}, method=method_used)
+                      DoubtfulResultWarning, stacklevel=3)
+    return Eigenpairs(lam=lam, vectors=U, residuals=residuals, orthogonality=orth, shift=sigma, backend=backend,
+                      requested=count, timings={"eigensolve": elapsed, **(timings or {})}, method=method,
+                      details=details or {})
