@@ -252,3 +252,15 @@ def test_uniform_field_in_a_ball_zeeman_and_diamagnetic_shifts():
     assert (p[2] - p[0]) / 2 / mu_b_b == pytest.approx(1.0, rel=2e-3)  # diamagnetic m-dependence ~1e-3
     lz = sorted(round(r["mean_Lz"]) for r in field.modes_table()[1:4])
     assert lz == [-1, 0, 1]
+
+
+def test_pictures_of_complex_modes_show_density_and_current(tmp_path):
+    # output.pictures on a flux-threaded ring: one render per multiplet (density colour, current arrows)
+    pytest.importorskip("pyvista")
+    pytest.importorskip("matplotlib")
+    case = _case({"shape": "torus", "major_radius": 2.0, "minor_radius": 0.7}, {"flux_line": {"flux": 0.25}},
+                 degree=2, subdivisions=1, count=3, output={"pictures": True, "picture_modes": 2})
+    write_outputs(run_case(case), tmp_path / "out")
+    for name in ("levels.png", "mode-0000.png", "mode-0001.png"):
+        data = (tmp_path / "out" / name).read_bytes()
+        assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 10_000  # a real picture, not an empty canvas

@@ -129,6 +129,13 @@ def _write_pictures(spectrum, folder: Path):
     data = spectrum_json(spectrum)
     spectrum_picture(data, folder / "levels.png", title=(spectrum.info.get("case") or {}).get("title") or None)
     chosen = [m.members[0] for m in spectrum.multiplets[: output.get("picture_modes", 4)]]
+    if np.iscomplexobj(spectrum.vectors):  # density and current arrows (issue 15)
+        from shellmodes.io.pictures import render_currents
+
+        render_currents(folder / "modes.vtu", chosen, str(folder / "mode-{index:04d}.png"),
+                        lambda i: mode_array_names(i, True), energies=dict(enumerate(spectrum.energies)),
+                        unit=spectrum.info["units"]["energy"])
+        return
     render_modes(folder / "modes.vtu", chosen, str(folder / "mode-{index:04d}.png"),
                  unit=spectrum.info["units"]["energy"])
 

@@ -451,3 +451,57 @@ def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename):
         plotter.screenshot(filename)
     finally:
         plotter.close()
+
+
+def render_currents(vtu_path, indices, path_pattern, names, *, energies=None, unit: str | None = None,
+                    window_size=(900, 800)) -> list[Path]:
+    """Render complex modes of a surface ``modes.vtu``: the density |psi|^2 in colour and the probability
+    current as arrows on the surface (a persistent current on a ring shows as a loop of arrows).
+
+    ``names(index)`` gives the mode's array names (:func:`shellmodes.io.outputs.mode_array_names`);
+    ``energies`` (index -> energy) titles each picture.
+    """
+    pv = _pyvista()
+    _matplotlib()
+    with pv.vtk_verbosity("off"):
+        grid = pv.read(Path(vtu_path))
+        base = pv.UnstructuredGrid(grid.cells, grid.celltypes, np.asarray(grid.points))
+        size = float(np.linalg.norm(np.ptp(np.asarray(grid.points), axis=0)))
+        written = []
+        for i in indices:
+            density = np.asarray(grid.point_data[names(i)["density"]], dtype=float)
+            current = np.asarray(grid.point_data.get(names(i)["current"], np.zeros((len(density), 3))), dtype=float)
+            view = base.copy()
+            view.point_data["density"] = density
+            view = view.extract_surface(nonlinear_subdivision=3, algorithm="dataset_surface")
+            points = pv.PolyData(np.asarray(grid.points))
+            points.point_data["j"] = current
+            step = max(1, len(density) // 600)  # about 600 arrows
+            sample = points.extract_points(np.arange(0, len(density), step), adjacent_cells=False)
+            top = float(np.max(np.linalg.norm(current, axis=1))) if len(current) else 0.0
+            arrows = sample.glyph(orient="j", scale="j", factor=0.08 * size / top) if top > 0 else None
+            out = Path(str(path_pattern).format(index=i))
+            suffix = f" {unit}" if unit and unit != "1" else ""
+            energy = "" if energies is None else f"   E = {energies[i]:.6g}{suffix}"
+            title = f"mode {i}{energy}: density and current"
+            written.append(_write_atomic_png(out, lambda tmp, v=view, a=arrows, t=title: _shoot_current(
+                pv, v, a, t, window_size, tmp)))
+    return written
+
+
+def _shoot_current(pv, surface, arrows, title, window_size, filename):
+    plotter = pv.Plotter(off_screen=True, window_size=list(window_size))
+    try:
+        plotter.set_background("#fbfaf7")
+        plotter.add_mesh(surface, scalars="density", cmap="viridis", smooth_shading=True, show_scalar_bar=False)
+        if arrows is not None:
+            plotter.add_mesh(arrows, color="#f4f1ea")
+        plotter.add_scalar_bar(title=title, n_labels=5, fmt="%.2g", color="#1d2a3a", vertical=False,
+                               position_x=0.18, position_y=0.04, width=0.64, height=0.09, title_font_size=20,
+                               label_font_size=16)
+        plotter.camera_position = "iso"
+        plotter.reset_camera()
+        plotter.camera.zoom(1.1)
+        plotter.screenshot(filename)
+    finally:
+        plotter.close()
