@@ -430,12 +430,16 @@ def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
     return written
 
 
-def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename):
+def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename, scalars="u", arrows=None):
+    """One picture: ``scalars`` in colour (symmetric limits +-``limit``, or the data's range for None),
+    and optional ``arrows`` (glyphs of a vector field)."""
     plotter = pv.Plotter(off_screen=True, window_size=list(window_size))
     try:
         plotter.set_background("#fbfaf7")
-        plotter.add_mesh(surface, scalars="u", cmap=cmap, clim=(-limit, limit), smooth_shading=True,
-                         ambient=0.4, diffuse=0.7, specular=0.05, show_scalar_bar=False)
+        plotter.add_mesh(surface, scalars=scalars, cmap=cmap, clim=None if limit is None else (-limit, limit),
+                         smooth_shading=True, ambient=0.4, diffuse=0.7, specular=0.05, show_scalar_bar=False)
+        if arrows is not None:
+            plotter.add_mesh(arrows, color="#f4f1ea")
         plotter.add_scalar_bar(title=title, n_labels=5, fmt="%.2g", color="#1d2a3a", vertical=False,
                                position_x=0.18, position_y=0.04, width=0.64, height=0.09, title_font_size=22,
                                label_font_size=16)
@@ -484,24 +488,6 @@ def render_currents(vtu_path, indices, path_pattern, names, *, energies=None, un
             suffix = f" {unit}" if unit and unit != "1" else ""
             energy = "" if energies is None else f"   E = {energies[i]:.6g}{suffix}"
             title = f"mode {i}{energy}: density and current"
-            written.append(_write_atomic_png(out, lambda tmp, v=view, a=arrows, t=title: _shoot_current(
-                pv, v, a, t, window_size, tmp)))
+            written.append(_write_atomic_png(out, lambda tmp, v=view, a=arrows, t=title: _shoot(
+                pv, v, t, "viridis", None, False, window_size, tmp, scalars="density", arrows=a)))
     return written
-
-
-def _shoot_current(pv, surface, arrows, title, window_size, filename):
-    plotter = pv.Plotter(off_screen=True, window_size=list(window_size))
-    try:
-        plotter.set_background("#fbfaf7")
-        plotter.add_mesh(surface, scalars="density", cmap="viridis", smooth_shading=True, show_scalar_bar=False)
-        if arrows is not None:
-            plotter.add_mesh(arrows, color="#f4f1ea")
-        plotter.add_scalar_bar(title=title, n_labels=5, fmt="%.2g", color="#1d2a3a", vertical=False,
-                               position_x=0.18, position_y=0.04, width=0.64, height=0.09, title_font_size=20,
-                               label_font_size=16)
-        plotter.camera_position = "iso"
-        plotter.reset_camera()
-        plotter.camera.zoom(1.1)
-        plotter.screenshot(filename)
-    finally:
-        plotter.close()
