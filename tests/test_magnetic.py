@@ -264,3 +264,17 @@ def test_pictures_of_complex_modes_show_density_and_current(tmp_path):
     for name in ("levels.png", "mode-0000.png", "mode-0001.png"):
         data = (tmp_path / "out" / name).read_bytes()
         assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 10_000  # a real picture, not an empty canvas
+
+
+def test_memory_guard_counts_complex_modes_and_the_reference_solve():
+    # complex Hermitian matrices, factor and modes take twice the bytes of real ones (16 against 8 per value),
+    # and the labels need a field-free solve of the same size as the real one
+    from shellmodes.eigen.resources import estimate_case
+
+    base = {"surface": {"shape": "sphere"}, "units": UNITS, "resolution": {"degree": 4, "subdivisions": 3},
+            "modes": {"count": 100}}
+    real = estimate_case(case_from_dict(base)).parts
+    field = estimate_case(case_from_dict({**base, "fields": {"magnetic": {"strength": 1.0}}})).parts
+    for part in ("matrices", "factor", "eigen-iteration", "modes written"):
+        assert field[part] == pytest.approx(2 * real[part])
+    assert field["field-free reference"] == pytest.approx(real["eigen-iteration"])
