@@ -107,6 +107,13 @@ def _shift_invert(K, M, k, sigma, factorize, v0):
     n = K.shape[0]
     op = sla.LinearOperator((n, n), matvec=solve, matmat=solve, dtype=A.dtype)
     ncv = min(n, max(2 * k + 1, k + 32))
+    if np.iscomplexobj(A):
+        # a real sparse M times a complex vector is upcast (M copied to complex) at every product: multiply the
+        # real and imaginary parts instead (measured: 3.9 s of 9 s for 100 modes on 10,242 nodes)
+        def mass(x, real=M):
+            return real @ x.real + 1j * (real @ x.imag)
+
+        M = sla.LinearOperator((n, n), matvec=mass, dtype=A.dtype)
     try:
         lam, U = sla.eigsh(K, k=k, M=M, sigma=sigma, which="LM", OPinv=op, v0=v0, ncv=ncv,
                            tol=1e-13, maxiter=max(1000, 20 * k))

@@ -3,9 +3,9 @@
 The discretisations call these from ``assemble(media, potential, terms)`` with
 the :class:`~shellmodes.case.fields.FieldTerms` of the case.  Operators of a
 problem with a vector potential are complex Hermitian, K = S + V + D + i C; the
-parts D (|a|^2) and C (the cross term) are kept in ``Operators.extra`` for the
-labels (paramagnetic and diamagnetic parts of each level, the field-free
-reference modes of the same mesh, whose K is Re(K) - D).
+parts D (|a|^2) and C (the cross term) and the field-free K are kept in
+``Operators.extra`` for the labels (paramagnetic and diamagnetic parts of each
+level, the field-free reference modes of the same mesh).
 """
 
 from __future__ import annotations
@@ -31,8 +31,8 @@ def surface_field_operators(surface, shape, terms, K, lower: float):
         from shellmodes.fem.magnetic import surface_magnetic
 
         D, C = surface_magnetic(terms, surface)
+        extra.update(diamagnetic=D, paramagnetic=C, field_free=K.tocsr())
         K = (K + D + 1j * C).tocsr()
-        extra.update(diamagnetic=D, paramagnetic=C)
     return K, lower, extra
 
 
@@ -43,4 +43,4 @@ def volume_field_operators(raw, terms, inverse_mass: dict, K):
     from shellmodes.fem.magnetic import volume_magnetic
 
     D, C = volume_magnetic(terms, raw, inverse_mass)
-    return (K + D + 1j * C).tocsr(), {"diamagnetic": D, "paramagnetic": C}
+    return (K + D + 1j * C).tocsr(), {"diamagnetic": D, "paramagnetic": C, "field_free": K.tocsr()}

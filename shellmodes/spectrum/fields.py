@@ -51,15 +51,19 @@ def zero_field_modes(problem, count: int, plan, tolerance: float):
     problem reuses them): every step of a field sweep needs the same field-free modes.
     """
     operators = problem.operators
-    K0 = problem.space.restrict((operators.K.real - operators.extra["diamagnetic"]).tocsr())
+    # the field-free K as assembled (Re(K) - D would differ in its last bits from one field to the next)
+    K0 = problem.space.restrict(operators.extra["field_free"])
     n = K0.shape[0]
     wanted = max(1, min(n - 2, count + 8))
     key = (_fingerprint(K0, problem.M), wanted, plan.lower_bound, plan.scale, tolerance)
     if key in _ZERO_FIELD:
         _ZERO_FIELD.move_to_end(key)
         return _ZERO_FIELD[key]
-    found = lowest_modes(K0, problem.M, count=wanted, lower_bound=plan.lower_bound, scale=plan.scale,
-                         multiplet_tolerance=tolerance, residual_limit=1.0)
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):  # as in eigen/planner.solve_plan: spinning BLAS threads cost 4-6x here
+        found = lowest_modes(K0, problem.M, count=wanted, lower_bound=plan.lower_bound, scale=plan.scale,
+                             multiplet_tolerance=tolerance, residual_limit=1.0)
     _ZERO_FIELD[key] = found
     while len(_ZERO_FIELD) > _ZERO_FIELD_KEEP:
         _ZERO_FIELD.popitem(last=False)
