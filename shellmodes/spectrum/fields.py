@@ -55,12 +55,13 @@ def zero_field_modes(problem, count: int, plan, tolerance: float):
     K0 = problem.space.restrict(operators.extra["field_free"])
     n = K0.shape[0]
     wanted = max(1, min(n - 2, count + 8))
-    key = (_fingerprint(K0, problem.M), wanted, plan.lower_bound, plan.scale, tolerance)
-    if key in _ZERO_FIELD:
+    key = (_fingerprint(K0, problem.M), plan.lower_bound, plan.scale, tolerance)
+    if key in _ZERO_FIELD and len(_ZERO_FIELD[key].lam) >= wanted:  # more reference modes than needed: harmless
         _ZERO_FIELD.move_to_end(key)
         return _ZERO_FIELD[key]
     from threadpoolctl import threadpool_limits
 
+    wanted = max(1, min(n - 2, count + 8 + count // 8))  # room for the count to grow along a sweep
     with threadpool_limits(limits=1):  # as in eigen/planner.solve_plan: spinning BLAS threads cost 4-6x here
         found = lowest_modes(K0, problem.M, count=wanted, lower_bound=plan.lower_bound, scale=plan.scale,
                              multiplet_tolerance=tolerance, residual_limit=1.0)
