@@ -25,7 +25,7 @@ STAGES = [
     ("geometry", ["shapes", "meshfiles"]),
     ("model", ["case.model"]),
     ("fem", ["fem.surface", "fem.forms", "fem.curvature", "fem.shellmesh", "fem.tetrahedra", "fem.assemble",
-             "fem.prisms", "fem", "meshfiles.volume"]),
+             "fem.prisms", "fem.orientation", "fem", "meshfiles.volume"]),
     ("discretisation", ["fem.discretisation"]),
     ("eigen", ["eigen.backends", "eigen.block", "eigen.solve", "eigen.separable", "eigen"]),
     ("planner", ["eigen.planner"]),
@@ -33,7 +33,7 @@ STAGES = [
     ("pipeline", ["pipeline"]),
     ("outputs", ["io.pictures", "io.outputs", "io"]),
     ("studies", ["studies"]),
-    ("report", ["io.report"]),
+    ("report", ["io.report", "io.report_folders"]),
     ("cli", ["cli", "__main__"]),
 ]
 

@@ -86,7 +86,7 @@ def test_rerun_drops_the_earlier_runs_pictures_and_keeps_the_users_files(tmp_pat
     _old_run(out)
     result = run_cli("run", case, "--out", out, "--quiet")
     assert result.status == 0, result.stderr
-    assert sorted(p.name for p in out.iterdir()) == ["modes.vtu", "notes.txt", "run.log", "spectrum.csv",
+    assert sorted(p.name for p in out.iterdir()) == ["arrays.csv", "modes.vtu", "notes.txt", "run.log", "spectrum.csv",
                                                      "spectrum.json"]
     assert (out / "notes.txt").read_text() == "the user's own notes\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["case.toml", "out"]

@@ -184,7 +184,7 @@ def test_prism_case_through_the_cli_writes_wedges_and_exact_labels(tmp_path):
     assert [(m["n"], m["dominant_l"]) for m in modes[:9]] == [(1, 0)] + [(1, 1)] * 3 + [(1, 2)] * 5
     mesh = meshio.read(tmp_path / "out" / "modes.vtu")
     assert [c.type for c in mesh.cells] == ["wedge"]
-    assert len([k for k in mesh.point_data if k.startswith("mode")]) == len(modes)
+    assert len([k for k in mesh.point_data if k.startswith("psi_")]) == len(modes)
     if (tmp_path / "out" / "levels.png").exists():  # pictures need the plot extra
         assert (tmp_path / "out" / "mode-0000.png").read_bytes()[:4] == b"\x89PNG"
 

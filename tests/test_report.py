@@ -25,7 +25,7 @@ pytest.importorskip("pyvista")
 
 from shellmodes.case.schema import case_from_dict  # noqa: E402
 from shellmodes.errors import CaseError, MeshError, ShellmodesError  # noqa: E402
-from shellmodes.io.outputs import mode_field_name, write_outputs  # noqa: E402
+from shellmodes.io.outputs import mode_array_names, write_outputs  # noqa: E402
 from shellmodes.io.pictures import PlotExtraMissing, render_modes, spectrum_picture, sphere_ladder  # noqa: E402
 from shellmodes.io.report import SAFETY_NOTE, case_toml, find_convergence, load_run, write_report  # noqa: E402
 from shellmodes.pipeline import run_case  # noqa: E402
@@ -156,7 +156,7 @@ def test_volume_render_cuts_a_tetra10_shell(tmp_path):
     u[free] = vec
     points, cells, _ = export_cells(disc)
     assert cells[0][0] == "tetra10"
-    meshio.Mesh(points, cells, point_data={mode_field_name(i, lam[i]): u[:, i] for i in range(4)}).write(
+    meshio.Mesh(points, cells, point_data={mode_array_names(i)["psi"]: u[:, i] for i in range(4)}).write(
         tmp_path / "modes.vtu")
     (path,) = render_modes(tmp_path / "modes.vtu", [1], str(tmp_path / "v{index}.png"))
     _assert_png(path)
@@ -373,3 +373,51 @@ def test_a_real_convergence_study_is_tabled(run_dir):
     path.write_text(json.dumps(other))
     text = write_report(run_dir, modes=0).read_text(encoding="utf-8")
     assert "is not one of the study" in text and "The last column" not in text
+
+
+# --- what the report and pictures say (issue 12, items 11 and 12) ---
+
+def test_case_block_echoes_only_keys_that_apply():
+    from shellmodes.io.report import applicable_case
+
+    electron = {"particle": {"mass": 1.0, "mass_unit": "electron", "effective_mass": 0.067,
+                             "moment_of_inertia": None, "inertia_unit": "amu angstrom2"},
+                "output": {"vtu": True, "pictures": False, "picture_modes": 4}, "limits": {"memory_gib": None}}
+    shown = case_toml(applicable_case(electron))
+    assert "inertia_unit" not in shown and "picture_modes" not in shown and "[limits]" not in shown
+    assert 'mass_unit = "electron"' in shown and "effective_mass = 0.067" in shown
+    rotor = {"particle": {"mass": None, "mass_unit": "electron", "effective_mass": 1.0, "moment_of_inertia": 2.0,
+                          "inertia_unit": "amu angstrom2"}}
+    shown = case_toml(applicable_case(rotor))
+    assert "inertia_unit" in shown and "mass_unit" not in shown and "effective_mass" not in shown
+
+
+def test_closing_caution_fits_quantum_levels():
+    note = SAFETY_NOTE.lower()
+    for phrase in ("not measurements", "effective-mass approximation", "hard walls", "finite barrier",
+                   "convergence study", "licensed professional practice"):
+        assert phrase in note, phrase
+    assert "acoustic" not in note and "structural" not in note
+
+
+def test_level_labels_name_n_and_l():
+    from shellmodes.io.pictures import _group_label
+
+    def members(m):
+        return m["modes"]
+
+    shell = [{"index": 1, "l": 1, "modes": [1, 2, 3]}]
+    assert _group_label(shell, {1: 2, 2: 2, 3: 2}, members) == "n=2, l=1 (3)"
+    split = [{"index": 4, "l": 2, "modes": [4]}, {"index": 5, "l": 2, "modes": [5, 6]}]
+    assert _group_label(split, {}, members) == "l=2 (1+2)"
+
+
+def test_sweep_axis_names_are_readable():
+    from shellmodes.studies.sweep_files import _clean, axis_name
+
+    case = {"surface": {"shape": "star", "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}]},
+            "units": {"length": "nm"}}
+    assert axis_name("surface.deformation[0].amplitude", case) == "amplitude of the (l=2, m=0) deformation"
+    assert axis_name("surface.radius", case) == "radius [nm]"
+    # linspace noise: 12 significant digits of the series' largest value
+    assert _clean(1.3877787807814457e-17, [-0.1, 0.1]) == 0.0 and _clean(0.30000000000000004) == 0.3

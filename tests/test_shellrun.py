@@ -122,7 +122,7 @@ def test_shell_outputs_through_cli(tmp_path):
     mesh = meshio.read(tmp_path / "out" / "modes.vtu")
     assert [c.type for c in mesh.cells] == ["tetra10"]
     assert "region" in mesh.cell_data
-    assert len([k for k in mesh.point_data if k.startswith("mode")]) == len(data["modes"])
+    assert len([k for k in mesh.point_data if k.startswith("psi_")]) == len(data["modes"])
 
 
 def test_lobpcg_path_agrees_with_shift_invert():

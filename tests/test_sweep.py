@@ -373,7 +373,7 @@ def test_sweep_files_table_collection_and_picture(tmp_path, run_cli, write_case)
     assert root.tag == "VTKFile" and root.get("type") == "Collection"
     datasets = root.find("Collection").findall("DataSet")
     assert len(datasets) == len(radii)
-    assert [d.get("file") for d in datasets] == [f"steps/step-{i:04d}/modes.vtu" for i in range(3)]
+    assert [d.get("file") for d in datasets] == [f"series/step-{i:04d}.vtu" for i in range(3)]
     assert [float(d.get("timestep")) for d in datasets] == list(radii)
     assert all((out / d.get("file")).is_file() for d in datasets)
 

@@ -207,6 +207,13 @@ class Discretisation(ABC):
         return repr(self.raw)
 
 
+def _oriented(points, cells, cell_data) -> ExportCells:
+    """Volume cells turned to positive volumes (scikit-fem's sorted vertices face either way)."""
+    from shellmodes.fem.orientation import positive_volume_cells
+
+    return ExportCells(points, positive_volume_cells(points, cells), cell_data)
+
+
 # ------------------------------------------------------------------------------------------------ surfaces
 class SurfaceDiscretisation(Discretisation):
     """A curved Lagrange surface (:class:`~shellmodes.fem.surface.CurvedSurface`) of an analytic or mesh shape."""
@@ -259,15 +266,21 @@ class SurfaceDiscretisation(Discretisation):
         return 4.0 * np.pi / area
 
     def export(self) -> ExportCells:
+        """Cells with outward normals (a mesh file's cells keep the file's orientation)."""
+        from shellmodes.fem.orientation import flip_cells, outward_flips
         from shellmodes.fem.surface import lagrange_element, lattice_cells
 
         degree = self.raw.degree
         t = self.raw.basis.element_dofs
+        flips = self.raw.input_flipped if self.shape.name == "mesh" else None
+        if flips is None:
+            flips = outward_flips(t[:3].T, self.raw.nodes)
         if degree == 2:
-            return ExportCells(self.raw.nodes, [("triangle6", t.T.copy())])
+            return ExportCells(self.raw.nodes, [("triangle6", flip_cells("triangle6", t.T, flips))])
         sub = lattice_cells(lagrange_element(degree), degree)
-        cells = t[sub.T]  # (3, k^2, Nel)
-        return ExportCells(self.raw.nodes, [("triangle", cells.transpose(2, 1, 0).reshape(-1, 3))])
+        cells = t[sub.T].transpose(2, 1, 0)  # (Nel, k^2, 3)
+        cells[flips] = cells[flips][:, :, [0, 2, 1]]
+        return ExportCells(self.raw.nodes, [("triangle", cells.reshape(-1, 3))])
 
     def mesh_info(self) -> dict:
         shape = self.shape
@@ -386,7 +399,7 @@ class TetrahedralDiscretisation(_Volume):
     def export(self) -> ExportCells:
         from shellmodes.fem.tetrahedra import export_cells
 
-        return ExportCells(*export_cells(self.raw))
+        return _oriented(*export_cells(self.raw))
 
     def describe(self) -> str:
         return f"mesh: degree {self.degree}, {self.nelements} tetrahedra, {self.ndofs} dofs, h = {self.h:.4g}"
@@ -446,7 +459,7 @@ class PrismDiscretisation(_Volume):
     def export(self) -> ExportCells:
         from shellmodes.fem.prisms import export_prisms
 
-        return ExportCells(*export_prisms(self.raw))
+        return _oriented(*export_prisms(self.raw))
 
     def mesh_info(self) -> dict:
         raw = self.raw

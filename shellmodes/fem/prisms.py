@@ -514,9 +514,9 @@ def kronecker_factors(disc: PrismShell, inverse_mass: dict, offsets: dict | None
 def export_prisms(disc: PrismShell):
     """Linear wedge cells on the Lagrange lattice of every prism, with region ids (meshio/VTK order).
 
-    Each prism of degrees (k, q) becomes k^2 q wedges on its own nodes; VTK's
-    wedge takes its first triangle as the base whose normal points away
-    from the second, so the outer triangle comes first.  A ball's wedges that
+    Each prism of degrees (k, q) becomes k^2 q wedges on its own nodes, the
+    outer triangle first; the discretisation's export turns every cell to a
+    positive volume (:func:`shellmodes.fem.orientation.positive_volume_cells`).  A ball's wedges that
     touch the centre collapse to tetrahedra (the outer triangle and the centre
     node of surface dof 0), oriented to a positive volume.
     """

@@ -151,6 +151,8 @@ class CurvedSurface:
     degree: int
     h: float
     geometry_degree: int | None = None
+    #: (Nel,) True where scikit-fem's sorted vertex order runs against the triangle as given (None if unknown)
+    input_flipped: np.ndarray | None = None
 
     @property
     def ndofs(self) -> int:
@@ -255,7 +257,10 @@ def curved_surface(
         nodes[t.T.ravel()] = local.transpose(1, 2, 0).reshape(-1, 3)
     ends = gnodes[tg[:3]]  # vertex images, (3, Nel, 3)
     h = float(np.max(np.linalg.norm(ends - np.roll(ends, 1, axis=0), axis=2)))
-    return CurvedSurface(mesh=mesh, basis=basis, nodes=nodes, degree=degree, h=h, geometry_degree=gdegree)
+    from shellmodes.fem.orientation import input_flips
+
+    return CurvedSurface(mesh=mesh, basis=basis, nodes=nodes, degree=degree, h=h, geometry_degree=gdegree,
+                         input_flipped=input_flips(triangles, mesh.t.T))
 
 
 def _flat_positions(corners, doflocs, t, n):

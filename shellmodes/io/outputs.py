@@ -2,8 +2,15 @@
 
 Everything is written into a fresh temporary folder beside the target and
 moved into place only when every file is complete, so a failed run leaves
-nothing half-written.  meshio's VTU writer drops field data, so each mode's
-energy is carried in its point-array name as well as in the tables.
+nothing half-written.
+
+Array names in ``modes.vtu`` are stable: they depend on the mode index only
+(:func:`mode_array_names`), so a viewer keeps colouring by ``psi_0003`` while
+stepping through a series.  Energies, eigenvalues, residuals, multiplets and
+labels travel as VTK field data (one entry per mode, in index order) and in
+the sidecar table ``arrays.csv`` (array name -> mode, energy, label, residual);
+never in the names.  meshio's VTU writer drops field data, so the ``FieldData``
+block is added to its XML by :func:`add_field_data`.
 """
 
 from __future__ import annotations
@@ -21,8 +28,9 @@ import numpy as np
 
 from shellmodes.io.pictures import ordinary_permissions
 
-__all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_field_name", "mode_array_names", "EXPORTERS",
-           "register", "check_writable", "check_run_output", "clear_leftovers", "ordinary_permissions", "RUN_FILES"]
+__all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_array_names", "mode_point_data",
+           "mode_field_data", "add_field_data", "write_vtu", "MODE_ARRAY", "EXPORTERS", "register",
+           "check_writable", "check_run_output", "clear_leftovers", "ordinary_permissions", "RUN_FILES"]
 
 EXPORTERS: dict = {}
 
@@ -37,38 +45,130 @@ def register(name):
     return wrap
 
 
-def mode_field_name(i: int, energy: float) -> str:
-    return f"mode{i:04d}_E={energy:.9g}"
+#: a real mode's point array, ``psi_0003``; complex modes add ``_re`` / ``_im`` (see mode_array_names)
+MODE_ARRAY = re.compile(r"^psi_(\d{4,})(_re)?$")
 
 
-def mode_array_names(index: int, complex_: bool) -> dict:
-    """VTU point-array names of mode ``index`` (4 digits): ``{"psi": "psi_0003"}`` for a real mode;
-    ``re``, ``im``, ``density``, ``phase`` and ``current`` (a 3-vector) names for a complex one."""
-    tag = f"{index:04d}"
+def mode_array_names(index: int, complex_: bool = False) -> dict[str, str]:
+    """The VTU point-array names of mode ``index``: the one place these names are made.
+
+    Parameters
+    ----------
+    index
+        Mode index (0-based, as in spectrum.json).
+    complex_
+        True for a complex mode.
+
+    Returns
+    -------
+    dict
+        Real modes: ``{"psi": "psi_0003"}``.  Complex modes: ``{"re": "psi_0003_re",
+        "im": "psi_0003_im", "density": "density_0003", "phase": "phase_0003",
+        "current": "current_0003"}`` (the current is a 3-vector point array, written when the
+        spectrum carries one).
+
+    Examples
+    --------
+    >>> mode_array_names(3)
+    {'psi': 'psi_0003'}
+    >>> mode_array_names(12, complex_=True)["density"]
+    'density_0012'
+    """
+    tag = f"{int(index):04d}"
     if not complex_:
         return {"psi": f"psi_{tag}"}
     return {"re": f"psi_{tag}_re", "im": f"psi_{tag}_im", "density": f"density_{tag}", "phase": f"phase_{tag}",
             "current": f"current_{tag}"}
 
 
-def _complex_point_data(spectrum) -> dict:
-    """Real and imaginary parts, density, phase and (surfaces) the probability current of every complex mode."""
-    out = {}
-    U = spectrum.vectors
-    currents = None
-    problem = spectrum.problem
-    if problem is not None and problem.disc.kind == "surface" and U.shape[1]:
-        from shellmodes.eigen.backends import get_backend
-        from shellmodes.fem.magnetic import nodal_currents
+def mode_point_data(vectors, currents=None) -> dict[str, np.ndarray]:
+    """Point arrays of every mode, named by :func:`mode_array_names`.
 
-        currents = nodal_currents(problem.terms, problem.disc.raw, U, factorize=get_backend("auto")[1])
-    for i in range(U.shape[1]):
-        names, u = mode_array_names(i, True), U[:, i]
-        out[names["re"]], out[names["im"]] = np.real(u), np.imag(u)
-        out[names["density"]], out[names["phase"]] = np.abs(u) ** 2, np.angle(u)
+    ``vectors`` (N, n) real or complex nodal values; complex modes give real and imaginary
+    parts, the density |psi|^2 and the phase arg(psi) in (-pi, pi].  ``currents`` (N, 3, n), where
+    given, are written as the 3-vector arrays ``current_NNNN``.
+    """
+    vectors = np.asarray(vectors)
+    is_complex = np.iscomplexobj(vectors)
+    out = {}
+    for i in range(vectors.shape[1]):
+        names, u = mode_array_names(i, is_complex), vectors[:, i]
+        if is_complex:
+            out[names["re"]] = np.ascontiguousarray(u.real)
+            out[names["im"]] = np.ascontiguousarray(u.imag)
+            out[names["density"]] = np.abs(u) ** 2
+            out[names["phase"]] = np.angle(u)
+        else:
+            out[names["psi"]] = np.ascontiguousarray(u, dtype=float)
         if currents is not None:
-            out[names["current"]] = currents[i]
+            out[mode_array_names(i, True)["current"]] = np.ascontiguousarray(np.asarray(currents)[:, :, i],
+                                                                             dtype=float)
     return out
+
+
+def mode_field_data(spectrum) -> dict[str, np.ndarray]:
+    """Per-mode field data for the VTU: one entry per mode in index order (l, n = -1 where unlabelled).
+
+    Numbers only: meshio (which reads these files back for sweeps) refuses VTK string arrays, so
+    the text labels and the energy unit are in arrays.csv.
+    """
+    rows = spectrum.modes_table()
+    out = {
+        "mode": np.array([r["index"] for r in rows], dtype=np.int64),
+        "energy": np.array([r["energy"] for r in rows], dtype=float),
+        "eigenvalue": np.array([r["eigenvalue"] for r in rows], dtype=float),
+        "residual": np.array([r["residual"] for r in rows], dtype=float),
+        "multiplet": np.array([r["multiplet"] for r in rows], dtype=np.int64),
+        "l": np.array([-1 if r["l"] is None else int(r["l"]) for r in rows], dtype=np.int64),
+    }
+    if "n" in spectrum.mode_columns:
+        out["n"] = np.array([-1 if v is None else int(v) for v in spectrum.mode_columns["n"]], dtype=np.int64)
+    return out
+
+
+def _mode_label(row) -> str:
+    parts = [f"n={row['n']}"] if row.get("n") is not None else []
+    if row.get("l") is not None:
+        parts.append(f"l={row['l']}")
+    return " ".join(parts) or "-"
+
+
+def _xml_array(name: str, values) -> str:
+    from xml.sax.saxutils import quoteattr
+
+    values = np.asarray(values)
+    kind = "Int64" if values.dtype.kind in "iub" else "Float64"
+    text = " ".join(repr(int(v)) if kind == "Int64" else repr(float(v)) for v in values.ravel())
+    return (f'<DataArray type="{kind}" Name={quoteattr(name)} NumberOfTuples="{len(values)}" format="ascii">'
+            f"{text}</DataArray>")
+
+
+def add_field_data(path, field_data: dict) -> None:
+    """Insert a VTK ``FieldData`` block of ascii numeric arrays into a VTU file (after ``<UnstructuredGrid>``)."""
+    field_data = {k: v for k, v in field_data.items() if np.size(v)}  # VTK readers refuse empty ascii arrays
+    if not field_data:
+        return
+    path = Path(path)
+    data = path.read_bytes()
+    anchor = b"<UnstructuredGrid>"
+    at = data.find(anchor)
+    if at < 0:
+        raise ValueError(f"{path}: no <UnstructuredGrid> element to hold field data")
+    block = "<FieldData>" + "".join(_xml_array(k, v) for k, v in field_data.items()) + "</FieldData>"
+    at += len(anchor)
+    path.write_bytes(data[:at] + block.encode("utf-8") + data[at:])
+
+
+def write_vtu(path, points, cells, point_data=None, cell_data=None, field_data=None) -> Path:
+    """One VTU file through meshio (raw binary), with ``field_data`` added as VTK field data."""
+    import meshio
+
+    mesh = meshio.Mesh(points, cells, point_data=point_data or {}, cell_data=cell_data or {})
+    # raw binary, not zlib: measured on the unit-sphere demo (10,242 nodes x 100 modes) zlib took
+    # 0.22 s of CPU for 8.5 MB against 0.02 s for 12.4 MB, and eigenvector mantissas barely compress
+    mesh.write(path, binary=True, compression=None)
+    add_field_data(path, field_data or {})
+    return Path(path)
 
 
 def spectrum_json(spectrum) -> dict:
@@ -100,23 +200,54 @@ def _write_csv(spectrum, folder: Path):
     (folder / "spectrum.csv").write_text(buf.getvalue())
 
 
+def _currents(spectrum):
+    """(N, 3, n) probability currents of complex surface modes (magnetic fields), or None.
+
+    Computed only here, when modes.vtu is written: one mass factor of the fastest back-end for every
+    mode and component (:func:`shellmodes.fem.magnetic.nodal_currents`).
+    """
+    problem = spectrum.problem
+    U = spectrum.vectors
+    if not np.iscomplexobj(U) or problem is None or problem.disc.kind != "surface" or not U.shape[1]:
+        return None
+    from shellmodes.eigen.backends import get_backend
+    from shellmodes.fem.magnetic import nodal_currents
+
+    return nodal_currents(problem.terms, problem.disc.raw, U, factorize=get_backend("auto")[1]).transpose(1, 2, 0)
+
+
 @register("modes.vtu")
 def _write_vtu(spectrum, folder: Path):
-    import meshio
+    """Every mode as point arrays with stable names; per-mode records as field data and in arrays.csv.
 
+    ``spectrum.export`` may carry ``currents`` ((N, 3, n) vector point fields, one per mode).
+    """
     export = spectrum.export
     if not export:
         return
-    if np.iscomplexobj(spectrum.vectors):  # magnetic fields: real, imaginary, density, phase, current
-        point_data = _complex_point_data(spectrum)
-    else:
-        point_data = {mode_field_name(i, e): spectrum.vectors[:, i] for i, e in enumerate(spectrum.energies)}
+    point_data = mode_point_data(spectrum.vectors, export.get("currents", _currents(spectrum)))
     point_data.update(export.get("point_data", {}))
-    mesh = meshio.Mesh(export["points"], export["cells"], point_data=point_data,
-                       cell_data=export.get("cell_data", {}))
-    # raw binary, not zlib: measured on the unit-sphere demo (10,242 nodes x 100 modes) zlib took
-    # 0.22 s of CPU for 8.5 MB against 0.02 s for 12.4 MB, and eigenvector mantissas barely compress
-    mesh.write(folder / "modes.vtu", binary=True, compression=None)
+    write_vtu(folder / "modes.vtu", export["points"], export["cells"], point_data=point_data,
+              cell_data=export.get("cell_data", {}), field_data=mode_field_data(spectrum))
+
+
+@register("arrays.csv")
+def _write_array_table(spectrum, folder: Path) -> None:
+    """arrays.csv: which point array of modes.vtu holds which mode, with its energy, label and residual."""
+    if not (folder / "modes.vtu").exists():  # written after modes.vtu (registration order), only beside it
+        return
+    is_complex = np.iscomplexobj(spectrum.vectors)
+    unit = (spectrum.info.get("units") or {}).get("energy", "1")
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(["arrays", "mode", f"energy [{unit}]" if unit != "1" else "energy", "eigenvalue", "multiplet",
+                     "label", "residual"])
+    for row in spectrum.modes_table():
+        names = mode_array_names(row["index"], is_complex)
+        writer.writerow([" ".join(names.values()) if is_complex else names["psi"], row["index"],
+                         repr(row["energy"]), repr(row["eigenvalue"]), row["multiplet"], _mode_label(row),
+                         f"{row['residual']:.3e}"])
+    (folder / "arrays.csv").write_text(buf.getvalue())
 
 
 def _write_pictures(spectrum, folder: Path):
@@ -306,7 +437,8 @@ def _link_or_copy(source, destination):
 
 
 #: names a run writes into its folder (with ``shellmodes report``): an earlier run's copy is dropped
-RUN_FILES = (r"spectrum\.json", r"spectrum\.csv", r"modes\.vtu", r"run\.log", r"report\.html", r"levels\.png",
+RUN_FILES = (r"spectrum\.json", r"spectrum\.csv", r"modes\.vtu", r"arrays\.csv", r"run\.log",
+             r"report\.html", r"levels\.png",
              r"mode-\d+\.png", r"report-.*\.png")
 
 

@@ -38,7 +38,7 @@ DIVERGING_COLOURS = ("#203a5c", "#4f7fae", "#a9c6de", "#f6f2ea", "#e9b28f", "#c0
 LEVEL_COLOURS = ("#3a6ea5", "#c2702f", "#2e8b6f", "#8e4f9e", "#b5443f", "#5b7f2a", "#a8862b", "#4a5a6a")
 LADDER_COLOUR = "#9aa3ad"
 
-_FIELD = re.compile(r"^mode(\d+)_E=(.+)$")
+_FIELD = re.compile(r"^psi_(\d{4,})(?:_re)?$")
 # VTK cell types that fill a volume (tetra, voxel, hexahedron, wedge, pyramid,
 # quadratic tetra/hexa/wedge/pyramid); everything else is drawn as a surface
 _VOLUME_CELLS = frozenset({10, 11, 12, 13, 14, 24, 25, 26, 27, 29, 32, 33})
@@ -188,6 +188,7 @@ def spectrum_picture(spectrum_json: dict, path, *, title: str | None = None) -> 
     multiplets = sorted(spectrum_json.get("multiplets") or [], key=lambda m: float(m["energy"]))
     unit = (spectrum_json.get("units") or {}).get("energy") or "1"
     energy_of = {int(m["index"]): float(m["energy"]) for m in modes}
+    n_of = {int(m["index"]): m.get("n") for m in modes}
     ladder = sphere_ladder(spectrum_json)
     top = max(energy_of.values(), default=1.0)
     if ladder:
@@ -229,10 +230,8 @@ def spectrum_picture(spectrum_json: dict, path, *, title: str | None = None) -> 
                 levels.append({"mode": i, "multiplet": int(m["index"]), "energy": e, "x0": x, "x1": x + bar})
                 x += bar + gap
             x += space - gap
-        sizes = [len(members_of(m)) for m in group]
-        if len(sizes) > 1 or sizes[0] > 1:
-            ax.text(widest / 2 + 0.15, float(np.mean([float(m["energy"]) for m in group])),
-                    "+".join(map(str, sizes)), va="center", fontsize=7, color="#5a6470")
+        ax.text(widest / 2 + 0.15, float(np.mean([float(m["energy"]) for m in group])),
+                _group_label(group, n_of, members_of), va="center", fontsize=8, color="#3b4652")
     for l, e in ladder:
         ax.plot([ladder_right - 0.8, ladder_right], [e, e], color=LADDER_COLOUR, lw=2.0, solid_capstyle="butt")
         ax.text(ladder_right - 0.85, e, f"l={l} ({2 * l + 1})", ha="right", va="center", fontsize=7,
@@ -244,12 +243,14 @@ def spectrum_picture(spectrum_json: dict, path, *, title: str | None = None) -> 
         ax.spines[side].set_visible(False)
     ax.spines["left"].set_color("#7d8792")
     ax.tick_params(colors="#3b4652", labelsize=8)
-    ax.set_xlim((ladder_right - 2.0) if ladder else -widest / 2 - 0.5, widest / 2 + 1.4)
+    ax.set_xlim((ladder_right - 2.0) if ladder else -widest / 2 - 0.5, widest / 2 + 2.2)
+    low, high = ax.get_ylim()
+    ax.set_ylim(low, high + 0.06 * (high - low))  # headroom: no level on the frame, the headings above it
     y_top = ax.get_ylim()[1]
     if ladder:
         ax.text(ladder_right - 0.4, y_top, "sphere of equal area", ha="center", va="bottom", fontsize=8,
                 color="#5a6470")
-    ax.text(0.0, y_top, "computed (multiplet sizes at right)", ha="center", va="bottom", fontsize=8,
+    ax.text(0.0, y_top, "computed (labels and multiplet sizes at right)", ha="center", va="bottom", fontsize=8,
             color="#5a6470")
     heading = title if title is not None else ((spectrum_json.get("case") or {}).get("title") or "levels")
     ax.set_title(heading, fontsize=10, color="#1d2a3a", pad=16, loc="left")
@@ -260,6 +261,19 @@ def spectrum_picture(spectrum_json: dict, path, *, title: str | None = None) -> 
     finally:
         plt.close(fig)
     return LevelDiagram(path=out, levels=levels, ladder=list(ladder), unit=unit)
+
+
+def _group_label(group, n_of, members_of) -> str:
+    """Text beside a group of multiplets: its (n, l) or l labels and the multiplet sizes, e.g. ``l=2 (2+2+1)``."""
+    labels = []
+    for m in group:
+        l = m.get("l")
+        ns = {n_of.get(i) for i in members_of(m)} - {None}
+        text = ", ".join(([f"n={ns.pop()}"] if len(ns) == 1 else []) + ([f"l={l}"] if l is not None else []))
+        if text and text not in labels:
+            labels.append(text)
+    sizes = "+".join(str(len(members_of(m))) for m in group)
+    return f"{'; '.join(labels)} ({sizes})" if labels else f"({sizes})"
 
 
 def _level_groups(multiplets, by_degree: bool) -> list[list[dict]]:
@@ -286,13 +300,20 @@ def _level_groups(multiplets, by_degree: bool) -> list[list[dict]]:
     return out
 
 
-def mode_fields(names) -> dict[int, tuple[str, str]]:
-    """``{mode index: (array name, energy text)}`` for the point arrays named ``mode0007_E=...``."""
+def mode_fields(names, energies=None) -> dict[int, tuple[str, str]]:
+    """``{mode index: (array name, energy text)}`` for the point arrays ``psi_0007`` (or ``psi_0007_re``).
+
+    ``energies`` is the file's ``energy`` field data (index order), where it has one; the energy
+    text is then the energy to 6 significant digits, else empty.
+    """
     out = {}
     for name in names:
         match = _FIELD.match(name)
         if match:
-            out[int(match.group(1))] = (name, match.group(2))
+            i = int(match.group(1))
+            text = f"{float(energies[i]):.6g}" if energies is not None and i < len(energies) else ""
+            if i not in out or not name.endswith("_re"):
+                out[i] = (name, text)
     return out
 
 
@@ -358,7 +379,8 @@ def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
     are cut by the plane x = x_centre and the half x <= x_centre is drawn
     with its cut face towards the camera.  Colours are a diverging map
     centred at zero with symmetric limits +-max|u|; the scalar bar is titled
-    with the mode's energy taken from its array name.
+    with the field (psi), and the mode and its energy (the file's field data)
+    stand at the top left.
 
     Parameters
     ----------
@@ -403,7 +425,8 @@ def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
         except Exception as exc:  # vtk raises assorted types for unreadable files
             raise MeshError(f"cannot read the mode file ({type(exc).__name__}: {exc})".replace("\n", " "),
                             str(vtu_path)) from None
-        fields = mode_fields(grid.point_data.keys())
+        energies = np.asarray(grid.field_data["energy"]) if "energy" in grid.field_data.keys() else None
+        fields = mode_fields(grid.point_data.keys(), energies)
         missing = [i for i in indices if i not in fields]
         if missing:
             raise MeshError(f"mode(s) {missing} not in the file; it holds {len(fields)} modes", str(vtu_path))
@@ -422,15 +445,20 @@ def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
             if volume:
                 view = view.clip(normal=(1.0, 0.0, 0.0), origin=grid.center, invert=True, crinkle=False)
             surface = view.extract_surface(nonlinear_subdivision=3, algorithm="dataset_surface")
-            surface = surface.compute_normals(split_vertices=False, auto_orient_normals=not volume)
+            # split along sharp edges: the flat cut face and the curved walls are shaded each on its own
+            # (one normal shared across the cut's rim made the cut face look faceted)
+            surface = surface.compute_normals(split_vertices=volume, feature_angle=40.0,
+                                              auto_orient_normals=not volume)
             out = Path(str(path_pattern).format(index=i))
-            title = f"mode {i}   E = {energy}" + (f" {unit}" if unit and unit != "1" else "")
+            title = f"mode {i}" + (f"   E = {energy}" if energy else "") + (
+                f" {unit}" if energy and unit and unit != "1" else "")
             written.append(_write_atomic_png(out, lambda tmp, s=surface, t=title, c=limit: _shoot(
                 pv, s, t, cmap, c, volume, window_size, tmp)))
     return written
 
 
-def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename, scalars="u", arrows=None):
+def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename, scalars="u", arrows=None,
+           bar="psi (nodal value)"):
     """One picture: ``scalars`` in colour (symmetric limits +-``limit``, or the data's range for None),
     and optional ``arrows`` (glyphs of a vector field)."""
     plotter = pv.Plotter(off_screen=True, window_size=list(window_size))
@@ -440,9 +468,12 @@ def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename, scala
                          smooth_shading=True, ambient=0.4, diffuse=0.7, specular=0.05, show_scalar_bar=False)
         if arrows is not None:
             plotter.add_mesh(arrows, color="#f4f1ea")
-        plotter.add_scalar_bar(title=title, n_labels=5, fmt="%.2g", color="#1d2a3a", vertical=False,
-                               position_x=0.18, position_y=0.04, width=0.64, height=0.09, title_font_size=22,
-                               label_font_size=16)
+        # the mode and its energy at the top left, the bar titled with the field it shows: nothing overlaps,
+        # and the fonts stay readable with the picture shown at ~480 px wide in the report
+        plotter.add_text(title, position="upper_left", font_size=15, color="#1d2a3a")
+        plotter.add_scalar_bar(title=bar, n_labels=3, fmt="%.2g", color="#1d2a3a", vertical=False,
+                               position_x=0.15, position_y=0.03, width=0.7, height=0.1, title_font_size=26,
+                               label_font_size=24)
         if volume:
             # look at the cut face: the plane x = centre bounds the kept half x <= centre
             plotter.camera_position = "yz"
@@ -487,7 +518,8 @@ def render_currents(vtu_path, indices, path_pattern, names, *, energies=None, un
             out = Path(str(path_pattern).format(index=i))
             suffix = f" {unit}" if unit and unit != "1" else ""
             energy = "" if energies is None else f"   E = {energies[i]:.6g}{suffix}"
-            title = f"mode {i}{energy}: density and current"
+            title = f"mode {i}{energy}"
             written.append(_write_atomic_png(out, lambda tmp, v=view, a=arrows, t=title: _shoot(
-                pv, v, t, "viridis", None, False, window_size, tmp, scalars="density", arrows=a)))
+                pv, v, t, "viridis", None, False, window_size, tmp, scalars="density", arrows=a,
+                bar="density |psi|^2, arrows: current")))
     return written

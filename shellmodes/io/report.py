@@ -25,13 +25,19 @@ from pathlib import Path
 from shellmodes.errors import CaseError
 from shellmodes.limits import DEFAULT_RENDERS
 
-__all__ = ["write_report", "load_run", "report_html", "find_convergence", "case_toml",
-           "SAFETY_NOTE"]
+__all__ = ["write_report", "load_run", "report_html", "find_convergence", "case_toml", "applicable_case",
+           "case_section", "page_html", "SAFETY_NOTE"]
 
-SAFETY_NOTE = ("These numbers are model results for the stated geometry, mesh and settings. Where they feed "
-               "engineering or safety decisions (for example acoustic or structural design), defer to local "
-               "codes and licensed professional practice.")
-
+SAFETY_NOTE = ("These numbers are results of a model, not measurements. The model is a particle obeying "
+               "(hbar^2/2m)(-Delta) psi + V psi = E psi in the stated geometry: for electrons and holes in a "
+               "nanostructure that is the single-band effective-mass approximation (one parabolic band, envelope "
+               "functions, a mass and band offset per medium), which leaves out strain, band mixing, "
+               "non-parabolicity, many-body, excitonic and temperature effects; hard walls are idealised "
+               "infinite barriers, where a real interface has a finite barrier that the state leaks into. "
+               "The finite-element error is estimated only where a convergence study was run (its error bars "
+               "bound the numerical error, not that of the model). Where these numbers inform devices or procedures "
+               "on which health or safety depends (lasers, detectors, medical or radiation equipment), confirm "
+               "them by measurement and defer to licensed professional practice.")
 
 
 # ---------------------------------------------------------------------------
@@ -54,7 +60,8 @@ def load_run(folder) -> dict:
         raise CaseError("not a folder; give the folder written by 'shellmodes run'", str(folder))
     path = folder / "spectrum.json"
     if not path.is_file():
-        raise CaseError("no spectrum.json here; is this a folder written by 'shellmodes run'?", str(folder))
+        raise CaseError("no spectrum.json, sweep.json or convergence.json here; give a folder written by "
+                        "'shellmodes run', 'shellmodes sweep' or 'shellmodes converge'", str(folder))
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
@@ -155,6 +162,34 @@ def _toml_key(key) -> str:
     return key if key and all(c.isalnum() or c in "-_" for c in key) else json.dumps(key)
 
 
+#: case keys that apply only when another key is set: (table, key) -> test on the table
+_APPLIES = {
+    ("particle", "mass_unit"): lambda t: t.get("mass") is not None,
+    ("particle", "effective_mass"): lambda t: t.get("mass") is not None,
+    ("particle", "inertia_unit"): lambda t: t.get("moment_of_inertia") is not None,
+    ("output", "picture_modes"): lambda t: bool(t.get("pictures")),
+}
+
+
+def applicable_case(case: dict) -> dict:
+    """The case record without keys that do not apply to it (an inertia unit on an electron case) or empty tables.
+
+    Examples
+    --------
+    >>> applicable_case({"particle": {"mass": 1.0, "mass_unit": "electron", "inertia_unit": "amu angstrom2"},
+    ...                  "limits": {}})
+    {'particle': {'mass': 1.0, 'mass_unit': 'electron'}}
+    """
+    out = {}
+    for name, value in case.items():
+        if isinstance(value, dict):
+            value = {k: v for k, v in value.items() if _APPLIES.get((name, k), lambda t: True)(value)}
+            if not any(v is not None for v in value.values()):
+                continue
+        out[name] = value
+    return out
+
+
 def case_toml(case: dict) -> str:
     """The case record of ``spectrum.json`` as TOML text (unset keys, i.e. ``None``, left out).
 
@@ -208,8 +243,9 @@ dl { margin: 0; display: grid; grid-template-columns: minmax(110px, max-content)
 dt { color: var(--soft); } dd { margin: 0; font-variant-numeric: tabular-nums; word-break: break-word; }
 table { border-collapse: collapse; width: 100%; font: 13px system-ui, sans-serif;
         font-variant-numeric: tabular-nums; background: var(--card); }
-th, td { padding: 3px 9px; border-bottom: 1px solid #ece8df; text-align: right; white-space: nowrap; }
-th { background: #f1ede4; color: var(--ink); font-weight: 600; position: sticky; top: 0; }
+th, td { padding: 3px 7px; border-bottom: 1px solid #ece8df; text-align: right; white-space: nowrap; }
+th { background: #f1ede4; color: var(--ink); font-weight: 600; position: sticky; top: 0; white-space: normal;
+     vertical-align: bottom; }
 td.text, th.text { text-align: left; white-space: normal; }
 tr.split td:first-child { box-shadow: inset 3px 0 0 var(--warm); }
 .tag { display: inline-block; font-size: 11px; padding: 0 6px; border-radius: 8px; margin-left: 4px;
@@ -220,7 +256,7 @@ td.doubt { color: var(--warm); font-weight: 600; }
 figure { margin: 0; } figure img { max-width: 100%; border: 1px solid var(--line); border-radius: 6px;
                                    background: var(--card); }
 figcaption { font: 12px system-ui, sans-serif; color: var(--soft); margin-top: 4px; }
-.gallery { display: grid; grid-template-columns: repeat(auto-fill, minmax(300px, 1fr)); gap: 14px; }
+.gallery { display: grid; grid-template-columns: repeat(auto-fill, minmax(420px, 1fr)); gap: 14px; }
 .notes { background: #fbf1e9; border: 1px solid #efd3c0; border-radius: 6px; padding: 8px 14px; }
 .notes li { margin: 3px 0; font: 13px system-ui, sans-serif; }
 .quiet { color: var(--soft); font: 13px system-ui, sans-serif; }
@@ -559,9 +595,19 @@ def report_html(data: dict, *, folder: Path | None = None, levels_png: bytes | N
             body.append("<h3>Validation set</h3>" + _checks_section(checks))
     body.append("<h2>Mode table</h2>" + _mode_table(data))
     if case:
-        body.append(f'<h2>Case</h2><pre class="case">{_e(case_toml(case))}</pre>'
-                    '<p class="quiet">As the run recorded it, defaults filled in; unset keys left out.</p>')
-    version = (data.get("versions") or {}).get("shellmodes", "")
+        body.append(case_section(case))
+    return page_html(title, body, (data.get("versions") or {}).get("shellmodes", ""))
+
+
+def case_section(case: dict, heading: str = "Case") -> str:
+    """The case block: the keys that apply, as TOML."""
+    return (f'<h2>{_e(heading)}</h2><pre class="case">{_e(case_toml(applicable_case(case)))}</pre>'
+            '<p class="quiet">As the run recorded it, defaults filled in; unset keys and keys that do not apply '
+            "left out.</p>")
+
+
+def page_html(title: str, body, version: str = "") -> str:
+    """The whole page: head, style, the sections in ``body`` and the footer with the caution."""
     stamp = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     footer = (f'<footer><p class="safety">{_e(SAFETY_NOTE)}</p>'
               f"<p>Report by shellmodes {_e(version)}, {_e(stamp)}.</p></footer>")
@@ -595,7 +641,8 @@ def write_report(folder, checks=False, *, modes: int = DEFAULT_RENDERS, keep_ima
     ----------
     folder
         A folder written by ``shellmodes run`` (needs ``spectrum.json``;
-        ``modes.vtu`` for renders).
+        ``modes.vtu`` for renders).  Sweep and convergence folders:
+        :func:`shellmodes.io.report_folders.write_study_report`.
     checks
         True to run the validation set (:func:`shellmodes.studies.checks.run_checks`)
         and include its table; a string runs only the checks whose name

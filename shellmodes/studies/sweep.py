@@ -47,7 +47,7 @@ import numpy as np
 from shellmodes import errors
 from shellmodes.case.schema import Case, case_from_dict
 from shellmodes.errors import CaseError, ShellmodesError
-from shellmodes.io.outputs import EXPORTERS, atomic_directory, mode_array_names
+from shellmodes.io.outputs import EXPORTERS, MODE_ARRAY, atomic_directory, mode_array_names
 
 __all__ = ["SweepStep", "SweepResult", "SweepStopped", "plan_steps", "run_sweep", "load_step"]
 
@@ -310,9 +310,15 @@ def load_step(folder):
     """Read a saved step: (modes table, multiplet member lists, (N, n) vectors, record).
 
     The vectors come from the point fields of ``modes.vtu``, named
-    ``modeNNNN_E=...`` (:func:`shellmodes.io.outputs.mode_field_name`) or ``psi_NNNN``, and for
-    complex modes ``psi_NNNN_re`` and ``psi_NNNN_im`` (:func:`shellmodes.io.outputs.mode_array_names`).
+    ``psi_NNNN``, and for complex modes ``psi_NNNN_re`` and ``psi_NNNN_im``
+    (:func:`shellmodes.io.outputs.mode_array_names`).
     """
+    spectrum, groups, vectors, record, _ = _read_step(folder)
+    return spectrum, groups, vectors, record
+
+
+def _read_step(folder):
+    """:func:`load_step` and the step's meshio mesh (points and cells, for the series files)."""
     import meshio
 
     folder = Path(folder)
@@ -326,11 +332,11 @@ def load_step(folder):
         raise ShellmodesError(str(exc)) from None
     fields = {}
     for name, values in mesh.point_data.items():
-        match = re.match(r"mode(\d+)_E=|psi_(\d+)(_re)?$", name)
+        match = MODE_ARRAY.match(name)
         if match:
-            index = int(match.group(1) or match.group(2))
+            index = int(match.group(1))
             fields[index] = np.asarray(values, dtype=float).reshape(len(mesh.points))
-            if match.group(3):  # a complex mode (magnetic fields): the real part plus psi_NNNN_im
+            if match.group(2):  # a complex mode (magnetic fields): the real part plus psi_NNNN_im
                 imag = np.asarray(mesh.point_data[mode_array_names(index, True)["im"]], dtype=float)
                 fields[index] = fields[index] + 1j * imag.reshape(len(mesh.points))
     modes = spectrum["modes"]
@@ -339,7 +345,7 @@ def load_step(folder):
                               f"lists {len(modes)}; delete the folder and rerun the sweep")
     vectors = np.column_stack([fields[i] for i in range(len(modes))]) if modes else np.zeros((len(mesh.points), 0))
     groups = [m["modes"] for m in spectrum["multiplets"]]
-    return spectrum, groups, vectors, record
+    return spectrum, groups, vectors, record, mesh
 
 
 def _mass_matrix(case: Case):
@@ -613,9 +619,12 @@ class _Collector:
     """
 
     def __init__(self, out: Path, steps, min_overlap: float):
+        from shellmodes.studies.sweep_files import TrackStates
         from shellmodes.studies.sweep_track import LevelTracker
 
         self.out, self.steps = out, list(steps)
+        #: each step's track states, signs made consistent, kept on disk for series.pvd
+        self.states = TrackStates(out)
         self.tracker = LevelTracker(min_overlap=min_overlap)
         self.rows, self.next, self.ready = [], 0, set()
         #: mass matrices assembled by local workers, by step index (else assembled here when needed)
@@ -643,6 +652,9 @@ class _Collector:
             triples = self.tracker.add(StepModes(
                 vectors=vectors, eigenvalues=np.array([m["eigenvalue"] for m in modes]), groups=groups,
                 labels=[m["l"] for m in modes], M=M))
+            mode_group = {j: h for h, members in enumerate(groups) for j in members}
+            multiplet_of = {track: mode_group[j] for j, track, _ in triples}
+            self.states.add(step.index, *self.tracker.states(), multiplet_of)
             for j, track, overlap in triples:
                 mode = modes[j]
                 self.rows.append({"step": step.index, **dict(step.values), "track": track, "mode": j,

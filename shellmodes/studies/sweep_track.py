@@ -108,6 +108,14 @@ class LevelTracker:
     _ids: list = field(default_factory=list)
     _cohorts: list = field(default_factory=list)
 
+    def states(self) -> tuple[list, np.ndarray | None]:
+        """The tracks' states at the last step added: (track ids, (N, k) M-orthonormal columns).
+
+        Inside a degenerate multiplet a state is the combination of the multiplet's eigenvectors
+        closest to the track's previous state (step 4 above), so it changes smoothly from step to step.
+        """
+        return list(self._ids), self._states
+
     def _new_track(self, label, step) -> int:
         self.parent_l.append(label)
         self.first_step.append(step)
