@@ -521,5 +521,5 @@ def render_currents(vtu_path, indices, path_pattern, names, *, energies=None, un
             title = f"mode {i}{energy}"
             written.append(_write_atomic_png(out, lambda tmp, v=view, a=arrows, t=title: _shoot(
                 pv, v, t, "viridis", None, False, window_size, tmp, scalars="density", arrows=a,
-                bar="density |psi|^2, arrows: current")))
+                bar="density (abs psi)^2, arrows: current")))
     return written
