@@ -42,8 +42,8 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 sys.path.insert(0, str(ROOT))
 
-from shellmodes import references as ref  # noqa: E402
 from shellmodes.case.units import kinetic_scale_joule  # noqa: E402
+from shellmodes.studies import references as ref  # noqa: E402
 
 BALL = """[shell]
 outer = {{ shape = "sphere", radius = 1.0 }}

@@ -67,7 +67,8 @@ def whole_command(folder: Path, fields: str, tag: str) -> tuple[float, dict]:
 
 
 def sweep_case(kind: str, steps: int, modes: int):
-    base = {"surface": {"shape": "star", "radius": 10.0, "deformation": [{"l": 2, "m": 0, "amplitude": 0.0}]},
+    base = {"surface": {"shape": "deformed_sphere", "radius": 10.0,
+                        "deformation": [{"l": 2, "m": 0, "amplitude": 0.0}]},
             "units": {"length": "nm", "energy": "meV"}, "resolution": {"degree": 4, "subdivisions": 3},
             "modes": {"count": modes}}
     if kind == "field":

@@ -44,7 +44,7 @@ from shellmodes.studies.sweep import run_sweep
 def sweep_case(steps: int, modes: int, degree: int, subdivisions: int):
     return case_from_dict({
         "title": "sphere to triaxial star, benchmark",
-        "surface": {"shape": "star", "radius": 1.0,
+        "surface": {"shape": "deformed_sphere", "radius": 1.0,
                     "deformation": [{"l": 2, "m": 0, "amplitude": 0.0}, {"l": 2, "m": 2, "amplitude": 0.0}]},
         "resolution": {"degree": degree, "subdivisions": subdivisions},
         "modes": {"count": modes},

@@ -1,4 +1,6 @@
-"""Generate the sample surface meshes in this folder (``python meshes/make_samples.py``).
+"""Generate the sample surface meshes shipped in ``shellmodes/samples/`` (``python meshes/make_samples.py``).
+
+Cases name them ``file = "sample:pebble6.vtu"``, which works wherever the case file is copied.
 
 The "pebble" is a demo shape of our own invention, not taken from any data
 set: a smooth star-shaped surface r = R(theta, phi) * (unit direction) with
@@ -41,6 +43,8 @@ from shellmodes.shapes.reference import icosphere
 FLAT_LEVEL = 3
 QUADRATIC_LEVEL = 2
 HERE = Path(__file__).resolve().parent
+#: where the samples live: package data of shellmodes
+SAMPLES = HERE.parent / "shellmodes" / "samples"
 
 
 def pebble_radius(directions: np.ndarray) -> np.ndarray:
@@ -94,7 +98,7 @@ def write_samples(folder: Path) -> list[Path]:
 
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--out", type=Path, default=HERE, help="folder to write into (default: this one)")
+    parser.add_argument("--out", type=Path, default=SAMPLES, help="folder to write into (default: shellmodes/samples)")
     args = parser.parse_args(argv)
     for path in write_samples(args.out):
         print(f"wrote {path} ({path.stat().st_size} bytes): {read_surface_mesh(path)!r}")

@@ -17,11 +17,25 @@ __all__ = [
     "DoubtfulResultWarning",
     "MultipletCutWarning",
     "MeshQualityWarning",
+    "RenamedKeyWarning",
 ]
 
 
 class ShellmodesError(Exception):
-    """Root of every error caused by input the user can fix."""
+    """Root of every error caused by input the user can fix.
+
+    The command line prints its message as one line and exits with status 2; from Python,
+    catch this class to handle every such error at once.
+
+    Examples
+    --------
+    >>> import shellmodes
+    >>> try:
+    ...     shellmodes.case_from_dict({"surface": {"shape": "sphere", "radius": -1.0}})
+    ... except shellmodes.ShellmodesError as exc:
+    ...     print(type(exc).__name__)
+    CaseError
+    """
 
 
 class CaseError(ShellmodesError, ValueError):
@@ -46,7 +60,22 @@ class CaseError(ShellmodesError, ValueError):
 
 
 class MeshError(ShellmodesError, ValueError):
-    """A mesh file is missing, unreadable or not a valid surface/volume mesh."""
+    """A mesh file is missing, unreadable or not a valid surface/volume mesh.
+
+    Parameters
+    ----------
+    message : str
+        What is wrong with the file.
+    source : str, optional
+        The mesh file.
+
+    Attributes
+    ----------
+    source : str or None
+        The mesh file.
+    reason : str
+        The message without the file name.
+    """
 
     def __init__(self, message: str, source: str | None = None):
         self.source = source
@@ -55,11 +84,29 @@ class MeshError(ShellmodesError, ValueError):
 
 
 class GeometryError(ShellmodesError, ValueError):
-    """A geometry is impossible (self-intersecting walls, negative radius, ...)."""
+    """A geometry is impossible (self-intersecting walls, negative radius, ...).
+
+    Raised by the shapes and meshes; the pipeline turns it into a :class:`CaseError` naming the
+    case file and key.
+
+    Examples
+    --------
+    >>> from shellmodes.shapes import make_shape
+    >>> try:
+    ...     make_shape("deformed_sphere", radius=1.0, deformation=[(0, 0, -5.0)])
+    ... except GeometryError:
+    ...     print("refused")
+    refused
+    """
 
 
 class SolverError(ShellmodesError, RuntimeError):
-    """The eigen-solver cannot deliver what was asked (too many modes, no convergence)."""
+    """The eigen-solver cannot deliver what was asked (too many modes, no convergence).
+
+    Notes
+    -----
+    The message says what to change (fewer modes, another ``modes.method`` or back-end).
+    """
 
 
 class ProblemError(ShellmodesError, ValueError):
@@ -76,12 +123,32 @@ class ProblemError(ShellmodesError, ValueError):
 
 
 class DoubtfulResultWarning(UserWarning):
-    """A result the user should not trust without checking (large residual, ...)."""
+    """A result the user should not trust without checking (large residual, ...).
+
+    Notes
+    -----
+    Never silent: the command line prints it as ``warning: ...`` and records it in run.log and
+    spectrum.json.  Turn it into an error with ``warnings.simplefilter("error", DoubtfulResultWarning)``.
+    """
 
 
 class MultipletCutWarning(UserWarning):
-    """The computed set ends inside a (near-)degenerate multiplet."""
+    """The computed set ends inside a (near-)degenerate multiplet.
+
+    Notes
+    -----
+    A cut multiplet has an arbitrary basis inside the part that was kept; ask for more modes.
+    """
 
 
 class MeshQualityWarning(UserWarning):
-    """The mesh is valid but badly shaped for accurate results."""
+    """The mesh is valid but badly shaped for accurate results.
+
+    Notes
+    -----
+    Slivers and very uneven triangles raise the discretisation error; refine or remesh.
+    """
+
+
+class RenamedKeyWarning(FutureWarning):
+    """A case file uses an old name of a key or value; it still works (see :mod:`shellmodes.case.aliases`)."""

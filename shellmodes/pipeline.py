@@ -30,6 +30,7 @@ from shellmodes.case.schema import Case
 from shellmodes.eigen.planner import Problem, Solved, SolverPlan, plan_solver, solve_plan
 from shellmodes.errors import CaseError, ProblemError, ShellmodesError
 from shellmodes.fem.discretisation import Discretisation, build_discretisation, fixed_walls
+from shellmodes.io import progress
 from shellmodes.spectrum.labelling import Labels, label_modes
 from shellmodes.spectrum.multiplets import Spectrum
 
@@ -60,6 +61,7 @@ def solve_case(case: Case, problem: Problem, scale: EnergyScale) -> tuple[Solver
     below = None if modes.below is None else scale.eigenvalue(modes.below)
     try:
         plan = plan_solver(problem, modes)
+        progress.stage(f"assembling and solving ({plan.path}, {problem.disc.ndofs} unknowns)")
         solved = solve_plan(plan, problem, modes, count=modes.count, below=below)
         if len(solved.pairs.lam) == 0:
             lowest = float(solve_plan(plan, problem, modes, count=1).pairs.lam[0])
@@ -93,12 +95,15 @@ def run_case(case: Case) -> Spectrum:
     >>> [m.size for m in s.multiplets]
     [1, 3]
     """
+    from shellmodes.eigen.extras import check_extras
     from shellmodes.eigen.resources import check_resources
 
     check_fields(case)  # fields that do not fit the case: refused before anything is built
+    check_extras(case)  # optional parts the case names (back-end, AMG, scheduler): before anything is built
     check_resources(case)  # the memory guard: refuse before any mesh or matrix is built
     t_start = time.perf_counter()
     scale = energy_scale(case)
+    progress.stage("building the mesh")
     disc = build_discretisation(case)
     t_mesh = time.perf_counter() - t_start
     problem = build_problem(case, disc, scale)
@@ -106,6 +111,8 @@ def run_case(case: Case) -> Spectrum:
     plan, solved = solve_case(case, problem, scale)
     t_solve = time.perf_counter() - t_solve - problem.timings.get("assembly", 0.0)
     energies = scale.energies(solved.pairs.lam)
+    progress.note_count_raised(case.modes.count, len(solved.pairs.lam), case.source)
+    progress.stage("labelling the multiplets")
     labels = label_modes(problem, plan, solved, scale, case.modes.multiplet_tolerance)
     solved.messages.extend(labels.messages)
     timings = {"mesh": t_mesh, "assembly": problem.timings.get("assembly", 0.0), "eigensolve": t_solve,
@@ -128,6 +135,11 @@ def _measure(problem: Problem, solved: Solved) -> float:
     return float(ones @ (problem.operators.M @ ones))
 
 
+#: run.log's words for each discretisation (no Python reprs reach the user)
+_CELLS = {"surface": "curved triangles on a surface", "tetrahedra": "curved tetrahedra in a 3-D shell or ball",
+          "prisms": "layered curved prisms in a 3-D shell or ball"}
+
+
 def _spectrum(case: Case, problem: Problem, plan: SolverPlan, solved: Solved, labels: Labels, scale: EnergyScale,
               energies: np.ndarray, timings: dict) -> Spectrum:
     """Package solved and labelled modes with their units, mesh, plan and timing records."""
@@ -148,7 +160,7 @@ def _spectrum(case: Case, problem: Problem, plan: SolverPlan, solved: Solved, la
              "energy_scale": scale.origin,
              "eigenvalue": f"1/{case.units.length}^2" if case.units.length != "1" else "1"}
     run_versions = versions()
-    lines = [f"case: {case.source}", f"{disc.kind}: {disc!r}",
+    lines = [f"case: {case.source}", f"cells: {_CELLS.get(disc.kind, disc.kind)}",
              f"{disc.describe()}, {measure_name} = {measure:.10g}" + (
                  f" ({problem.nfree} free)" if problem.nfree < disc.ndofs else ""),
              plan.describe(),

@@ -36,6 +36,8 @@ def run_cli(capsys, monkeypatch):
     root = logging.getLogger()
     monkeypatch.setattr(root, "handlers", list(root.handlers))
     monkeypatch.setattr(root, "level", root.level)
+    ours = logging.getLogger("shellmodes")
+    monkeypatch.setattr(ours, "level", ours.level)
 
     def call(*argv) -> CliResult:
         capsys.readouterr()  # drop anything printed before this call

@@ -20,7 +20,7 @@ PACKAGE = ROOT / "shellmodes"
 
 #: pipeline stages, upstream first; a module belongs to the first stage whose prefix matches it
 STAGES = [
-    ("foundations", ["_version", "errors", "limits", "harmonics", "case.units", "case.expression"]),
+    ("foundations", ["_version", "errors", "limits", "harmonics", "case.units", "case.expression", "io.progress"]),
     ("case", ["case.schema", "case.keys", "case"]),
     ("geometry", ["shapes", "meshfiles"]),
     ("model", ["case.model"]),

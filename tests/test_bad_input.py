@@ -57,7 +57,7 @@ def literal(text: str) -> Callable[[Path], str]:
 
 
 def star(deformation: str) -> Callable[[Path], str]:
-    return edited('shape = "sphere"\nradius = 1.0', f'shape = "star"\ndeformation = [{deformation}]')
+    return edited('shape = "sphere"\nradius = 1.0', f'shape = "deformed_sphere"\ndeformation = [{deformation}]')
 
 
 def ellipsoid(axes: str) -> Callable[[Path], str]:
@@ -318,11 +318,14 @@ BAD = {
     "mass-zero": Bad(appended("\n[particle]\nmass = 0.0\n"), "particle.mass", ("0.0", "greater than")),
     "effective-mass-nan": Bad(appended("\n[particle]\neffective_mass = nan\n"), "particle.effective_mass",
                               ("nan", "finite")),
+    "effective-mass-tiny": Bad(appended("\n[particle]\neffective_mass = 1e-9\n"), "particle.effective_mass",
+                               ("1e-09", "effective masses must lie between", "particle.mass")),
     "subdivisions-10": Bad(edited("subdivisions = 1", "subdivisions = 10"), "resolution.subdivisions",
                            ("10", "less than or equal to 9")),
     "deformation-degree-41": Bad(star("{ l = 41, m = 0, amplitude = 0.01 }"), "surface.deformation[0].l",
                                  ("41", "less than or equal to 40")),
-    "deformation-not-a-list": Bad(edited('shape = "sphere"\nradius = 1.0', 'shape = "star"\ndeformation = 0.1'),
+    "deformation-not-a-list": Bad(edited('shape = "sphere"\nradius = 1.0',
+                                         'shape = "deformed_sphere"\ndeformation = 0.1'),
                                   "surface.deformation", ("0.1",)),
     "surface-not-a-table": Bad(literal("surface = 3\n"), "surface", ("3", "dictionary")),
     "empty-case-file": Bad(literal(""), "surface", ("required table is missing", "[shell]")),

@@ -167,7 +167,7 @@ def test_region_offsets_are_in_units_energy_whatever_potential_unit_says():
 
     shifted, plain = run_case(case(100.0)), run_case(case(0.0))
     np.testing.assert_allclose(shifted.energies - plain.energies, 100.0, rtol=1e-9)  # meV, not eV
-    assert "units.energy" in case(1.0).model_json_schema()["$defs"]["Region"]["properties"]["offset"]["description"]
+    assert "units.energy" in case(1.0).model_json_schema()["$defs"]["Medium"]["properties"]["offset"]["description"]
 
 
 def test_star_shaped_dot_lobpcg_with_the_ball_preconditioner_matches_shift_invert():

@@ -39,6 +39,7 @@ from shellmodes.studies import references as ref
 from shellmodes.studies.convergence import (
     ConvergenceStudy,
     convergence_study,
+    error_bar,
     expected_order,
     extrapolate,
     observed_order_three,
@@ -75,6 +76,26 @@ def test_observed_order_three_recovers_a_synthetic_rate_on_uneven_h():
     assert abs(observed_order_three(lam, h) - 3.0) < 1e-9  # exact data: only root-finding error
     assert math.isnan(observed_order_three([3.0, 2.0, 2.5], h))  # change of sign: no order
     assert math.isnan(observed_order_three([3.0, 2.9, 2.7], h))  # growing changes: no order
+
+
+def test_error_bar_follows_roaches_safety_factors_on_synthetic_data():
+    h = [0.4, 0.2, 0.1, 0.05]
+    # a clean second-order sequence: verified and stable, Fs = 1.25 on the Richardson correction
+    # (Roache, J. Fluids Eng. 116 (1994) 405); the correction is exact here, so the bar is 1.25x the error
+    clean = error_bar([1 + 0.3 * x**2 for x in h], h, (2.0, 2.0))
+    assert clean.status == "asymptotic" and clean.safety_factor == 1.25
+    assert math.isclose(clean.error, 1.25 * 0.3 * 0.05**2, rel_tol=1e-9)
+    # orders 2 then 2.6 over the last two triples (both inside the window around 2, but not agreeing
+    # within 0.15 x 2): unstable, so Fs = 3 at the expected order 2
+    lam = [1 + 0.3 * x**2 for x in h[:3]]
+    lam.append(lam[-1] - (lam[1] - lam[2]) / 2**2.6)
+    unstable = error_bar(lam, h, (2.0, 2.0))
+    assert math.isclose(unstable.order, 2.6, rel_tol=1e-9) and math.isclose(unstable.previous_order, 2.0)
+    assert unstable.status == "order-unstable" and unstable.safety_factor == 3.0 and not unstable.asymptotic
+    assert math.isclose(unstable.error, 3 * abs(lam[2] - lam[3]) / 3.0, rel_tol=1e-9)  # r^p - 1 = 3
+    # growing changes: no order at all, flagged, the bar at least the last change
+    off = error_bar([1.0, 1.1, 1.3], h[:3], (2.0, 2.0))
+    assert off.status == "order-off" and math.isclose(off.error, 0.2)  # 3 x 0.2 / (2^2 - 1)
 
 
 def test_extrapolation_is_exact_for_a_pure_power_on_uneven_h():
@@ -136,12 +157,14 @@ def test_richardson_beats_the_finest_value(sphere_study):
     assert np.all(extrapolated * factor <= raw), (raw, extrapolated)
 
 
-def test_error_estimate_is_within_a_factor_3_of_the_true_error(sphere_study):
+def test_error_bar_brackets_the_true_error_within_a_factor_3(sphere_study):
     exact = exact_means(sphere_study, ref.sphere_eigenvalues(9))
     rows = sphere_study.rows[1:]
     ratio = np.array([r.error / abs(r.finest - e) for r, e in zip(rows, exact[1:], strict=True)])
     assert len(ratio) == 2
-    assert np.all((ratio >= 1 / 3) & (ratio <= 3)), ratio  # measured 0.85-0.96
+    # a bar must hold (>= 1); measured 1.26-1.27 (k = 1) and 1.31-1.32 (k = 2) with Fs = 1.25
+    assert np.all((ratio >= 1) & (ratio <= 3)), ratio
+    assert all(r.status == "asymptotic" and r.safety_factor == 1.25 for r in rows)
 
 
 def test_hemisphere_error_bars_hold_against_the_closed_form():
@@ -155,7 +178,8 @@ def test_hemisphere_error_bars_hold_against_the_closed_form():
     estimate = np.array([r.error for r in study.rows])
     assert all(r.asymptotic for r in study.rows)
     assert np.all(extrapolated * 3 <= raw), (raw, extrapolated)  # measured 4.2-16x
-    assert np.all((estimate >= raw / 3) & (estimate <= raw * 3)), (raw, estimate)  # measured 0.76-0.94
+    ratio = estimate / raw
+    assert np.all((ratio >= 1) & (ratio <= 3)), ratio  # the bar holds; measured 1.42-2.01
     # orders measured 4.3-5.1: the map onto the cap converges from above the rate 4
     assert all(3.5 <= r.order <= 5.4 for r in study.rows), [r.order for r in study.rows]
 
@@ -222,6 +246,8 @@ def test_energies_are_in_the_case_unit():
     for row in study.rows:
         assert math.isclose(row.energy_extrapolated, row.extrapolated * e0, rel_tol=1e-12, abs_tol=1e-12)
         assert math.isclose(row.energy_error, row.error * e0, rel_tol=1e-12, abs_tol=1e-15)
+    # the terminal's error column is the CSV's energy_error, with its unit (issue 12 item 10)
+    assert "energy_error [meV]" in study.table().splitlines()[0]
 
 
 def test_repr_is_one_compact_line(sphere_study):
@@ -282,7 +308,7 @@ def test_cli_writes_table_json_and_csv(run_cli, tmp_path):
     data = json.loads((out / "convergence.json").read_text())
     rows = list(csv.DictReader((out / "convergence.csv").open()))
     assert len(rows) == len(data["rows"]) == 2  # l = 0 and l = 1
-    assert [r["size"] for r in rows] == ["1", "3"] and [r["asymptotic"] for r in rows] == ["yes", "yes"]
+    assert [r["size"] for r in rows] == ["1", "3"] and [r["asymptotic"] for r in rows] == ["true", "true"]
     assert [r["subdivisions"] for r in data["refinements"]] == [1, 2, 3]
     assert data["case"]["title"] == "converge probe"  # the configuration, as for spectrum.json
     study = convergence_study(sphere_case(1, 1, count=4))  # the CLI does what the API does
@@ -329,3 +355,61 @@ def test_shell_cases_converge_with_layers_refined_alongside():
     assert 2.5 < first.order < 4.5
     # the extrapolated value is closer to the exact one than the finest solve
     assert abs(first.extrapolated - exact) < abs(study.refinements[-1].eigenvalues[0] - exact)
+
+
+# ----------------------------------------------------------------------------- error bars on five shapes
+def _revolution_reference(levels, m_max: int, count: int) -> np.ndarray:
+    """Sorted eigenvalues from per-m 1-D levels (m = 0 once, each m > 0 as a +-m pair)."""
+    values = [v for m in range(m_max + 1) for v in levels(m) for _ in range(1 if m == 0 else 2)]
+    return np.sort(values)[:count]
+
+
+def _five_shapes():
+    from shellmodes.studies.profile_levels import spheroid_levels, torus_levels
+
+    def surface(shape, subdivisions, count):
+        return {"surface": shape, "resolution": {"degree": 2, "subdivisions": subdivisions},
+                "modes": {"count": count}}
+
+    ball = {"shell": {"outer": {"shape": "sphere", "radius": 1.0}, "layers": 2, "radial_degree": 2},
+            "resolution": {"degree": 2, "subdivisions": 2}, "modes": {"count": 20}}
+    return {
+        # l(l+1) (DLMF 14.30.10)
+        "sphere": (surface({"shape": "sphere"}, 1, 16), ref.sphere_eigenvalues),
+        # the 1-D profile solve per m (studies.profile_levels, checked on the sphere in test_axial_labels)
+        "spheroid": (surface({"shape": "spheroid", "equatorial_radius": 1.0, "polar_radius": 1.5}, 1, 16),
+                     lambda n: _revolution_reference(lambda m: spheroid_levels(1.0, 1.5, m, 8), 7, n)),
+        "torus": (surface({"shape": "torus", "major_radius": 3.0, "minor_radius": 1.0}, 1, 20),
+                  lambda n: _revolution_reference(lambda m: torus_levels(3.0, 1.0, m, 8), 9, n)),
+        # Ferrers-function roots (references.cap_eigenvalues)
+        "cap": (surface({"shape": "cap", "half_angle": 120.0, "rim": "dirichlet"}, 2, 12),
+                lambda n: ref.cap_eigenvalues(np.radians(120.0), n)),
+        # squares of the zeros of j_l (DLMF 10.21, references.ball_dirichlet)
+        "ball": (ball, lambda n: np.sort([k**2 for l in range(7) for k in ref.ball_dirichlet(l, 4)
+                                          for _ in range(2 * l + 1)])[:n]),
+    }
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["sphere", "spheroid", "torus", "cap", "ball"])
+def test_error_bars_bracket_the_true_error_on_five_shapes(name):
+    data, exact = _five_shapes()[name]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DoubtfulResultWarning)  # coarse starts are flagged; the bar must hold
+        study = convergence_study(case_from_dict(data, "<test>"), refinements=4)
+    reference = np.asarray(exact(max(max(r.modes) for r in study.rows) + 1))
+    ratios, verified = [], []
+    for row in study.rows:
+        true = abs(row.finest - np.mean(reference[list(row.modes)]))
+        if true > 1e-11 * max(1.0, abs(row.finest)):  # not at rounding level
+            ratios.append(row.error / true)
+            verified.append(row.asymptotic)
+    ratios, verified = np.array(ratios), np.array(verified, dtype=bool)
+    assert len(ratios) >= 3
+    # the issue's target: the bar brackets the true error for >= 95 % of levels (measured: all), and is
+    # <= 10x it for most: measured 1.25-1.6x on every row whose order is verified; flagged rows of
+    # pre-asymptotic coarse starts (the 120-degree cap and the ball at degree 2, orders drifting from 6 to
+    # 4.5 or from 1 to 4) carry Fs = 3 at the expected order and measured 12-15x (bench_errorbars.py)
+    assert np.mean(ratios >= 1) >= 0.95, ratios
+    assert np.all(ratios[verified] <= 10), (ratios, verified)
+    assert np.all(ratios[~verified] <= 20), (ratios, verified)  # flagged: conservative, but not absurd

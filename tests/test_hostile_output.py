@@ -100,7 +100,7 @@ def test_report_without_its_extra_is_refused_before_writing(tmp_path, run_cli, n
     case = write_case(tmp_path, SPHERE)
     out = tmp_path / "out"
     before = _old_run(out)
-    assert_refused(run_cli("run", case, "--out", out, "--report"), "pyvista", "shellmodes[plot]")
+    assert_refused(run_cli("run", case, "--out", out, "--report"), "pyvista", "pip install pyvista")
     assert {p.name: p.read_bytes() for p in out.iterdir()} == before
 
 

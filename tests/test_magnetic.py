@@ -259,7 +259,7 @@ def test_pictures_of_complex_modes_show_density_and_current(tmp_path):
     pytest.importorskip("pyvista")
     pytest.importorskip("matplotlib")
     case = _case({"shape": "torus", "major_radius": 2.0, "minor_radius": 0.7}, {"flux_line": {"flux": 0.25}},
-                 degree=2, subdivisions=1, count=3, output={"pictures": True, "picture_modes": 2})
+                 degree=2, subdivisions=1, count=3, output={"pictures": True, "picture_multiplets": 2})
     write_outputs(run_case(case), tmp_path / "out")
     for name in ("levels.png", "mode-0000.png", "mode-0001.png"):
         data = (tmp_path / "out" / name).read_bytes()

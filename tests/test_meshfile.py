@@ -27,7 +27,8 @@ from shellmodes.meshfiles.surface import (
     validate_surface,
 )
 
-MESHES = Path(__file__).resolve().parent.parent / "meshes"
+MESHES = Path(__file__).resolve().parent.parent / "meshes"  # the generating script
+SAMPLES = Path(__file__).resolve().parent.parent / "shellmodes" / "samples"  # the meshes, package data
 
 # (suffix, meshio file_format, writer keywords): every suffix in the registry
 # is covered, binary and ASCII variants where meshio writes both.
@@ -523,10 +524,10 @@ def _pebble_volume(make_samples) -> float:
 
 def test_sample_pebble_stl():
     make_samples = _make_samples()
-    mesh = read_surface_mesh(MESHES / "pebble.stl")
+    mesh = read_surface_mesh(SAMPLES / "pebble.stl")
     assert mesh.closed and mesh.quadratic_nodes is None
     assert mesh.triangles.shape == (1280, 3) and mesh.points.shape == (642, 3)
-    assert (MESHES / "pebble.stl").stat().st_size < 500_000
+    assert (SAMPLES / "pebble.stl").stat().st_size < 500_000
     # Vertices lie on the pebble to float32 precision (STL), ~1e-7 relative.
     r = np.linalg.norm(mesh.points, axis=1)
     np.testing.assert_allclose(r, make_samples.pebble_radius(mesh.points / r[:, None]), rtol=1e-6)
@@ -551,11 +552,11 @@ def test_sample_flat_pebble_volume_converges_at_second_order():
 
 def test_sample_pebble6_vtu():
     make_samples = _make_samples()
-    mesh = read_surface_mesh(MESHES / "pebble6.vtu")
+    mesh = read_surface_mesh(SAMPLES / "pebble6.vtu")
     assert mesh.closed
     assert mesh.triangles.shape == (320, 3) and mesh.points.shape == (162, 3)
     assert mesh.quadratic_nodes.shape == (320, 6, 3)
-    assert (MESHES / "pebble6.vtu").stat().st_size < 1_000_000
+    assert (SAMPLES / "pebble6.vtu").stat().st_size < 1_000_000
     # Every node, corner or edge node, lies on the surface (doubles: 1e-14).
     nodes = mesh.quadratic_nodes.reshape(-1, 3)
     r = np.linalg.norm(nodes, axis=1)
@@ -570,7 +571,7 @@ def test_samples_are_regenerated_identically(tmp_path):
     written = make_samples.write_samples(tmp_path)
     assert [path.name for path in written] == ["pebble.stl", "pebble6.vtu"]
     for path in written:
-        fresh, stored = read_surface_mesh(path), read_surface_mesh(MESHES / path.name)
+        fresh, stored = read_surface_mesh(path), read_surface_mesh(SAMPLES / path.name)
         assert fresh.points.shape == stored.points.shape
         np.testing.assert_array_equal(fresh.points, stored.points)
         np.testing.assert_array_equal(fresh.triangles, stored.triangles)

@@ -30,6 +30,7 @@ from shellmodes.fem.discretisation import discretise
 from shellmodes.fem.forms import assemble_surface
 from shellmodes.io import outputs
 from shellmodes.pipeline import run_case
+from shellmodes.spectrum.tables import csv_key
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -177,21 +178,26 @@ def test_spectrum_csv_has_one_row_per_mode_equal_to_json(text, tmp_path, run_cli
     with open(out / "spectrum.csv", newline="") as f:
         reader = csv.DictReader(f)
         rows = list(reader)
-    # the contract's six columns first; any further column is a field of the JSON modes too
-    assert reader.fieldnames[:len(CSV_COLUMNS)] == CSV_COLUMNS
-    assert set(reader.fieldnames) <= set(modes[0])
+    # the contract's six columns first (energy and eigenvalue with their units in brackets); any
+    # further column is a field of the JSON modes too
+    keys = [csv_key(h) for h in reader.fieldnames]
+    assert keys[:len(CSV_COLUMNS)] == CSV_COLUMNS
+    assert reader.fieldnames[1:3] == ["energy [hbar^2/(2 m L^2)]", "eigenvalue [1/L^2]"]  # dimensionless cases
+    assert set(keys) <= set(modes[0])
 
     assert len(rows) == len(modes)
     for row, mode in zip(rows, modes):
-        for key in reader.fieldnames:
+        for heading, key in zip(reader.fieldnames, keys):
             value = mode[key]
             if value is None:
-                assert row[key] == "", key
+                assert row[heading] == "", key
             elif isinstance(value, int):
-                assert int(row[key]) == value, key
+                assert int(row[heading]) == value, key
+            elif isinstance(value, str):  # label_rule
+                assert row[heading] == value, key
             else:
                 # both files print repr(float): equal bit for bit
-                assert float(row[key]) == value, key
+                assert float(row[heading]) == value, key
 
 
 def read_modes(out: Path) -> tuple[meshio.Mesh, np.ndarray, list[str]]:
@@ -555,7 +561,8 @@ def test_spectrum_with_no_modes_is_written_and_read_back(tmp_path):
 
     data = read_json(tmp_path / "out")
     assert data["modes"] == [] and data["multiplets"] == []
-    assert (tmp_path / "out" / "spectrum.csv").read_text().splitlines()[0].split(",")[:6] == CSV_COLUMNS
+    headings = (tmp_path / "out" / "spectrum.csv").read_text().splitlines()[0].split(",")[:6]
+    assert [csv_key(h) for h in headings] == CSV_COLUMNS
     assert len((tmp_path / "out" / "spectrum.csv").read_text().splitlines()) == 1
     mesh = meshio.read(tmp_path / "out" / "modes.vtu")
     assert [n for n in mesh.point_data if n.startswith("psi_")] == []

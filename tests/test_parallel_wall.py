@@ -18,7 +18,7 @@ def test_parallel_spheroid_wall_at_the_axes():
 
 @pytest.mark.parametrize("wall", [
     Wall(shape="ellipsoid", axes=(1.5, 1.2, 1.0), offset=-0.15),
-    Wall(shape="star", radius=1.0, deformation=({"l": 2, "m": 0, "amplitude": 0.2},
+    Wall(shape="deformed_sphere", radius=1.0, deformation=({"l": 2, "m": 0, "amplitude": 0.2},
                                                 {"l": 3, "m": 1, "amplitude": 0.1}), offset=0.1),
 ])
 def test_parallel_wall_is_at_constant_normal_distance(wall):

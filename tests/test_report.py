@@ -176,7 +176,7 @@ def test_render_refuses_a_mode_not_in_the_file(runs, tmp_path):
 
 def test_missing_plot_extra_is_a_clear_error(run_dir, monkeypatch):
     monkeypatch.setitem(sys.modules, "pyvista", None)  # import now raises ImportError
-    with pytest.raises(PlotExtraMissing, match="shellmodes\\[plot\\]"):
+    with pytest.raises(PlotExtraMissing, match="pip install pyvista"):
         write_report(run_dir, modes=1)
     assert issubclass(PlotExtraMissing, ShellmodesError)
     assert not (run_dir / "report.html").exists()

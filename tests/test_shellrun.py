@@ -67,7 +67,7 @@ def test_ball_has_no_inner_wall_and_matches_j_l_zeros():
 def test_core_shell_mass_jump_against_matching_condition():
     data = _shell(count=1, subdivisions=2, layers=[6, 6], inner=None, outer=2.5,
                   shell={"interfaces": [{"shape": "sphere", "radius": 1.0}],
-                         "regions": [{"name": "core", "effective_mass": 1.0},
+                         "media": [{"name": "core", "effective_mass": 1.0},
                                      {"name": "barrier", "effective_mass": 2.0, "offset": 30.0}]})
     s = run_case(case_from_dict(data))
     exact = ref.finite_spherical_well(0, 30.0, 1.0, 1.0, 2.0)[0]  # BenDaniel-Duke matching, k_l tail
@@ -94,11 +94,11 @@ def test_thin_shell_limit_trend():
     ({"inner": {"shape": "sphere", "radius": 2.0}, "outer": {"shape": "sphere", "radius": 1.0}}, "shell", "2"),
     ({"inner": {"shape": "sphere", "radius": 1.0},
       "outer": {"shape": "star", "radius": 1.2, "deformation": [{"l": 2, "m": 0, "amplitude": -0.9}]}}, "shell", ""),
-    ({"outer": {"shape": "sphere", "radius": 1.0}, "regions": [{"tag": 7}]}, "shell.regions[0].tag", "7"),
+    ({"outer": {"shape": "sphere", "radius": 1.0}, "media": [{"tag": 7}]}, "shell.media[0].tag", "7"),
     ({"outer": {"shape": "sphere", "radius": -1.0}}, "shell.outer.radius", "-1"),
     ({"outer": {"shape": "sphere", "radius": 1.0}, "layers": 0}, "shell", "layer"),
-    ({"outer": {"shape": "sphere", "radius": 1.0}, "regions": [{"effective_mass": 0.0}]},
-     "shell.regions[0].effective_mass", "0"),
+    ({"outer": {"shape": "sphere", "radius": 1.0}, "media": [{"effective_mass": 0.0}]},
+     "shell.media[0].effective_mass", "0"),
     ({"outer": {"shape": "sphere"}}, "shell.outer", "radius"),
 ])
 def test_bad_shells_name_the_key(shell, key, fragment):
@@ -169,9 +169,9 @@ def _named_dot(tmp_path):
 
 def test_regions_can_be_named_by_the_mesh_files_physical_names(tmp_path):
     path = _named_dot(tmp_path)
-    by_tag = {"shell": {"file": str(path), "regions": [{"tag": 1}, {"tag": 2, "effective_mass": 0.5}]},
+    by_tag = {"shell": {"file": str(path), "media": [{"tag": 1}, {"tag": 2, "effective_mass": 0.5}]},
               "resolution": {"degree": 1}, "modes": {"count": 2}, "output": {"vtu": False}}
-    by_name = {**by_tag, "shell": {"file": str(path), "regions": [{"tag": "shell", "effective_mass": 0.5},
+    by_name = {**by_tag, "shell": {"file": str(path), "media": [{"tag": "shell", "effective_mass": 0.5},
                                                                   {"tag": "core"}]}}
     a, b = run_case(case_from_dict(by_tag)), run_case(case_from_dict(by_name))
     np.testing.assert_allclose(a.eigenvalues, b.eigenvalues, rtol=1e-12)
@@ -181,11 +181,11 @@ def test_regions_can_be_named_by_the_mesh_files_physical_names(tmp_path):
 
 def test_unknown_region_name_lists_the_names_present(tmp_path):
     path = _named_dot(tmp_path)
-    data = {"shell": {"file": str(path), "regions": [{"tag": "cor"}, {"tag": "shell"}]},
+    data = {"shell": {"file": str(path), "media": [{"tag": "cor"}, {"tag": "shell"}]},
             "resolution": {"degree": 1}, "modes": {"count": 2}}
     with pytest.raises(CaseError) as info:
         run_case(case_from_dict(data, "dot.toml"))
-    assert info.value.key == "shell.regions[0].tag"
+    assert info.value.key == "shell.media[0].tag"
     assert "'cor'" in str(info.value) and "core, shell" in str(info.value) and "skin" not in str(info.value)
 
 

@@ -68,7 +68,7 @@ def test_lattice_cells_cover_reference_triangle(degree):
 
 
 def test_geometry_nodes_lie_on_the_exact_surface():
-    shape = make_shape("star", radius=1.0, deformation=[(2, 0, 0.1), (3, 2, 0.05)])
+    shape = make_shape("deformed_sphere", radius=1.0, deformation=[(2, 0, 0.1), (3, 2, 0.05)])
     s = _surface(shape, 3, 1)
     np.testing.assert_allclose(shape.project(s.nodes), s.nodes, atol=1e-13)  # projection is idempotent
 

@@ -93,8 +93,8 @@ def test_spheroid_curvature_at_equator_and_pole():
 
 def test_star_curvature_obeys_gauss_bonnet():
     # integral of K over a closed genus-0 surface is 4 pi (Gauss-Bonnet, do Carmo sect. 4-5)
-    shape, surface = _surface({"shape": "star", "radius": 1.0, "deformation": [{"l": 2, "m": 0, "amplitude": 0.2},
-                                                                                 {"l": 3, "m": 2, "amplitude": 0.1}]},
+    shape, surface = _surface({"shape": "deformed_sphere", "radius": 1.0,
+                               "deformation": [{"l": 2, "m": 0, "amplitude": 0.2}, {"l": 3, "m": 2, "amplitude": 0.1}]},
                               degree=4, subdivisions=3)
     x = np.asarray(surface.basis.global_coordinates()).reshape(3, -1).T
     H, K = shape_curvatures(shape, x)

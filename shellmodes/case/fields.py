@@ -313,7 +313,7 @@ def field_terms(case, e0) -> FieldTerms | None:
     spherical = False
     if case.shell is not None and case.shell.file is None:
         walls = [w for w in (case.shell.inner, *case.shell.interfaces, case.shell.outer) if w is not None]
-        spherical = all(w.shape == "sphere" or (w.shape == "star" and not w.deformation) for w in walls)
+        spherical = all(w.shape == "sphere" or (w.shape == "deformed_sphere" and not w.deformation) for w in walls)
     return FieldTerms(thin_layer=bool(f.curvature_potential), b=b, axis=axis, spherical_walls=spherical,
                       gauge=f.magnetic.gauge if f.magnetic is not None else "symmetric", flux=flux,
                       spin_shift=spin, record=record)

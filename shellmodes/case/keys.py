@@ -67,27 +67,27 @@ def case_keys_markdown() -> str:
     from shellmodes.case.schema import (
         CapSurface,
         DeformationTerm,
+        DeformedSphereSurface,
         EllipsoidSurface,
         MeshSurface,
         SnapTarget,
         SphereSurface,
         SpheroidSurface,
-        StarSurface,
         TorusSurface,
     )
 
-    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
+    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, DeformedSphereSurface, TorusSurface, CapSurface,
                 MeshSurface):
         shape = cls.model_fields["shape"].annotation.__args__[0]
         out += ["", f"## [surface] with shape = \"{shape}\"", "", "| key | type | default | meaning |",
                 "|---|---|---|---|"]
         out += [f"| `surface.{k}` | {t} | {d} | {m} |" for k, t, d, m in _rows("", cls)]
     from shellmodes.case.fields import ElectricField, FluxLine, MagneticField, Spin
-    from shellmodes.case.schema import Region, SweepParameter, Wall
+    from shellmodes.case.schema import Medium, SweepParameter, Wall
 
     for title, cls in (("surface.deformation[] entries", DeformationTerm), ("surface.snap", SnapTarget),
                        ("shell.inner, shell.interfaces[], shell.outer (walls)", Wall),
-                       ("shell.regions[] entries", Region),
+                       ("shell.media[] entries", Medium),
                        ("sweep.parameters[] entries", SweepParameter), ("fields.electric", ElectricField),
                        ("fields.magnetic", MagneticField), ("fields.flux_line", FluxLine), ("fields.spin", Spin)):
         out += ["", f"## {title}", "", "| key | type | default | meaning |", "|---|---|---|---|"]

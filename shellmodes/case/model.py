@@ -25,7 +25,7 @@ from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MAS
 from shellmodes.errors import CaseError, GeometryError, MeshError
 from shellmodes.harmonics import angles, real_sph_harm
 from shellmodes.limits import DEFAULT_SHELL_SUBDIVISIONS, DEFAULT_SUBDIVISIONS, MAX_SHELL_SUBDIVISIONS, MAX_SUBDIVISIONS
-from shellmodes.shapes import make_shape
+from shellmodes.shapes import Shape, make_shape
 
 __all__ = ["EnergyScale", "Media", "versions", "build_shape", "energy_scale", "compiled_potential",
            "point_potential", "radial_potential", "wall_function", "shell_walls", "media",
@@ -49,24 +49,49 @@ def _versions() -> dict:
 
 
 # --------------------------------------------------------------------------------------------- surfaces
-def build_shape(case: Case):
-    """The :class:`~shellmodes.shapes.Shape` a surface case describes."""
+def mesh_file(case: Case, value: str, key: str) -> Path:
+    """The mesh file a case names (a ``sample:`` name or a path relative to the case file)."""
+    from shellmodes.errors import ProblemError
+    from shellmodes.meshfiles.samples import resolve_mesh_file
+
+    try:
+        return resolve_mesh_file(value, case.base_dir, key)
+    except ProblemError as exc:
+        raise CaseError(exc.reason, case.source, exc.key) from None
+
+
+def build_shape(case: Case) -> Shape:
+    """The :class:`~shellmodes.shapes.Shape` a surface case describes.
+
+    Parameters
+    ----------
+    case : Case
+        A case with a ``[surface]`` table.
+
+    Returns
+    -------
+    Shape
+        The exact map of the surface (a mesh file is read here).
+
+    Raises
+    ------
+    CaseError
+        Impossible parameters or an unreadable mesh, naming the case key.
+    """
     spec = case.surface.model_dump()
     name = spec.pop("shape")
     spec.pop("rim", None)
     try:
-        if name == "star":
+        if name == "deformed_sphere":
             spec["deformation"] = [(d["l"], d["m"], d["amplitude"]) for d in spec["deformation"]]
         if name == "mesh":
-            path = Path(spec["file"])
-            if not path.is_absolute():
-                path = case.base_dir / path
+            path = mesh_file(case, spec["file"], "surface.file")
             snap = spec.pop("snap")
             target = None
             if snap is not None:
                 snap_name = snap.pop("shape")
                 params = {k: v for k, v in snap.items() if v is not None}
-                if snap_name == "star":
+                if snap_name == "deformed_sphere":
                     params["deformation"] = [(d["l"], d["m"], d["amplitude"])
                                              for d in snap.get("deformation") or ()]
                 target = make_shape(snap_name, **params)
@@ -256,7 +281,7 @@ def spherically_symmetric(case: Case) -> bool:
     if shell.file is not None or case.potential is not None or breaks_radial_symmetry(case):
         return False
     walls = [w for w in (shell.inner, *shell.interfaces, shell.outer) if w is not None]
-    return all(w.shape == "sphere" or (w.shape == "star" and not w.deformation) for w in walls)
+    return all(w.shape == "sphere" or (w.shape == "deformed_sphere" and not w.deformation) for w in walls)
 
 
 def shell_level(case: Case) -> int:
@@ -315,23 +340,23 @@ def media(case: Case, disc, scale: EnergyScale) -> Media:
     ids = disc.region_ids
     entries_by_id = {}
     named = {name: tag for tag, name in getattr(disc, "region_names", {}).items()}
-    for i, region in enumerate(shell.regions):
+    for i, region in enumerate(shell.media):
         # default tag: the region's place (inside out), or the i-th tag present in a mesh file
         tag = region.tag if region.tag is not None else (ids[i] if shell.file is not None and i < len(ids) else i)
         if isinstance(tag, str):
             if tag not in named:
                 present = ", ".join(sorted(named)) if named else "none (the mesh names no volume regions)"
                 raise CaseError(f"value {tag!r}: no region of that name in the mesh; names present: {present}",
-                                case.source, f"shell.regions[{i}].tag")
+                                case.source, f"shell.media[{i}].tag")
             tag = named[tag]
         if tag not in ids:
             raise CaseError(f"value {tag!r}: no such region in the mesh; regions present: "
-                            f"{', '.join(map(str, ids))}", case.source, f"shell.regions[{i}].tag")
+                            f"{', '.join(map(str, ids))}", case.source, f"shell.media[{i}].tag")
         entries_by_id[tag] = region
     missing = [r for r in ids if r not in entries_by_id]
-    if shell.regions and missing:
-        raise CaseError(f"the mesh has regions {', '.join(map(str, missing))} that shell.regions does not "
-                        "describe; list every region", case.source, "shell.regions")
+    if shell.media and missing:
+        raise CaseError(f"the mesh has regions {', '.join(map(str, missing))} that shell.media does not "
+                        "describe; list every region", case.source, "shell.media")
     # offsets are always in units.energy (whatever potential.unit is)
     offset_scale = 1.0 if (case.units.energy == "1" or scale.per_lambda is None) else 1.0 / scale.per_lambda
     inverse_mass, offsets, names = {}, {}, {}

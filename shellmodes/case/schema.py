@@ -17,6 +17,7 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, Field, NonNegativeInt, ValidationError, field_validator, model_validator
 
+from shellmodes.case.aliases import key_as_written, upgrade, warn_renamed
 from shellmodes.case.expression import ExpressionError, compile_expression
 from shellmodes.case.fields import Fields
 from shellmodes.case.tables import Table
@@ -56,7 +57,7 @@ _Table = Table
 
 
 class DeformationTerm(_Table):
-    """One term a_lm Y_lm of a star-shaped radius r = R (1 + sum a_lm Y_lm)."""
+    """One term a_lm Y_lm of a harmonically deformed sphere's radius r = R (1 + sum a_lm Y_lm)."""
 
     l: int = Field(ge=0, le=40, description="degree of the real spherical harmonic")
     m: int = Field(description="order, -l <= m <= l (m > 0 cosine-like, m < 0 sine-like)")
@@ -95,8 +96,10 @@ class SpheroidSurface(_Table):
         return self
 
 
-class StarSurface(_Table):
-    shape: Literal["star"]
+class DeformedSphereSurface(_Table):
+    """A harmonically deformed sphere r = R (1 + sum a_lm Y_lm) (old shape name: star)."""
+
+    shape: Literal["deformed_sphere"]
     radius: Length = Field(1.0, description="mean radius R")
     deformation: tuple[DeformationTerm, ...] = Field((), description="terms of r = R(1 + sum a_lm Y_lm)")
 
@@ -140,13 +143,13 @@ def _check_shape_keys(table, keys: dict, what: str):
 
 _WALL_KEYS = {"sphere": (("radius",), ()), "ellipsoid": (("axes",), ("offset",)),
               "spheroid": (("equatorial_radius", "polar_radius"), ("offset",)),
-              "star": (("radius",), ("deformation", "offset"))}
+              "deformed_sphere": (("radius",), ("deformation", "offset"))}
 
 _SNAP_KEYS = {  # shape -> (required keys, optional keys)
     "sphere": ((), ("radius",)),
     "ellipsoid": (("axes",), ()),
     "spheroid": (("equatorial_radius", "polar_radius"), ()),
-    "star": ((), ("radius", "deformation")),
+    "deformed_sphere": ((), ("radius", "deformation")),
     "torus": (("major_radius", "minor_radius"), ()),
 }
 
@@ -154,14 +157,15 @@ _SNAP_KEYS = {  # shape -> (required keys, optional keys)
 class SnapTarget(_Table):
     """An analytic shape to snap an imported mesh's geometry nodes onto (keys as for that shape)."""
 
-    shape: Literal["sphere", "ellipsoid", "spheroid", "star", "torus"]
-    radius: Length | None = None
-    axes: tuple[Length, Length, Length] | None = None
-    equatorial_radius: Length | None = None
-    polar_radius: Length | None = None
-    deformation: tuple[DeformationTerm, ...] | None = None
-    major_radius: Length | None = None
-    minor_radius: Length | None = None
+    shape: Literal["sphere", "ellipsoid", "spheroid", "deformed_sphere", "torus"]
+    radius: Length | None = Field(None, description="sphere or deformed_sphere: radius R")
+    axes: tuple[Length, Length, Length] | None = Field(None, description="ellipsoid: semi-axes along x, y, z")
+    equatorial_radius: Length | None = Field(None, description="spheroid: semi-axis in the x-y plane")
+    polar_radius: Length | None = Field(None, description="spheroid: semi-axis along z")
+    deformation: tuple[DeformationTerm, ...] | None = Field(None, description="deformed_sphere: terms of "
+                                                              "r = R(1 + sum a_lm Y_lm)")
+    major_radius: Length | None = Field(None, description="torus: distance from the z axis to the tube centre")
+    minor_radius: Length | None = Field(None, description="torus: tube radius")
 
     @model_validator(mode="after")
     def _keys_of_shape(self):
@@ -170,37 +174,40 @@ class SnapTarget(_Table):
 
 class MeshSurface(_Table):
     shape: Literal["mesh"]
-    file: str = Field(description="mesh file (.vtu .vtk .msh .stl .obj .ply), relative to the case file")
+    file: str = Field(description="mesh file (.vtu .vtk .msh .stl .obj .ply), relative to the case file; or "
+                      "'sample:NAME' for a mesh shipped with shellmodes (sample:pebble6.vtu, sample:pebble.stl)")
     snap: SnapTarget | None = Field(None, description="snap geometry nodes onto this exact shape")
     rim: Rim = Field("dirichlet", description="condition on the rim of an open mesh")
 
 
 Surface = Annotated[
-    SphereSurface | EllipsoidSurface | SpheroidSurface | StarSurface | TorusSurface | CapSurface | MeshSurface,
+    SphereSurface | EllipsoidSurface | SpheroidSurface | DeformedSphereSurface | TorusSurface | CapSurface
+    | MeshSurface,
     Field(discriminator="shape"),
 ]
 
 
 class Wall(_Table):
-    """A closed wall of a shell: sphere, ellipsoid, spheroid or star-shaped surface about the origin."""
+    """A closed wall of a shell: sphere, ellipsoid, spheroid or harmonically deformed sphere about the origin."""
 
-    shape: Literal["sphere", "ellipsoid", "spheroid", "star"]
-    radius: Length | None = Field(None, description="sphere or star: radius R")
+    shape: Literal["sphere", "ellipsoid", "spheroid", "deformed_sphere"]
+    radius: Length | None = Field(None, description="sphere or deformed_sphere: radius R")
     axes: tuple[Length, Length, Length] | None = Field(None, description="ellipsoid: semi-axes")
     equatorial_radius: Length | None = Field(None, description="spheroid: semi-axis in the x-y plane")
     polar_radius: Length | None = Field(None, description="spheroid: semi-axis along z")
-    deformation: tuple[DeformationTerm, ...] | None = Field(None, description="star: r = R(1 + sum a_lm Y_lm)")
+    deformation: tuple[DeformationTerm, ...] | None = Field(None, description="deformed_sphere: "
+                                                              "r = R(1 + sum a_lm Y_lm)")
     offset: Annotated[float, Field(ge=-LENGTH_RANGE[1], le=LENGTH_RANGE[1])] | None = Field(
-        None, description="ellipsoid, spheroid, star: the parallel surface at this signed normal distance "
-                          "(outward positive), for shells of constant thickness")
+        None, description="ellipsoid, spheroid, deformed_sphere: the parallel surface at this signed normal "
+                          "distance (outward positive), for shells of constant thickness")
 
     @model_validator(mode="after")
     def _keys_of_shape(self):
         return _check_shape_keys(self, _WALL_KEYS, "wall")
 
 
-class Region(_Table):
-    """One medium of a shell (core, shell, outer medium): its effective mass and band offset."""
+class Medium(_Table):
+    """One medium (material) of a 3-D shell or ball, inside out (core, shell, barrier): mass and band offset."""
 
     name: str = Field("", description="label used in reports")
     tag: NonNegativeInt | str | None = Field(None, description="region id, or its physical name, in a mesh file "
@@ -220,8 +227,10 @@ class Shell(_Table):
     file: str | None = Field(None, description="tetrahedral mesh file instead of walls (tetra or tetra10)")
     inner_condition: Rim = Field("dirichlet", description="condition on the inner wall")
     outer_condition: Rim = Field("dirichlet", description="condition on the outer wall")
-    layers: int | tuple[int, ...] = Field(4, description="radial element layers per medium (one number for all)")
-    regions: tuple[Region, ...] = Field((), description="media inside out; default: one medium per layer gap")
+    layers: int | tuple[int, ...] = Field(4, description="mesh: radial element layers in each medium (one number for "
+                                          "all media)")
+    media: tuple[Medium, ...] = Field((), description="the materials between the walls, inside out (old name: "
+                                      "regions); default: one medium between each pair of walls")
     cells: Literal["tetrahedra", "prisms"] | None = Field(
         None, description="tetrahedra (degree 1-2; mesh files) or layered curved prisms (triangle degree 1-4 "
         "times a radial degree; a ball's innermost layer closes at the centre on one merged dof); default: "
@@ -239,6 +248,11 @@ class Shell(_Table):
         "above a level among the lowest modes.count, next to a medium where that level is allowed) the layers reach "
         "out to where the level's state has fallen by this factor (e.g. 1e-8), judged from the level's energy "
         "(a fine 1-D radial estimate between the walls' mean spheres, offsets only) and the barrier")
+
+    @property
+    def regions(self) -> tuple[Medium, ...]:
+        """The media under their old name (code written against ``shell.regions`` keeps working)."""
+        return self.media
 
     @model_validator(mode="after")
     def _walls_or_file(self):
@@ -262,8 +276,8 @@ class Shell(_Table):
             media = len(self.interfaces) + 1
             if not isinstance(self.layers, int) and len(self.layers) != media:
                 raise ValueError(f"layers has {len(self.layers)} entries for {media} media")
-            if self.regions and len(self.regions) != media:
-                raise ValueError(f"regions has {len(self.regions)} entries but the walls make {media} media")
+            if self.media and len(self.media) != media:
+                raise ValueError(f"media has {len(self.media)} entries but the walls make {media} media")
             for key in ("grading", "layer_boundaries"):
                 value = getattr(self, key)
                 if isinstance(value, tuple) and len(value) != media:
@@ -413,7 +427,8 @@ class Output(_Table):
     vtu: bool = Field(True, description="write modes.vtu with every mode as a point field")
     pictures: bool = Field(False, description="also write levels.png and off-screen renders mode-NNNN.png "
                                               "(cut views for shells; needs the plot extra and vtu = true)")
-    picture_modes: int = Field(4, ge=1, le=100, description="how many multiplets to render (one mode each)")
+    picture_multiplets: int = Field(4, ge=1, le=100, description="how many multiplets to render, one mode of each "
+                                    "(old name: picture_modes)")
 
     @model_validator(mode="after")
     def _pictures_need_vtu(self):
@@ -433,7 +448,25 @@ class Limits(_Table):
 
 
 class Case(_Table):
-    """A whole case file."""
+    """A whole case file, validated and immutable.
+
+    Attributes
+    ----------
+    title : str
+        Free text shown in reports.
+    surface, shell
+        Exactly one geometry table: a curved surface or a 3-D shell or ball.
+    resolution, particle, units, potential, modes, output, sweep, limits
+        The other tables (``shellmodes keys`` lists every key).
+    source : str
+        Where the case came from (a file name, or ``"<case>"``).
+
+    Examples
+    --------
+    >>> case = case_from_dict({"surface": {"shape": "sphere", "radius": 2.0}})
+    >>> case.surface.radius, case.modes.count
+    (2.0, 20)
+    """
 
     title: str = Field("", description="free text shown in reports")
     surface: Surface | None = Field(None, description="a curved surface (give surface or shell)")
@@ -517,14 +550,14 @@ def _model_of(annotation):
 
 
 def _variant(tag):
-    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, StarSurface, TorusSurface, CapSurface,
+    for cls in (SphereSurface, EllipsoidSurface, SpheroidSurface, DeformedSphereSurface, TorusSurface, CapSurface,
                 MeshSurface):
         if cls.model_fields["shape"].annotation.__args__[0] == tag:
             return cls
     return None
 
 
-_TAGS = {"sphere", "ellipsoid", "spheroid", "star", "torus", "cap", "mesh"}
+_TAGS = {"sphere", "ellipsoid", "spheroid", "deformed_sphere", "torus", "cap", "mesh"}
 
 
 def _validator_label(part: str) -> bool:
@@ -557,9 +590,13 @@ def _format_error(error: dict) -> tuple[str, str]:
     msg = error["msg"].replace("Value error, ", "")
     bound = error.get("ctx", {}).get("ge", error.get("ctx", {}).get("le"))
     if kind in ("greater_than_equal", "less_than_equal") and bound in LENGTH_RANGE:
-        msg = msg.replace("0.000001", "1e-06").replace("1000000", "1e+06") + (
-            f"; lengths must lie between {LENGTH_RANGE[0]:g} and {LENGTH_RANGE[1]:g} in units.length: "
-            "choose a units.length that brings the geometry into that range")
+        msg = msg.replace("0.000001", "1e-06").replace("1000000", "1e+06")
+        if loc and loc[-1] == "effective_mass":  # the one Factor key: a multiple of particle.mass
+            msg += (f"; effective masses must lie between {FACTOR_RANGE[0]:g} and {FACTOR_RANGE[1]:g} "
+                    "times particle.mass")
+        else:
+            msg += (f"; lengths must lie between {LENGTH_RANGE[0]:g} and {LENGTH_RANGE[1]:g} in units.length: "
+                    "choose a units.length that brings the geometry into that range")
     if isinstance(value, float) and math.isnan(value):
         value_text = "nan"
     else:
@@ -602,6 +639,8 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
         raise CaseError("a case must be a table of tables", source)
     if "source" in data:
         raise CaseError("unknown key; 'source' is reserved", source, "source")
+    renamed: list = []
+    written, data = data, upgrade(data, source, renamed)  # old names of keys and values: warned once the case validates
     # a table given as None (e.g. from Case.model_dump) counts as absent
     optional = ("surface", "shell", "potential", "fields", "sweep")
     data = {k: v for k, v in data.items() if not (k in optional and v is None)}
@@ -611,7 +650,9 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
     if "surface" in data and "shell" in data:
         raise CaseError("give [surface] or [shell], not both", source, "shell")
     try:
-        return Case.model_validate({**_tuples(data), "source": source})
+        case = Case.model_validate({**_tuples(data), "source": source})
+        warn_renamed(renamed)
+        return case
     except RecursionError:
         raise CaseError(f"the case is nested more than {MAX_NESTING} levels deep", source) from None
     except ValidationError as exc:
@@ -619,11 +660,21 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
         # a typo'd key usually also leaves a required key missing: report the typo first
         first = next((e for e in errors if e["type"] == "extra_forbidden"), errors[0])
         key, message = _format_error(first)
-        raise CaseError(message, source, key or None) from None
+        raise CaseError(message, source, key_as_written(key, written) or None) from None
 
 
-def load_case(path) -> Case:
+def load_case(path: str | Path) -> Case:
     """Read and validate a TOML case file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file; relative mesh files in it are taken from its folder.
+
+    Returns
+    -------
+    Case
+        The validated case.
 
     Raises
     ------
@@ -648,7 +699,19 @@ def load_case(path) -> Case:
 
 
 def case_schema() -> dict:
-    """JSON Schema of the case file (for editors: completion and validation)."""
+    """JSON Schema of the case file (for editors: completion and validation).
+
+    Returns
+    -------
+    dict
+        A draft 2020-12 schema with an ``$id``, a ``shape`` discriminator on the surface union and a
+        description on every key (``shellmodes schema`` prints it).
+
+    Examples
+    --------
+    >>> case_schema()["$id"]
+    'urn:shellmodes:case-file:schema:1'
+    """
     schema = Case.model_json_schema(mode="validation")
     schema.get("properties", {}).pop("source", None)
     schema["title"] = "shellmodes case file"
@@ -656,4 +719,39 @@ def case_schema() -> dict:
     schema["oneOf"] = [{"required": ["surface"], "not": {"required": ["shell"]}},
                        {"required": ["shell"], "not": {"required": ["surface"]}}]
     schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["$id"] = SCHEMA_ID
+    schema["description"] = ("A shellmodes case file: one geometry table ([surface] or [shell]) and optional "
+                             "tables for resolution, particle, units, potential, modes, output, sweep and limits.")
+    _describe_every_key(schema)
     return schema
+
+
+#: the schema's identifier: a URN (the project publishes no web address for it)
+SCHEMA_ID = "urn:shellmodes:case-file:schema:1"
+
+
+def schema_properties(node, where: str = ""):
+    """Every ``(path, name, property)`` of a JSON Schema: the top level and every nested table and ``$defs``."""
+    if isinstance(node, dict):
+        for name, prop in (node.get("properties") or {}).items():
+            yield where, name, prop
+        for key, value in node.items():
+            yield from schema_properties(value, f"{where}/{key}")
+    elif isinstance(node, list):
+        for value in node:
+            yield from schema_properties(value, where)
+
+
+def _describe_every_key(schema: dict) -> None:
+    """Give every property a description: a table its model's docstring, a shape tag the family it picks."""
+    defs = schema.get("$defs", {})
+    for _, name, prop in list(schema_properties(schema)):
+        if "description" in prop:
+            continue
+        if name == "shape":
+            allowed = prop.get("enum") or [prop.get("const")]
+            prop["description"] = "which shape this table describes: " + ", ".join(map(str, allowed))
+            continue
+        ref = prop.get("$ref") or next((a.get("$ref") for a in prop.get("anyOf", []) if "$ref" in a), None)
+        target = defs.get(ref.rsplit("/", 1)[-1], {}) if ref else {}
+        prop["description"] = target.get("description") or f"the [{name}] table"

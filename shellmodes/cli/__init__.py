@@ -24,32 +24,94 @@ __all__ = ["main", "default_out", "COMMANDS"]
 COMMANDS = ("run", "check", "converge", "sweep", "report", "thin_shell", "keys")
 
 
+def _common_options() -> argparse.ArgumentParser:
+    """``-q`` and ``-v``, accepted before the command and after it (defaults suppressed, so either place counts)."""
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("-v", "--verbose", action="store_true", default=argparse.SUPPRESS,
+                        help="say what runs (stages, steps, solver details) on stderr")
+    common.add_argument("-q", "--quiet", action="store_true", default=argparse.SUPPRESS,
+                        help="no progress and nothing printed on success (errors and warnings still are)")
+    return common
+
+
+class _Commands:
+    """The sub-parser action, handing every command the common options."""
+
+    def __init__(self, action, common) -> None:
+        self.action, self.common = action, common
+
+    def add_parser(self, name, **kwargs):
+        kwargs["parents"] = [*kwargs.get("parents", []), self.common]
+        return self.action.add_parser(name, **kwargs)
+
+
 def _parser() -> argparse.ArgumentParser:
     from shellmodes._version import __version__
 
-    p = argparse.ArgumentParser(prog="shellmodes", description="Eigenmodes of particles on curved surfaces.")
+    common = _common_options()
+    p = argparse.ArgumentParser(prog="shellmodes", parents=[common],
+                                description="Quantum states of a particle on curved surfaces and in 3-D shells "
+                                            "and balls, by curved high-order finite elements.")
     p.add_argument("--version", action="version", version=f"shellmodes {__version__}")
-    p.add_argument("-v", "--verbose", action="store_true", help="log progress")
-    sub = p.add_subparsers(dest="command", required=True)
+    sub = _Commands(p.add_subparsers(dest="command", required=True, metavar="COMMAND"), common)
     for name in COMMANDS:
         importlib.import_module(f"{__name__}.{name}").add_command(sub)
     return p
 
 
+#: the terminal reporter of the running command (warnings are written through it, so bars stay whole)
+_REPORTER = []
+
+
+#: renamed-key warnings held back until the command succeeds (an error stays one line on its own)
+_RENAMED: list[str] = []
+
+
 def _show_warning(message, category, filename, lineno, file=None, line=None):
-    print(f"warning: {message}", file=sys.stderr)
+    from shellmodes.errors import RenamedKeyWarning
+
+    text = f"warning: {message}"
+    if issubclass(category, RenamedKeyWarning):
+        if text not in _RENAMED:
+            _RENAMED.append(text)
+        return
+    _print_warning(text)
+
+
+def _print_warning(text: str) -> None:
+    if _REPORTER and _REPORTER[-1].bars:
+        _REPORTER[-1]._line(text)
+    else:
+        print(text, file=sys.stderr)
+
+
+def _logging(verbose: bool) -> None:
+    """Our own INFO lines with ``-v``; other libraries' loggers stay at WARNING (no third-party floods)."""
+    logging.basicConfig(level=logging.WARNING, format="%(message)s")
+    logging.getLogger("shellmodes").setLevel(logging.INFO if verbose else logging.WARNING)
 
 
 def main(argv=None) -> int:
     args = _parser().parse_args(argv)
-    logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING, format="%(message)s")
+    args.verbose = getattr(args, "verbose", False)
+    args.quiet = getattr(args, "quiet", False)
+    _logging(args.verbose)
     warnings.showwarning = _show_warning
+    from shellmodes.cli.progress import make_reporter
+    from shellmodes.io.progress import reporting
+
+    reporter = make_reporter(args)
+    _REPORTER.append(reporter)
     try:
         if args.command != "run":  # under mpiexec every rank would run the whole command and write
             from shellmodes.cli.mpi_ranks import one_process_only
 
             one_process_only(args.command)
-        return args.func(args)
+        with reporting(reporter):
+            status = args.func(args)
+        for text in _RENAMED:  # the command worked: now say which names to update
+            _print_warning(text)
+        return status
     except ShellmodesError as exc:
         print(f"shellmodes: error: {exc}", file=sys.stderr)
         return 2
@@ -67,6 +129,10 @@ def main(argv=None) -> int:
         return 130
     except Exception as exc:  # an internal failure, not the user's input
         return _internal(exc, args)
+    finally:
+        reporter.close()
+        _REPORTER.remove(reporter)
+        _RENAMED.clear()
 
 
 #: errors of the storage, not of the program: disk full, file-size limit, quota, read-only file system

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import sys
-import warnings
 from pathlib import Path
 
 from shellmodes.limits import CONVERGE_MAX_SUBDIVISIONS, MAX_SUBDIVISIONS
@@ -18,7 +16,6 @@ def add_command(subparsers) -> None:
                    help=f"finest refinement allowed (default {CONVERGE_MAX_SUBDIVISIONS}, "
                         f"at most {MAX_SUBDIVISIONS})")
     c.add_argument("--out", help="output folder (default: the case's output folder name + '-convergence')")
-    c.add_argument("-q", "--quiet", action="store_true", help="print nothing on success, no progress bar")
     c.set_defaults(func=main)
 
 
@@ -31,29 +28,14 @@ def main(args) -> int:
     case = load_case(case_path)
     out = Path(args.out) if args.out else default_out(case_path).with_name(
         default_out(case_path).name + "-convergence")
-    bar = None
-    if not args.quiet and sys.stderr.isatty():
-        from tqdm import tqdm
+    from shellmodes.io.progress import task
 
-        planned = args.refinements if args.tolerance is None else None
-        bar = tqdm(total=planned, desc="refinements", unit="solve", file=sys.stderr, leave=False)
-
-    def progress(subdivisions, spectrum):
-        if bar is not None:
-            bar.set_postfix(subdivisions=subdivisions, dofs=spectrum.info["mesh"]["dofs"])
-            bar.update(1)
-
-    # hold warnings until the bar is gone, so they do not tear through it
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            study = convergence_study(case, refinements=args.refinements, tolerance=args.tolerance,
-                                      max_subdivisions=args.max_subdivisions, progress=progress)
-        finally:
-            if bar is not None:
-                bar.close()
-    for w in caught:
-        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    planned = args.refinements if args.tolerance is None else None
+    with task("refinements", planned, "solve") as bar:
+        study = convergence_study(case, refinements=args.refinements, tolerance=args.tolerance,
+                                  max_subdivisions=args.max_subdivisions,
+                                  progress=lambda s, spectrum: bar.advance(
+                                      subdivisions=s, dofs=spectrum.info["mesh"]["dofs"]))
     write_study(study, out)
     if not args.quiet:
         levels = ", ".join(f"{r.subdivisions} ({r.dofs} dofs)" for r in study.refinements)

@@ -25,7 +25,6 @@ def add_command(subparsers) -> None:
                    help=f"render one mode of each of the first N multiplets (default {DEFAULT_RENDERS})")
     p.add_argument("--checks", action="store_true", help="run the validation set and include its table")
     p.add_argument("--keep-images", action="store_true", help="also leave the PNGs in the run folder")
-    p.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
     p.set_defaults(func=main)
 
 

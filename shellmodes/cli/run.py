@@ -17,8 +17,7 @@ def add_command(subparsers) -> None:
     r = subparsers.add_parser("run", help="solve one case file")
     r.add_argument("case", help="TOML case file")
     r.add_argument("--out", help="output folder (default: the case file's name beside it)")
-    r.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
-    r.add_argument("--report", action="store_true", help="also write report.html (needs the plot extra)")
+    r.add_argument("--report", action="store_true", help="also write report.html with pictures")
     r.add_argument("--ranks", type=int, metavar="N", help="solve on N MPI ranks on this machine (starts mpiexec; "
                    "needs scripts/setup-mpi.sh); under mpiexec the launcher's rank count is used")
     r.set_defaults(func=main)

@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
 
 def add_command(subparsers) -> None:
-    """Register ``shellmodes sweep CASE [--out DIR] [--workers N] [--scheduler ADDR] [--quiet]``."""
+    """Register ``shellmodes sweep CASE [--out DIR] [--workers N] [--scheduler ADDR] [-q] [-v]``."""
     p = subparsers.add_parser("sweep", help="solve a case at every step of its [sweep] table and follow the levels")
     p.add_argument("case", help="TOML case file with a [sweep] table")
     p.add_argument("--out", help="output folder (default: the case file's name beside it); finished steps "
@@ -15,7 +14,6 @@ def add_command(subparsers) -> None:
     p.add_argument("--workers", type=int, help="local worker processes (default: sweep.workers)")
     p.add_argument("--scheduler", help="address tcp://host:port of a running Dask scheduler (default: "
                    "sweep.scheduler)")
-    p.add_argument("-q", "--quiet", action="store_true", help="no progress bar, print nothing on success")
     p.set_defaults(func=main)
 
 
@@ -26,27 +24,19 @@ def main(args) -> int:
 
     case_path = Path(args.case)
     case = load_case(case_path)
+    from shellmodes.eigen.extras import check_extras
+
+    check_extras(case)  # a scheduler without dask is refused before any step starts
     out = Path(args.out) if args.out else default_out(case_path)
-    bars = []  # made at the first report, when the number of steps is known
-    if not args.quiet:
-        from shellmodes.io.pictures import require_plot_extra
+    from shellmodes.io.progress import task
 
-        require_plot_extra("the sweep's progress bar (or --quiet)", str(case_path), modules=("tqdm",), extra="sweep")
+    with task("sweep steps", None, "step") as bar:
+        def progress(done, total):
+            bar.total = total
+            if done > bar.done:
+                bar.advance(done - bar.done)
 
-    def progress(done, total):
-        if args.quiet:
-            return
-        if not bars:
-            from tqdm import tqdm
-
-            bars.append(tqdm(total=total, initial=done, file=sys.stderr, unit="step", desc="sweep"))
-        bars[0].update(done - bars[0].n)
-
-    try:
         result = run_sweep(case, out, workers=args.workers, scheduler=args.scheduler, progress=progress)
-    finally:
-        for bar in bars:
-            bar.close()
     if not args.quiet:
         print(f"{case.title or case_path.name}: {len(result.steps)} steps ({len(result.solved)} solved, "
               f"{len(result.reused)} reused), {len(result.tracks)} tracks")

@@ -46,6 +46,7 @@ import numpy as np
 import scipy.linalg as la
 
 from shellmodes.errors import SolverError
+from shellmodes.io import progress
 
 __all__ = ["BlockResult", "block_lowest", "default_block_size", "relative_residuals", "gram"]
 
@@ -339,6 +340,7 @@ def _krylov_schur(K, M, count: int, sigma: float, solve: Callable, *, gap: float
             else wanted
         log.debug("block iteration %d: space %d, %d of %d wanted converged (estimate)", stats["iterations"], m,
                   converged, wanted)
+        progress.stage(f"block iteration {stats['iterations']}: {converged} of {wanted} modes converged")
         if converged == wanted and wanted < m - b:
             U = V[:, :m] @ Y[:, :wanted]
             # Rayleigh-Ritz of (K, M) on the converged vectors: eigenvalues to second order

@@ -170,7 +170,8 @@ class SolverPlan:
         return {**asdict(self), "shift": self.shift}
 
     def describe(self) -> str:
-        return f"path: {self.path} ({self.method}, {self.backend}) for {self.unknowns} unknowns; {self.reason}"
+        how = ", ".join(dict.fromkeys(x for x in (self.method, self.backend) if x != self.path))
+        return f"path: {self.path}{f' ({how})' if how else ''} for {self.unknowns} unknowns; {self.reason}"
 
 
 def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:

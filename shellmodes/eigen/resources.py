@@ -268,7 +268,7 @@ def _separates(case) -> bool:
     if case.modes.method not in ("auto", "separable"):
         return False
     walls = [w for w in (shell.inner, *shell.interfaces, shell.outer) if w is not None]
-    if not all(w.shape == "sphere" or (w.shape == "star" and not w.deformation) for w in walls):
+    if not all(w.shape == "sphere" or (w.shape == "deformed_sphere" and not w.deformation) for w in walls):
         return False
     from shellmodes.case.model import energy_scale, radial_potential
 
@@ -341,7 +341,7 @@ def _shell_estimate(case) -> MemoryEstimate | None:
     if case.modes.count is not None:
         modes = float(case.modes.count)
     else:
-        masses = [r.effective_mass for r in shell.regions if r.effective_mass is not None]
+        masses = [r.effective_mass for r in shell.media if r.effective_mass is not None]
         ratio = max([m / case.particle.effective_mass for m in masses] + [1.0])
         window = 1.2 * _weyl(case, _shell_volume(case), 3, energy_scale(case)[0], ratio) + 10
         modes = min(dofs, window)

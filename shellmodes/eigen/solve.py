@@ -16,6 +16,7 @@ from __future__ import annotations
 import logging
 import time
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -40,7 +41,27 @@ METHODS = ("auto", "lanczos", "block", "lobpcg")
 
 @dataclass(frozen=True, eq=False)
 class Eigenpairs:
-    """Eigenvalues (ascending), M-orthonormal vectors and their residuals."""
+    """Eigenvalues (ascending), M-orthonormal vectors and their residuals.
+
+    Attributes
+    ----------
+    lam : ndarray
+        Eigenvalues, ascending.
+    vectors : ndarray
+        (n, k) M-orthonormal eigenvectors.
+    residuals : ndarray
+        Relative residuals ||K u - lam M u|| / (max(|lam|, |shift|) ||M u||).
+    orthogonality : float
+        Largest |U^T M U - I| entry.
+    shift : float
+        The shift of the spectral transformation.
+    backend, method : str
+        Factorization and eigen-iteration used.
+    requested : int or None
+        Modes asked for (None with ``below``).
+    timings : dict
+        Seconds per stage.
+    """
 
     lam: np.ndarray
     vectors: np.ndarray
@@ -125,10 +146,12 @@ def _shift_invert(K, M, k, sigma, factorize, v0):
     return lam[order], U[:, order]
 
 
-def lowest_modes(K, M, count: int | None = None, below: float | None = None, *, lower_bound: float = 0.0,
+def lowest_modes(K: sp.spmatrix, M: sp.spmatrix, count: int | None = None, below: float | None = None, *,
+                 lower_bound: float = 0.0,
                  scale: float = 1.0, backend: str = "auto", multiplet_tolerance: float = 1e-4,
-                 residual_limit: float = 1e-6, method: str = "auto", preconditioner=None,
-                 start=None) -> Eigenpairs:
+                 residual_limit: float = 1e-6, method: str = "auto",
+                 preconditioner: Callable[[np.ndarray], np.ndarray] | None = None,
+                 start: np.ndarray | None = None) -> Eigenpairs:
     """Lowest ``count`` eigenpairs of K u = lam M u (or all with lam < ``below``).
 
     Parameters

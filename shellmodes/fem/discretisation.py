@@ -24,8 +24,7 @@ import warnings
 from abc import ABC, abstractmethod
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from pathlib import Path
-from typing import ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
 import scipy.sparse as sp
@@ -44,6 +43,10 @@ from shellmodes.errors import CaseError, GeometryError, MeshError, ProblemError
 from shellmodes.fem.assemble import restricted
 from shellmodes.fem.forms import expand
 from shellmodes.fem.shellmesh import check_wall_order
+
+if TYPE_CHECKING:
+    from shellmodes.fem.surface import CurvedSurface
+    from shellmodes.shapes import Shape
 
 __all__ = ["Discretisation", "Operators", "ExportCells", "SurfaceDiscretisation", "TetrahedralDiscretisation",
            "PrismDiscretisation", "build_discretisation", "register_builder", "BUILDERS", "discretise",
@@ -295,8 +298,21 @@ class SurfaceDiscretisation(Discretisation):
         return f"mesh: degree {self.degree}, {self.nelements} elements, {self.ndofs} dofs, h = {self.h:.4g}"
 
 
-def discretise(case: Case, shape=None):
-    """The curved Lagrange surface (:class:`~shellmodes.fem.surface.CurvedSurface`) of a surface case."""
+def discretise(case: Case, shape: Shape | None = None) -> CurvedSurface:
+    """The curved Lagrange surface (:class:`~shellmodes.fem.surface.CurvedSurface`) of a surface case.
+
+    Parameters
+    ----------
+    case : Case
+        A case with a ``[surface]`` table.
+    shape : Shape, optional
+        The surface's exact map, if already built (default: from the case).
+
+    Returns
+    -------
+    CurvedSurface
+        Elements and geometry of ``case.resolution`` on the shape.
+    """
     from shellmodes.fem.surface import curved_surface
 
     shape = build_shape(case) if shape is None else shape
@@ -512,12 +528,12 @@ def _tetrahedra(case: Case) -> TetrahedralDiscretisation:
 
     shell, res = case.shell, case.resolution
     if shell.file is not None:
-        path = Path(shell.file)
-        if not path.is_absolute():
-            path = case.base_dir / path
+        from shellmodes.case.model import mesh_file
+
+        path = mesh_file(case, shell.file, "shell.file")
         try:
             return TetrahedralDiscretisation(read_volume_mesh(
-                path, degree=res.degree, require_regions=bool(shell.regions), quadrature_order=res.quadrature_order))
+                path, degree=res.degree, require_regions=bool(shell.media), quadrature_order=res.quadrature_order))
         except MeshError as exc:
             raise CaseError(exc.reason, exc.source or case.source, "shell.file") from None
     with _shell_errors(case):

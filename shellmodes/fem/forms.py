@@ -13,6 +13,7 @@ natural condition and needs nothing.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -59,7 +60,25 @@ def expand(U: np.ndarray, free: np.ndarray, ndofs: int) -> np.ndarray:
 
 @dataclass(frozen=True, eq=False)
 class SurfaceProblem:
-    """K u = lam M u on the free degrees of freedom of a curved surface."""
+    """K u = lam M u on the free degrees of freedom of a curved surface.
+
+    Attributes
+    ----------
+    surface : CurvedSurface
+        The curved Lagrange surface.
+    K, M : scipy.sparse.csr_matrix
+        Stiffness (plus potential) and mass on the free dofs, lambda units.
+    free : ndarray
+        Indices of the free dofs (all but a hard rim's).
+    area : float
+        Area of the discrete surface.
+    lower_bound : float
+        A value at or below the lowest eigenvalue.
+    rim : str or None
+        ``"dirichlet"``, ``"neumann"`` or None for a closed surface.
+    timings : dict
+        Seconds spent per stage.
+    """
 
     surface: CurvedSurface
     K: sp.csr_matrix
@@ -88,7 +107,8 @@ class SurfaceProblem:
                 f"rim={self.rim!r})")
 
 
-def assemble_surface(surface: CurvedSurface, potential=None, rim: str | None = None) -> SurfaceProblem:
+def assemble_surface(surface: CurvedSurface, potential: Callable[..., np.ndarray] | None = None,
+                     rim: str | None = None) -> SurfaceProblem:
     """Assemble stiffness (+ potential) and mass on ``surface``.
 
     Parameters

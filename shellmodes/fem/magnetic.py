@@ -146,7 +146,7 @@ def axisymmetric_about(shape, axis) -> bool:
         return along_z
     if shape.name == "ellipsoid":
         return along_z and bool(np.isclose(shape.axes[0], shape.axes[1]))
-    if shape.name == "star":
+    if shape.name == "deformed_sphere":
         return along_z and all(m == 0 for _, m, _ in shape.deformation)
     return False
 

@@ -99,7 +99,7 @@ def shape_curvatures(shape, points: np.ndarray):
         k1 = np.full(n, 1.0 / shape.r)
         k2 = (rho - shape.R) / (shape.r * rho)  # cos v / (R + r cos v)
         return 0.5 * (k1 + k2), k1 * k2
-    if name == "star":
+    if name == "deformed_sphere":
         from shellmodes.harmonics import angles
 
         def F(x):

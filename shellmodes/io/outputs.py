@@ -22,11 +22,16 @@ import os
 import re
 import shutil
 import tempfile
+from collections.abc import Iterable
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from shellmodes.io.pictures import ordinary_permissions
+
+if TYPE_CHECKING:
+    from shellmodes.spectrum.multiplets import Spectrum
 
 __all__ = ["write_outputs", "spectrum_json", "atomic_directory", "mode_array_names", "mode_point_data",
            "mode_field_data", "add_field_data", "write_vtu", "MODE_ARRAY", "EXPORTERS", "register",
@@ -188,15 +193,18 @@ def _write_json(spectrum, folder: Path):
 
 @register("spectrum.csv")
 def _write_csv(spectrum, folder: Path):
+    from shellmodes.spectrum.tables import csv_headings, csv_row
+
     rows = spectrum.modes_table()
     buf = io.StringIO()
+    # the six contract columns first; label_rule (which rule gave l) only where some mode has an l
     names = ["index", "energy", "eigenvalue", "multiplet", "l", "residual"]
+    names += ["label_rule"] if any(row["l"] is not None for row in rows) else []
     names += [k for k in ("dominant_l", "l_weight", "mean_L2", "abs_m") if rows and k in rows[0]]
     names += [k for k in spectrum.mode_columns if k not in names]
-    writer = csv.DictWriter(buf, fieldnames=names, lineterminator="\n")
-    writer.writeheader()
-    for row in rows:
-        writer.writerow({**row, "l": "" if row["l"] is None else row["l"]})
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(csv_headings(names, spectrum.info.get("units", {})))
+    writer.writerows(csv_row(row, names) for row in rows)
     (folder / "spectrum.csv").write_text(buf.getvalue())
 
 
@@ -237,11 +245,12 @@ def _write_array_table(spectrum, folder: Path) -> None:
     if not (folder / "modes.vtu").exists():  # written after modes.vtu (registration order), only beside it
         return
     is_complex = np.iscomplexobj(spectrum.vectors)
-    unit = (spectrum.info.get("units") or {}).get("energy", "1")
+    from shellmodes.spectrum.tables import csv_headings
+
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow(["arrays", "mode", f"energy [{unit}]" if unit != "1" else "energy", "eigenvalue", "multiplet",
-                     "label", "residual"])
+    writer.writerow(["arrays", "mode", *csv_headings(["energy", "eigenvalue"], spectrum.info.get("units") or {}),
+                     "multiplet", "label", "residual"])
     for row in spectrum.modes_table():
         names = mode_array_names(row["index"], is_complex)
         writer.writerow([" ".join(names.values()) if is_complex else names["psi"], row["index"],
@@ -251,7 +260,7 @@ def _write_array_table(spectrum, folder: Path) -> None:
 
 
 def _write_pictures(spectrum, folder: Path):
-    """levels.png and one render per multiplet (first ``output.picture_modes``), when the case asks."""
+    """levels.png and one render per multiplet (first ``output.picture_multiplets``), when the case asks."""
     output = (spectrum.info.get("case") or {}).get("output") or {}
     if not output.get("pictures") or not (folder / "modes.vtu").exists():
         return
@@ -259,7 +268,7 @@ def _write_pictures(spectrum, folder: Path):
 
     data = spectrum_json(spectrum)
     spectrum_picture(data, folder / "levels.png", title=(spectrum.info.get("case") or {}).get("title") or None)
-    chosen = [m.members[0] for m in spectrum.multiplets[: output.get("picture_modes", 4)]]
+    chosen = [m.members[0] for m in spectrum.multiplets[: output.get("picture_multiplets", 4)]]
     if np.iscomplexobj(spectrum.vectors):  # density and current arrows (issue 15)
         from shellmodes.io.pictures import render_currents
 
@@ -442,8 +451,28 @@ RUN_FILES = (r"spectrum\.json", r"spectrum\.csv", r"modes\.vtu", r"arrays\.csv",
              r"mode-\d+\.png", r"report-.*\.png")
 
 
-def write_outputs(spectrum, folder, files=None) -> Path:
-    """Write every registered output (or ``files``) for ``spectrum`` into ``folder``."""
+def write_outputs(spectrum: Spectrum, folder: str | Path, files: Iterable[str] | None = None) -> Path:
+    """Write every registered output (or ``files``) for ``spectrum`` into ``folder``.
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        A solved spectrum (:func:`shellmodes.run_case`).
+    folder : str or Path
+        The run folder; created if missing.  Files appear all at once or not at all.
+    files : iterable of str, optional
+        Names of the outputs to write (default: every registered one, see :data:`EXPORTERS`).
+
+    Returns
+    -------
+    Path
+        ``folder``.
+
+    Raises
+    ------
+    ValueError
+        An unknown output name.
+    """
     names = list(EXPORTERS) if files is None else list(files)
     unknown = set(names) - set(EXPORTERS)
     if unknown:

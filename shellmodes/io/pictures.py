@@ -56,21 +56,28 @@ def ordinary_permissions(path) -> None:
 
 
 def require_plot_extra(what: str, source: str | None = None, modules=("matplotlib", "pyvista"),
-                       extra: str = "plot") -> None:
-    """Refuse up front (before any solving) when the extra that ``what`` needs is not installed."""
+                       extra: str | None = None) -> None:
+    """Refuse up front (before any solving) when a package that ``what`` needs is not installed.
+
+    matplotlib, pyvista and tqdm are ordinary dependencies, so a missing one means a broken
+    install; ``extra`` names an optional part (``pip install 'shellmodes[EXTRA]'``) instead.
+    """
     import importlib.util
 
     missing = [m for m in modules if importlib.util.find_spec(m) is None]
     if missing:
         where = f"{source}: " if source else ""
-        raise PlotExtraMissing(f"{where}{what} needs {' and '.join(missing)}: pip install 'shellmodes[{extra}]'")
+        fix = f"pip install 'shellmodes[{extra}]'" if extra else f"python3 -m pip install {' '.join(missing)} " \
+              "(a dependency of shellmodes that is missing here)"
+        raise PlotExtraMissing(f"{where}{what} needs {' and '.join(missing)}: {fix}")
 
 
 def _matplotlib():
     try:
         import matplotlib
     except ImportError:
-        raise PlotExtraMissing("pictures need matplotlib: pip install 'shellmodes[plot]'") from None
+        raise PlotExtraMissing("pictures need matplotlib, a dependency of shellmodes that is missing here: "
+                               "python3 -m pip install matplotlib") from None
     matplotlib.use("Agg", force=False)
     import matplotlib.pyplot as plt
 
@@ -81,7 +88,8 @@ def _pyvista():
     try:
         import pyvista
     except ImportError:
-        raise PlotExtraMissing("mode renders need pyvista: pip install 'shellmodes[plot]'") from None
+        raise PlotExtraMissing("mode renders need pyvista, a dependency of shellmodes that is missing here: "
+                               "python3 -m pip install pyvista") from None
     return pyvista
 
 

@@ -167,7 +167,8 @@ _APPLIES = {
     ("particle", "mass_unit"): lambda t: t.get("mass") is not None,
     ("particle", "effective_mass"): lambda t: t.get("mass") is not None,
     ("particle", "inertia_unit"): lambda t: t.get("moment_of_inertia") is not None,
-    ("output", "picture_modes"): lambda t: bool(t.get("pictures")),
+    ("output", "picture_multiplets"): lambda t: bool(t.get("pictures")),
+    ("output", "picture_modes"): lambda t: bool(t.get("pictures")),  # the old name, in older run folders
 }
 
 
@@ -498,9 +499,9 @@ def _study_section(path: Path, data: dict, run: dict | None = None) -> str:
                      _num(r.get("l")), _num(r.get("energy")), _num(r.get("energy_extrapolated")),
                      _sci(r.get("energy_error")), _sci(r.get("relative_error")), _num(r.get("order"), 3),
                      '<span class="tag pass">yes</span>' if ok else '<span class="tag">no</span>',
-                     _num(r.get("reached_at")), *extra])
+                     _num(r.get("tolerance_met_at_subdivisions", r.get("reached_at"))), *extra])
     head = ["#", "modes", "size", "l", f"finest [{unit}]", f"extrapolated [{unit}]", f"error [{unit}]",
-            "rel. error", "order", "asymptotic", "reached at"]
+            "rel. error", "order", "asymptotic", "tolerance met at subdivisions"]
     if mine is not None:
         head.append(f"this run's error [{unit}]")
         whose = ("The last column estimates the error of this run's own levels: |extrapolated − this run|; "
@@ -510,7 +511,8 @@ def _study_section(path: Path, data: dict, run: dict | None = None) -> str:
                  "study's finest mesh, not of this run's numbers.")
     warn = "".join(f"<li>{_e(w)}</li>" for w in data.get("warnings") or [])
     return (f'<p class="quiet">From {_e(path)}: each row is a group of modes shared by every refinement; '
-            "the error estimates |extrapolated − finest| for the finest mesh (Richardson). "
+            "the error is a bar on the finest mesh's value, Fs |l3 − l2| / (r^p − 1) (Roache's grid convergence "
+            "index: Fs 1.25 where the observed order is verified, 3 where it is not and the row is flagged). "
             f"{_e(whose)}</p>"
             f'<div class="cards"><div class="card"><h3>Study</h3>{_dl(facts)}</div>'
             f'<div class="card"><h3>Refinements</h3>{refinements}</div></div>'

@@ -16,7 +16,30 @@ __all__ = ["SHAPES", "Shape", "register", "make_shape"]
 
 
 def make_shape(name: str, **parameters) -> Shape:
-    """Instantiate the registered shape ``name`` with its parameters."""
+    """Instantiate the registered shape ``name`` with its parameters.
+
+    Parameters
+    ----------
+    name : str
+        A registered shape (:data:`SHAPES`): sphere, ellipsoid, spheroid, deformed_sphere, torus, cap, mesh.
+    **parameters
+        The shape's keys as in the case file (e.g. ``radius``).
+
+    Returns
+    -------
+    Shape
+        The shape's exact map.
+
+    Raises
+    ------
+    ValueError
+        An unknown shape name.
+
+    Examples
+    --------
+    >>> make_shape("sphere", radius=2.0).exact_area()  # 4 pi R^2
+    50.26548245743669
+    """
     try:
         cls = SHAPES[name]
     except KeyError:

@@ -111,7 +111,7 @@ class Star(_Icospherical):
         Iterable of (l, m, amplitude) triples, real harmonics.
     """
 
-    name = "star"
+    name = "deformed_sphere"
 
     def __init__(self, radius: float = 1.0, deformation=()):
         self.radius = float(radius)

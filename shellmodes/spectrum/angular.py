@@ -53,10 +53,12 @@ Array layout: ``nodes`` (N, 3), ``modes`` (N, n_modes), as everywhere.
 from __future__ import annotations
 
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
+import scipy.sparse as sp
 from numpy.polynomial import legendre
 
 from shellmodes.errors import MeshQualityWarning
@@ -299,7 +301,8 @@ def _m_norms(M, modes):
     return norms
 
 
-def angular_content(nodes, modes, M, l_max: int, center=(0.0, 0.0, 0.0), axisymmetric: bool = False,
+def angular_content(nodes: np.ndarray, modes: np.ndarray, M: sp.spmatrix, l_max: int,
+                    center: tuple[float, float, float] = (0.0, 0.0, 0.0), axisymmetric: bool = False,
                     radial_degree: int = 0, projector: HarmonicProjector | None = None) -> AngularContent:
     """Weight of each harmonic degree l in each mode (least squares in the M norm).
 
@@ -364,7 +367,8 @@ def angular_content(nodes, modes, M, l_max: int, center=(0.0, 0.0, 0.0), axisymm
                           mean_L2=mean_L2, abs_m=abs_m, l_max=int(l_max))
 
 
-def multiplet_content(nodes, modes, M, groups, l_max: int, center=(0.0, 0.0, 0.0),
+def multiplet_content(nodes: np.ndarray, modes: np.ndarray, M: sp.spmatrix, groups: Sequence[Sequence[int]],
+                      l_max: int, center: tuple[float, float, float] = (0.0, 0.0, 0.0),
                       radial_degree: int = 0, projector: HarmonicProjector | None = None) -> list[dict]:
     """Weight of each degree l in the subspaces spanned by groups of modes.
 

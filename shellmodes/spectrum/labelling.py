@@ -75,6 +75,10 @@ def _field(problem, plan, solved, scale, tolerance) -> Labels:
     return Labels(multiplets, columns, rule=rule, info=info)
 
 
+#: a subspace's dominant degree names the parent l when its weight is at least this (unambiguous)
+DOMINANT_WEIGHT = 0.5
+
+
 @register_labeller("surface")
 def _surface(problem, plan, solved, scale, tolerance) -> Labels:
     from shellmodes.spectrum.angular import angular_content, harmonic_projector, multiplet_content
@@ -85,16 +89,26 @@ def _surface(problem, plan, solved, scale, tolerance) -> Labels:
     sphere_like = shape.closed and shape.sphere_like
     radius_eq2 = problem.operators.extra["area"] / (4 * np.pi) if sphere_like else None
     multiplets = build_multiplets(lam, scale.energies(lam), tolerance, plan.scale, radius_eq2)
+    multiplets = [m if m.l is None else m.with_parent("nearest-l") for m in multiplets]
     rows = perturbation_rows(shape, lam, multiplets, scale.factor)
     info = {"perturbation": rows} if rows else {}
+    columns, rule = {}, None
+    multiplets, columns = _abs_m(problem, vectors, multiplets)
+    if columns:
+        rule = "|m|: eigenvalues of -d2/dphi2 on each multiplet's subspace"
+        if sphere_like:
+            from shellmodes.spectrum.azimuthal import continuation_parents
+
+            parents = continuation_parents([m.abs_m for m in multiplets])
+            multiplets = [m if l is None else m.with_parent("continuation", l) for m, l in zip(multiplets, parents)]
     if not sphere_like or vectors.shape[1] == 0:
-        return Labels(multiplets, info=info)
+        return Labels(multiplets, columns, info=info, rule=rule)
     top = max((m.l for m in multiplets if m.l is not None), default=0)
     # (l_max + 1)^2 harmonics must stay well below the number of nodes to be resolved
     resolvable = int(np.sqrt(disc.ndofs / 8.0)) - 1
     l_max = max(0, min(top + 3, resolvable))
     axisymmetric = shape.name in ("sphere", "spheroid") or (
-        shape.name == "star" and all(m == 0 for _, m, _ in shape.deformation))
+        shape.name == "deformed_sphere" and all(m == 0 for _, m, _ in shape.deformation))
     M = problem.operators.M
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # l_max is chosen within the resolvable range above
@@ -102,8 +116,37 @@ def _surface(problem, plan, solved, scale, tolerance) -> Labels:
         per_mode = angular_content(disc.nodes, vectors, M, l_max, axisymmetric=axisymmetric, projector=projector)
         content = multiplet_content(disc.nodes, vectors, M, [m.members for m in multiplets], l_max,
                                     projector=projector)
-    return Labels([m.with_content(row) for m, row in zip(multiplets, content, strict=True)], angular=per_mode,
-                  rule="parent l: nearest l(l+1) to lambda R_eq^2 (sphere of the same area)", info=info)
+    labelled = [_parent(m.with_content(row), l_max) for m, row in zip(multiplets, content, strict=True)]
+    text = ("parent l: on surfaces of revolution the sphere level each |m| class connects to (continuation), "
+            "else the dominant degree of each multiplet's subspace where its weight is >= 1/2 "
+            "(dominant-weight), else the nearest l(l+1) to lambda R_eq^2 (nearest-l)")
+    return Labels(labelled, columns, angular=per_mode, rule=text if rule is None else f"{text}; {rule}", info=info)
+
+
+def _parent(multiplet, l_max: int):
+    """The dominant-weight parent where it is unambiguous and not at the edge of the fitted degrees."""
+    w, l = multiplet.subspace_weight, multiplet.subspace_l
+    if multiplet.label_rule == "continuation":
+        return multiplet
+    if w is not None and w >= DOMINANT_WEIGHT and l is not None and l < l_max:
+        return multiplet.with_parent("dominant-weight", l)
+    return multiplet
+
+
+def _abs_m(problem, vectors, multiplets):
+    """Multiplets with their |m| content and the per-mode ``abs_m`` column, on surfaces of revolution."""
+    from shellmodes.spectrum.azimuthal import azimuthal_matrix, is_axisymmetric, multiplet_abs_m
+
+    basis = getattr(problem.disc.raw, "basis", None)
+    if basis is None or vectors.shape[1] == 0 or not is_axisymmetric(problem.disc.shape):
+        return multiplets, {}
+    values = multiplet_abs_m(azimuthal_matrix(basis), vectors, [m.members for m in multiplets])
+    column = np.full(vectors.shape[1], -1, dtype=int)
+    out = []
+    for m, ms in zip(multiplets, values, strict=True):
+        column[list(m.members)] = ms  # the subspace's sorted |m| over its members (basis-invariant as a set)
+        out.append(replace(m, abs_m=tuple(int(v) for v in ms)))
+    return out, {"abs_m": [int(v) for v in column]}
 
 
 @register_labeller("volume")
@@ -128,7 +171,9 @@ def _volume_labels(problem, plan, solved, scale, tolerance) -> Labels:
         n, l, weight, rule = given["n"], given["l"], given["weight"], given["rule"]
         columns = {"n": [int(v) for v in n], "dominant_l": [int(v) for v in l],
                    "l_weight": [float(v) for v in weight]}
-        return Labels(build_multiplets(lam, energies, tolerance, plan.scale, mode_l=l), columns, rule=rule)
+        tag = "separable" if plan.path == "separable" else "overlap"
+        return Labels(_tagged(build_multiplets(lam, energies, tolerance, plan.scale, mode_l=l), tag), columns,
+                      rule=rule)
     fitted = _fitted(problem, solved.vectors)
     if fitted is None:
         return Labels(build_multiplets(lam, energies, tolerance, plan.scale))
@@ -136,7 +181,12 @@ def _volume_labels(problem, plan, solved, scale, tolerance) -> Labels:
                "l_weight": [float(fitted.content[i, fitted.l[i]]) for i in range(len(lam))]}
     symmetric = problem.symmetric
     rule = "(n, l) from angular content" + ("" if symmetric else " (parent labels, deformed)")
-    return Labels(build_multiplets(lam, energies, tolerance, plan.scale, mode_l=fitted.l), columns, rule=rule)
+    return Labels(_tagged(build_multiplets(lam, energies, tolerance, plan.scale, mode_l=fitted.l), "angular-fit"),
+                  columns, rule=rule)
+
+
+def _tagged(multiplets, rule: str):
+    return [m if m.l is None else m.with_parent(rule) for m in multiplets]
 
 
 def _fitted(problem, vectors):

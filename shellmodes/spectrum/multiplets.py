@@ -22,6 +22,26 @@ __all__ = ["Multiplet", "Spectrum", "parent_degree", "build_multiplets"]
 
 @dataclass(frozen=True)
 class Multiplet:
+    """One multiplet: a run of modes whose eigenvalues lie within ``modes.multiplet_tolerance``.
+
+    Attributes
+    ----------
+    index : int
+        Position in the spectrum, from 0.
+    members : tuple of int
+        Mode indices.
+    eigenvalue, energy : float
+        Mean eigenvalue (1/L^2) and mean energy (case unit).
+    size : int
+        Number of modes.
+    l, expected_size : int or None
+        Parent degree of the sphere and its 2l+1 (None where no parent is defined, e.g. a torus).
+    spread, relative_spread : float
+        max - min energy, absolute (case unit) and relative to |mean|.
+    subspace_l, subspace_weight, subspace_mean_L2 : float or None
+        Basis-independent angular content of the multiplet's subspace, where analysed.
+    """
+
     index: int
     members: tuple[int, ...]
     eigenvalue: float
@@ -36,12 +56,18 @@ class Multiplet:
     subspace_l: int | None = None
     subspace_weight: float | None = None
     subspace_mean_L2: float | None = None
+    #: which rule gave ``l``: "dominant-weight" (the subspace's dominant degree, weight >= 1/2),
+    #: "nearest-l" (nearest l(l+1) to lambda R_eq^2), "separable", "overlap", "angular-fit"; None: no l
+    label_rule: str | None = None
+    #: surfaces of revolution about z: the sorted |m| of the subspace (-1 unresolved), see spectrum/azimuthal
+    abs_m: tuple[int, ...] | None = None
 
     def as_dict(self) -> dict:
         return {"index": self.index, "energy": self.energy, "eigenvalue": self.eigenvalue, "size": self.size,
                 "l": self.l, "expected_size": self.expected_size, "spread": self.spread,
                 "relative_spread": self.relative_spread, "subspace_l": self.subspace_l,
                 "subspace_weight": self.subspace_weight, "subspace_mean_L2": self.subspace_mean_L2,
+                "label_rule": self.label_rule, "abs_m": None if self.abs_m is None else list(self.abs_m),
                 "modes": list(self.members)}
 
     def with_content(self, row: dict) -> Multiplet:
@@ -49,6 +75,11 @@ class Multiplet:
         :func:`~shellmodes.spectrum.angular.multiplet_content`."""
         return replace(self, subspace_l=int(row["l"]), subspace_weight=float(row["purity"]),
                        subspace_mean_L2=float(row["mean_L2"]))
+
+    def with_parent(self, rule: str, l: int | None = None) -> Multiplet:
+        """This multiplet with its parent l set by ``rule`` (l unchanged when None)."""
+        l = self.l if l is None else int(l)
+        return replace(self, l=l, label_rule=rule, expected_size=None if l is None else 2 * l + 1)
 
 
 def build_multiplets(lam, energy, tolerance, scale, radius_eq2=None, mode_l=None) -> list[Multiplet]:
@@ -140,8 +171,12 @@ class Spectrum:
     def modes_table(self) -> list[dict]:
         """One record per mode; with angular content also the dominant l, its weight and <L^2>."""
         mult, ls = self.mode_multiplet, self.mode_l
+        rules = [None] * len(self.eigenvalues)
+        for m in self.multiplets:
+            for i in m.members:
+                rules[i] = m.label_rule
         rows = [{"index": i, "energy": float(self.energies[i]), "eigenvalue": float(self.eigenvalues[i]),
-                 "multiplet": int(mult[i]), "l": ls[i], "residual": float(self.residuals[i])}
+                 "multiplet": int(mult[i]), "l": ls[i], "label_rule": rules[i], "residual": float(self.residuals[i])}
                 for i in range(len(self.eigenvalues))]
         a = self.angular
         if a is not None:
@@ -157,23 +192,16 @@ class Spectrum:
         return rows
 
     def summary(self, max_rows: int = 40) -> str:
-        """A compact terminal table, one row per multiplet."""
-        unit = self.info.get("units", {}).get("energy", "1")
-        head = f"{'#':>4} {'energy [' + unit + ']':>18} {'lambda':>16} {'size':>5} {'l':>3} {'2l+1':>5} " \
-               f"{'spread':>10} {'max resid':>10}"
-        lines = [head, "-" * len(head)]
-        for m in self.multiplets[:max_rows]:
-            res = float(np.max(self.residuals[list(m.members)]))
-            mark = "" if m.expected_size in (None, m.size) else "  split" if m.size < m.expected_size else ""
-            lines.append(f"{m.index:>4} {m.energy:>18.10g} {m.eigenvalue:>16.10g} {m.size:>5} "
-                         f"{'-' if m.l is None else m.l:>3} {'-' if m.expected_size is None else m.expected_size:>5} "
-                         f"{m.relative_spread:>10.2e} {res:>10.1e}{mark}")
-        if len(self.multiplets) > max_rows:
-            lines.append(f"... {len(self.multiplets) - max_rows} more multiplets in spectrum.csv")
+        """A compact terminal table, one row per multiplet (:func:`shellmodes.spectrum.tables.multiplet_table`)."""
+        from shellmodes.spectrum.tables import energy_unit, multiplet_table
+
+        unit = energy_unit(self.info.get("units", {}))
+        lines = [multiplet_table(self, max_rows)]
         rows = self.info.get("perturbation") or []
         if rows:
             lines.append("")
-            lines.append(f"splitting of each parent l [{unit}]: finite elements vs first-order perturbation theory")
+            lines.append(f"splitting of each parent l [{unit}]: finite elements (FE) vs first-order "
+                         "perturbation theory")
             lines.append(f"{'l':>4} {'FE':>14} {'1st order':>14} {'ratio':>8} {'max |FE - 1st|':>16}")
             for r in rows:
                 ratio = "-" if r["ratio"] is None else f"{r['ratio']:.4f}"

@@ -156,7 +156,8 @@ def _check_scale(eps, R):
         raise ValueError(f"R must be a positive length, got {R!r}")
 
 
-def first_order_levels(deformation, eps: float, R: float, l_parent: int) -> np.ndarray:
+def first_order_levels(deformation: Iterable[tuple[int, int, float]], eps: float, R: float,
+                       l_parent: int) -> np.ndarray:
     """First-order approximations of the 2l+1 eigenvalues descending from degree ``l_parent``.
 
     Parameters
@@ -188,7 +189,8 @@ def first_order_levels(deformation, eps: float, R: float, l_parent: int) -> np.n
     return np.sort(l * (l + 1) * (1.0 - 2.0 * eps * mu) / R**2)
 
 
-def splitting_table(deformation, eps: float, R: float, l_max: int, tol: float = 1e-9) -> list[dict]:
+def splitting_table(deformation: Iterable[tuple[int, int, float]], eps: float, R: float, l_max: int,
+                    tol: float = 1e-9) -> list[dict]:
     """First-order splitting of every sphere multiplet l = 0..l_max.
 
     Parameters
@@ -244,7 +246,7 @@ def perturbation_rows(shape, eigenvalues, multiplets, energy_per_lambda: float =
     the amplitudes shrink (differences O(a^2)).  Energies are eigenvalues times
     ``energy_per_lambda``; shapes other than deformed stars give no rows.
     """
-    if shape.name != "star" or not shape.deformation:
+    if shape.name != "deformed_sphere" or not shape.deformation:
         return []
     e0 = energy_per_lambda
     labels = np.full(len(eigenvalues), -1)

@@ -193,14 +193,31 @@ def _electron():
 
 
 def run_checks(only: str | None = None) -> list[CheckResult]:
+    """Run the validation set (or the checks whose name contains ``only``).
+
+    Parameters
+    ----------
+    only : str, optional
+        Run only checks whose name contains this text.
+
+    Returns
+    -------
+    list of CheckResult
+        One result per check run, in the order of :data:`CHECKS`; progress goes to
+        :mod:`shellmodes.io.progress` (one step per check).
+    """
+    from shellmodes.io import progress
+
+    chosen = [(name, entry) for name, entry in CHECKS.items() if not only or only in name]
     out = []
-    for name, (fn, source, tol) in CHECKS.items():
-        if only and only not in name:
-            continue
-        t0 = time.perf_counter()
-        value, reference, error = fn()
-        out.append(CheckResult(name, float(value), float(reference), float(error), float(tol), source,
-                               time.perf_counter() - t0))
+    with progress.task("checks", len(chosen), "check") as bar:
+        for name, (fn, source, tol) in chosen:
+            progress.stage(name)
+            t0 = time.perf_counter()
+            value, reference, error = fn()
+            out.append(CheckResult(name, float(value), float(reference), float(error), float(tol), source,
+                                   time.perf_counter() - t0))
+            bar.advance()
     return out
 
 
@@ -283,7 +300,7 @@ def _shell_prisms50():
 def _layered_prisms():
     shell = {"inner": {"shape": "sphere", "radius": 1.0}, "interfaces": [{"shape": "sphere", "radius": 1.5}],
              "outer": {"shape": "sphere", "radius": 2.0}, "cells": "prisms", "layers": [1, 1],
-             "radial_degree": 8, "regions": [{"effective_mass": 1.0}, {"effective_mass": 0.4}]}
+             "radial_degree": 8, "media": [{"effective_mass": 1.0}, {"effective_mass": 0.4}]}
     return _levels_check(shell, 2, 9, lambda l: ref.layered_shell_dirichlet(l, 2, 1.0, 1.5, 2.0, 1.0, 0.4), 2)
 
 
@@ -299,7 +316,7 @@ def _levels_check(shell: dict, subdivisions: int, count: int, values, l_max: int
        "of psi and (1/m) dpsi/dr (BenDaniel and Duke 1966)", 5e-3)
 def _finite_well():
     data = {"shell": {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 2.5},
-                      "layers": [6, 6], "regions": [{"effective_mass": 1.0}, {"effective_mass": 2.0, "offset": 30.0}],
+                      "layers": [6, 6], "media": [{"effective_mass": 1.0}, {"effective_mass": 2.0, "offset": 30.0}],
                       "cells": "tetrahedra"},
             "resolution": {"degree": 2, "subdivisions": 2}, "modes": {"count": 1}}
     s = run_case(case_from_dict(data, "<check>"))
@@ -338,7 +355,7 @@ def _dot_prisms():
     # core r < 1 (mass 1), shell 1 < r < 2 (mass 2.5, offset 5 in eigenvalue units), hard wall at r = 2
     shell = {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 2.0},
              "layers": [2, 2], "radial_degree": 8,
-             "regions": [{"effective_mass": 1.0}, {"effective_mass": 2.5, "offset": 5.0}]}
+             "media": [{"effective_mass": 1.0}, {"effective_mass": 2.5, "offset": 5.0}]}
     return _levels_check(shell, 3, 20, lambda l: ref.core_shell_dot_dirichlet(l, 4, 1.0, 2.0, 1.0, 2.5, 5.0), 9)
 
 
@@ -349,7 +366,7 @@ def _finite_well_auto():
     # the wall moves them by less than 1e-9 (core_shell_dot_dirichlet with the wall agrees to 8 digits)
     shell = {"interfaces": [{"shape": "sphere", "radius": 1.0}], "outer": {"shape": "sphere", "radius": 12.0},
              "layers": [2, 2], "radial_degree": 8, "decay": 1e-8,
-             "regions": [{"name": "well"}, {"name": "barrier", "offset": 15.0}]}
+             "media": [{"name": "well"}, {"name": "barrier", "offset": 15.0}]}
     return _levels_check(shell, 1, 4, lambda l: ref.finite_spherical_well(l, 15.0, 1.0, 1.0, 1.0), 2)
 
 

@@ -39,6 +39,7 @@ import os
 import re
 import shutil
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -503,7 +504,8 @@ def _reemit(step: SweepStep, caught):
 
 # -- the sweep ---------------------------------------------------------------------------------------
 
-def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | None = None, progress=None,
+def run_sweep(case: Case, out: str | Path, *, workers: int | None = None, scheduler: str | None = None,
+              progress: Callable[[int, int], None] | None = None,
               connect_timeout: float = 5.0, min_overlap: float = 0.5) -> SweepResult:
     """Solve every step of ``case.sweep``, follow the levels, and write the sweep's files into ``out``.
 
@@ -563,7 +565,7 @@ def run_sweep(case: Case, out, *, workers: int | None = None, scheduler: str | N
     if scheduler:
         check_scheduler_address(scheduler, case.source)
     check_writable(out, case.source)
-    require_plot_extra("a sweep's levels.png", case.source, modules=("matplotlib",), extra="sweep")
+    require_plot_extra("a sweep's levels.png", case.source, modules=("matplotlib",))
     if invalid is not None and not steps:
         raise SweepStopped(f"{invalid.reason}; no step was solved", invalid.source, invalid.key, None)
     steps_dir = out / "steps"

@@ -86,10 +86,21 @@ def _first_gap(theta: np.ndarray, start: int, rel_gap: float) -> int | None:
 
 
 def _run_lobpcg(K, M, X, precond, tol, maxiter):
-    with warnings.catch_warnings():
-        # scipy warns on non-convergence; convergence is checked from the residuals below
-        warnings.simplefilter("ignore", UserWarning)
-        lam, U = sla.lobpcg(K, X, B=M, M=precond, largest=False, tol=tol, maxiter=maxiter)
+    from shellmodes.io import progress
+
+    with progress.task(f"LOBPCG iterations (block {X.shape[1]}, at most)", maxiter, "it") as bar:
+        # scipy's lobpcg has no callback: it applies the preconditioner once per iteration, so count those
+        def counted(block):
+            if bar.done < maxiter:
+                bar.advance()
+            return precond @ block if isinstance(precond, sla.LinearOperator) else precond(block)
+
+        n = K.shape[0]
+        ticking = sla.LinearOperator((n, n), matvec=counted, matmat=counted, dtype=float)
+        with warnings.catch_warnings():
+            # scipy warns on non-convergence; convergence is checked from the residuals below
+            warnings.simplefilter("ignore", UserWarning)
+            lam, U = sla.lobpcg(K, X, B=M, M=ticking, largest=False, tol=tol, maxiter=maxiter)
     order = np.argsort(lam)
     return lam[order], U[:, order]
 
