@@ -12,7 +12,8 @@ error.  Walls are the parallel surfaces at normal distance -d/2 and +d/2 (wall
 key ``offset``, :mod:`shellmodes.shapes.parallel_wall`): constant thickness, so
 the band bottom minus pi^2/d^2 tends to the surface's lowest level *with* the
 thin-layer potential V_g = -(H^2 - K) (da Costa, Phys. Rev. A 23, 1982 (1981));
-the row ``bottom - pi^2/d^2`` shows it beside the surface's lowest level.
+the row ``E(0) - transverse`` (the band bottom minus hbar^2 pi^2/(2 m d^2)) shows it beside the
+surface's lowest level.
 A surface case with ``fields.curvature_potential`` keeps V_g on the surface
 only; the shells get their walls instead.
 """
@@ -75,7 +76,7 @@ class ThinShellComparison:
                                                              for d in self.thickness))
         lines.append(f"{'hbar^2 pi^2/(2 m d^2)':>21} " + " ".join(f"{np.pi**2 / d**2 * scale:>14.6g}"
                                                                   for d in self.thickness))
-        lines.append(f"{'bottom - pi^2/d^2':>21} " + " ".join(
+        lines.append(f"{'E(0) - transverse':>21} " + " ".join(
             f"{(self.shell[d][0] - np.pi**2 / d**2) * scale:>14.6g}" for d in self.thickness)
             + f"   (surface lowest: {self.surface[0] * scale:.6g})")
         lines.append(f"{'max |shell - surface|':>21} " + " ".join(
