@@ -16,6 +16,7 @@ import warnings
 
 import numpy as np
 
+from shellmodes.case.fields import check_fields, field_terms
 from shellmodes.case.model import (
     EnergyScale,
     compiled_potential,
@@ -51,7 +52,7 @@ def build_problem(case: Case, disc: Discretisation, scale: EnergyScale) -> Probl
         symmetric = spherically_symmetric(case)
         radial = radial_potential(case, scale) if disc.kind == "prisms" else None
     return Problem(disc, problem_media, compiled_potential(case, scale), radial, tuple(fixed_walls(case, disc)),
-                   symmetric=symmetric)
+                   symmetric=symmetric, terms=field_terms(case, scale.per_lambda))
 
 
 def solve_case(case: Case, problem: Problem, scale: EnergyScale) -> tuple[SolverPlan, Solved]:
@@ -97,6 +98,7 @@ def run_case(case: Case) -> Spectrum:
     from shellmodes.eigen.extras import check_extras
     from shellmodes.eigen.resources import check_resources
 
+    check_fields(case)  # fields that do not fit the case: refused before anything is built
     check_extras(case)  # optional parts the case names (back-end, AMG, scheduler): before anything is built
     check_resources(case)  # the memory guard: refuse before any mesh or matrix is built
     t_start = time.perf_counter()
@@ -115,7 +117,12 @@ def run_case(case: Case) -> Spectrum:
     solved.messages.extend(labels.messages)
     timings = {"mesh": t_mesh, "assembly": problem.timings.get("assembly", 0.0), "eigensolve": t_solve,
                "total": time.perf_counter() - t_start}
-    return _spectrum(case, problem, plan, solved, labels, scale, energies, timings)
+    spectrum = _spectrum(case, problem, plan, solved, labels, scale, energies, timings)
+    if problem.terms is not None:
+        from shellmodes.spectrum.fields import record_fields
+
+        record_fields(spectrum, case)
+    return spectrum
 
 
 def _measure(problem: Problem, solved: Solved) -> float:

@@ -346,6 +346,24 @@ BAD = {
                                       ("units.energy needs a physical units.length",)),
     "mass-and-inertia": Bad(appended("\n[particle]\nmass = 1.0\nmoment_of_inertia = 1.0\n"), "particle",
                             ("mass", "moment_of_inertia", "not both")),
+    # --- fields ---
+    "field-on-zero-charge": Bad(appended('\n[units]\nlength = "nm"\nenergy = "meV"\n\n[fields]\ncharge = 0.0\n'
+                                         'electric = { strength = 1.0, unit = "kV/cm" }\n'), "fields.charge",
+                                ("value 0.0", "nonzero charge")),
+    "field-unit-unknown": Bad(appended('\n[units]\nlength = "nm"\nenergy = "meV"\n\n[fields]\n'
+                                       'electric = { strength = 1.0, unit = "kV/mm" }\n'), "fields.electric.unit",
+                              ("'kV/mm'", "'kV/cm'")),
+    "field-zero-direction": Bad(appended('\n[units]\nlength = "nm"\nenergy = "meV"\n\n[fields]\n'
+                                         'electric = { strength = 1.0, direction = [0, 0, 0] }\n'),
+                                "fields.electric", ("nonzero vector",)),
+    "field-without-energy-unit": Bad(appended('\n[fields]\nelectric = { strength = 1.0 }\n'), "fields.electric",
+                                     ("physical units.energy",)),
+    "flux-line-through-the-sphere": Bad(appended('\n[units]\nlength = "nm"\nenergy = "meV"\n\n[fields]\n'
+                                                 'flux_line = { flux = 0.5 }\n'), "fields.flux_line",
+                                        ("passes through the surface",)),
+    "field-strength-negative": Bad(appended('\n[units]\nlength = "nm"\nenergy = "meV"\n\n[fields]\n'
+                                            'magnetic = { strength = -1.0 }\n'), "fields.magnetic.strength",
+                                   ("-1.0",)),
 }
 
 

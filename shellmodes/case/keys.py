@@ -82,12 +82,14 @@ def case_keys_markdown() -> str:
         out += ["", f"## [surface] with shape = \"{shape}\"", "", "| key | type | default | meaning |",
                 "|---|---|---|---|"]
         out += [f"| `surface.{k}` | {t} | {d} | {m} |" for k, t, d, m in _rows("", cls)]
+    from shellmodes.case.fields import ElectricField, FluxLine, MagneticField, Spin
     from shellmodes.case.schema import Medium, SweepParameter, Wall
 
     for title, cls in (("surface.deformation[] entries", DeformationTerm), ("surface.snap", SnapTarget),
                        ("shell.inner, shell.interfaces[], shell.outer (walls)", Wall),
                        ("shell.media[] entries", Medium),
-                       ("sweep.parameters[] entries", SweepParameter)):
+                       ("sweep.parameters[] entries", SweepParameter), ("fields.electric", ElectricField),
+                       ("fields.magnetic", MagneticField), ("fields.flux_line", FluxLine), ("fields.spin", Spin)):
         out += ["", f"## {title}", "", "| key | type | default | meaning |", "|---|---|---|---|"]
         out += [f"| `{k}` | {t} | {d} | {m} |" for k, t, d, m in _rows("", cls)]
     for table, ann in CASE_TABLES.items():

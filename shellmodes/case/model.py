@@ -173,7 +173,14 @@ def energy_scale(case: Case, shape=None) -> EnergyScale:
 
 # --------------------------------------------------------------------------------------------- potential
 def compiled_potential(case: Case, scale: EnergyScale):
-    """The case's potential as a function of x, y, z, r, theta, phi in lambda units (V / E0), or None."""
+    """The case's potential (expression and electric field) as a function of x, y, z, r, theta, phi in lambda
+    units (V / E0), or None."""
+    from shellmodes.case.fields import add_potentials, field_potential
+
+    return add_potentials(_expression_potential(case, scale), field_potential(case, as_scale(scale).per_lambda))
+
+
+def _expression_potential(case: Case, scale: EnergyScale):
     if case.potential is None:
         return None
     scale = as_scale(scale)
@@ -213,7 +220,9 @@ def point_potential(expression):
 
 def radial_potential(case: Case, scale: EnergyScale):
     """The case's potential as a function of r alone (lambda units), or None when it uses x, y, z or angles."""
-    if case.potential is None:
+    from shellmodes.case.fields import breaks_radial_symmetry
+
+    if case.potential is None or breaks_radial_symmetry(case):
         return None
     try:
         compile_expression(case.potential.expression, variables=("r",))
@@ -232,6 +241,11 @@ def radial_potential(case: Case, scale: EnergyScale):
 # ------------------------------------------------------------------------------------------------ shells
 def wall_function(wall: Wall):
     """Radius of the wall along unit directions (N, 3) -> (N,)."""
+    if wall.offset:  # constant normal distance from the shape (shapes/parallel_wall)
+        from shellmodes.shapes.parallel_wall import parallel_radius
+
+        base = wall_function(wall.model_copy(update={"offset": None}))
+        return parallel_radius(base, wall.offset, float(np.max(base(np.eye(3)))))
     if wall.shape == "sphere":
         radius = float(wall.radius)
         return lambda d: np.full(len(d), radius)
@@ -261,8 +275,10 @@ def shell_walls(case: Case) -> list:
 
 def spherically_symmetric(case: Case) -> bool:
     """Whether a shell case is spherically symmetric (concentric spheres, no potential)."""
+    from shellmodes.case.fields import breaks_radial_symmetry
+
     shell = case.shell
-    if shell.file is not None or case.potential is not None:
+    if shell.file is not None or case.potential is not None or breaks_radial_symmetry(case):
         return False
     walls = [w for w in (shell.inner, *shell.interfaces, shell.outer) if w is not None]
     return all(w.shape == "sphere" or (w.shape == "deformed_sphere" and not w.deformation) for w in walls)

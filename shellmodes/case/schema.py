@@ -15,10 +15,12 @@ import sys
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, NonNegativeInt, ValidationError, field_validator, model_validator
+from pydantic import BaseModel, Field, NonNegativeInt, ValidationError, field_validator, model_validator
 
 from shellmodes.case.aliases import key_as_written, upgrade, warn_renamed
 from shellmodes.case.expression import ExpressionError, compile_expression
+from shellmodes.case.fields import Fields
+from shellmodes.case.tables import Table
 from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
 from shellmodes.errors import CaseError
 from shellmodes.limits import (
@@ -60,10 +62,7 @@ InertiaUnit = Literal[tuple(INERTIA_UNITS)]
 Rim = Literal["dirichlet", "neumann"]
 
 
-class _Table(BaseModel):
-    # strict: no coercion (count = true, degree = "2", radius = true are refused); TOML arrays arrive as
-    # tuples (case_from_dict converts them)
-    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False, strict=True)
+_Table = Table
 
 
 class DeformationTerm(_Table):
@@ -151,9 +150,9 @@ def _check_shape_keys(table, keys: dict, what: str):
     return table
 
 
-_WALL_KEYS = {"sphere": (("radius",), ()), "ellipsoid": (("axes",), ()),
-              "spheroid": (("equatorial_radius", "polar_radius"), ()),
-              "deformed_sphere": (("radius",), ("deformation",))}
+_WALL_KEYS = {"sphere": (("radius",), ()), "ellipsoid": (("axes",), ("offset",)),
+              "spheroid": (("equatorial_radius", "polar_radius"), ("offset",)),
+              "deformed_sphere": (("radius",), ("deformation", "offset"))}
 
 _SNAP_KEYS = {  # shape -> (required keys, optional keys)
     "sphere": ((), ("radius",)),
@@ -207,6 +206,9 @@ class Wall(_Table):
     polar_radius: Length | None = Field(None, description="spheroid: semi-axis along z")
     deformation: tuple[DeformationTerm, ...] | None = Field(None, description="deformed_sphere: "
                                                               "r = R(1 + sum a_lm Y_lm)")
+    offset: Annotated[float, Field(ge=-LENGTH_RANGE[1], le=LENGTH_RANGE[1])] | None = Field(
+        None, description="ellipsoid, spheroid, deformed_sphere: the parallel surface at this signed normal "
+                          "distance (outward positive), for shells of constant thickness")
 
     @model_validator(mode="after")
     def _keys_of_shape(self):
@@ -500,6 +502,7 @@ class Case(_Table):
     particle: Particle = Particle()
     units: Units = Units()
     potential: Potential | None = None
+    fields: Fields | None = Field(None, description="external fields and the thin-layer potential")
     modes: Modes = Modes()
     output: Output = Output()
     sweep: Sweep | None = None
@@ -539,7 +542,8 @@ class Case(_Table):
 
 
 CASE_TABLES = {"surface": Surface, "shell": Shell, "resolution": Resolution, "particle": Particle, "units": Units,
-               "potential": Potential, "modes": Modes, "output": Output, "sweep": Sweep, "limits": Limits}
+               "potential": Potential, "fields": Fields, "modes": Modes, "output": Output, "sweep": Sweep,
+               "limits": Limits}
 
 
 def _allowed_keys(loc: tuple) -> list[str]:
@@ -668,7 +672,8 @@ def case_from_dict(data: dict, source: str = "<case>") -> Case:
     renamed: list = []
     written, data = data, upgrade(data, source, renamed)  # old names of keys and values: warned once the case validates
     # a table given as None (e.g. from Case.model_dump) counts as absent
-    data = {k: v for k, v in data.items() if not (k in ("surface", "shell", "potential", "sweep") and v is None)}
+    optional = ("surface", "shell", "potential", "fields", "sweep")
+    data = {k: v for k, v in data.items() if not (k in optional and v is None)}
     if "surface" not in data and "shell" not in data:
         raise CaseError("required table is missing; give [surface] (a curved surface) or [shell] "
                         "(a 3-D shell or ball)", source, "surface")

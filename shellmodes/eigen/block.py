@@ -196,10 +196,14 @@ def relative_residuals(K, M, lam, X, floor: float) -> np.ndarray:
 
 
 def gram(A, X) -> np.ndarray:
-    """X^T A X for a sparse A and an (n, k) block, in chunks of columns (no n x k temporary)."""
-    G = np.empty((X.shape[1], X.shape[1]))
+    """X^H A X for a sparse A and an (n, k) block, in chunks of columns (no n x k temporary).
+
+    Hermitian for complex blocks (modes in a magnetic field), X^T A X for real ones.
+    """
+    G = np.empty((X.shape[1], X.shape[1]), dtype=np.result_type(X, A.dtype))
+    XH = X.T.conj() if np.iscomplexobj(X) else X.T
     for j in range(0, X.shape[1], _COLUMNS):
-        G[:, j:j + _COLUMNS] = X.T @ (A @ X[:, j:j + _COLUMNS])
+        G[:, j:j + _COLUMNS] = XH @ (A @ X[:, j:j + _COLUMNS])
     return G
 
 

@@ -26,9 +26,11 @@ Paths
     factorization is planned, or when asked): the spectrum cut into slices,
     each with its own shift, LDL^T factorization and Lanczos window, every
     slice's modes checked against inertia counts (:mod:`shellmodes.eigen.slicing`).
-    return Solved(pairs, problem.expand(pairs.vectors), [])
-
-
+``shift-invert-hermitian``
+    A vector potential (magnetic field or flux line): K is complex Hermitian;
+    SuperLU of K - sigma M in symmetric mode and complex Lanczos, a
+    Rayleigh-Ritz step, and the spin splitting where the case asks for it
+    (:mod:`shellmodes.eigen.hermitian`).
 ``mpi``
     The assembled problem on the MPI ranks of the run (``modes.method =
     "mpi"``, or ``"auto"`` in a leader session of more than one rank when the
@@ -80,6 +82,13 @@ class Problem:
     #: spherically symmetric (concentric spherical walls, no potential): labels are exact quantum numbers
     symmetric: bool = False
     timings: dict = field(default_factory=dict)
+    #: thin-layer and vector-potential terms (:class:`~shellmodes.case.fields.FieldTerms`), or None
+    terms: object = None
+
+    @property
+    def complex(self) -> bool:
+        """A vector potential makes K complex Hermitian (path ``shift-invert-hermitian``)."""
+        return self.terms is not None and self.terms.complex
 
     @cached_property
     def space(self):
@@ -106,9 +115,11 @@ class Problem:
             curved cell folds (key ``shell``).
         """
         try:
-            operators = self.disc.assemble(self.media, self.potential)
+            operators = self.disc.assemble(self.media, self.potential, self.terms)
         except GeometryError as exc:
             raise ProblemError(str(exc), "shell") from None
+        except ProblemError:
+            raise
         except ValueError as exc:
             if self.potential is None:
                 raise
@@ -136,7 +147,7 @@ class Problem:
     @property
     def separable(self) -> bool:
         """Concentric spherical prism walls and no potential or V(r) only."""
-        return (getattr(self.disc, "separates", lambda: False)()
+        return (getattr(self.disc, "separates", lambda: False)() and not self.complex
                 and (self.potential is None or self.radial is not None))
 
 
@@ -201,10 +212,13 @@ def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:
         return SolverPlan("separable", "separable", "separable", lower, scale, unknowns,
                           "concentric spherical walls and no potential or V(r) only: the prism matrices are "
                           "Kronecker sums, so surface modes and their radial problems give the modes exactly")
-    if method == "mpi" or (method == "auto" and problem.nfree > DENSE_LIMIT and _leader_of_ranks()):
+    if not problem.complex and (method == "mpi" or (method == "auto" and problem.nfree > DENSE_LIMIT
+                                                    and _leader_of_ranks())):
         return _plan_mpi(problem, modes)
     operators = problem.operators
     lower, scale, n = operators.lower_bound, disc.spectral_scale(operators), problem.nfree
+    if problem.complex:
+        return _plan_hermitian(problem, modes, lower, scale)
     if disc.kind == "prisms" and (method == "lobpcg" or (method == "auto" and n >= PRISM_ITERATIVE_FROM)):
         return SolverPlan("lobpcg-spherical", "lobpcg", "spherical-reference", lower, scale, n,
                           f"deformed prisms, {n} unknowns: LOBPCG preconditioned by the exact inverse of the "
@@ -296,6 +310,25 @@ def _slices_plan(modes: Modes, lower: float, scale: float, n: int, estimate, why
                       reason + (f"; {why}" if why else ""), None if estimate is None else int(estimate.bytes))
 
 
+def _plan_hermitian(problem: Problem, modes: Modes, lower: float, scale: float) -> SolverPlan:
+    """Complex Hermitian K (a vector potential): complex LU and complex Lanczos, or a dense solve.
+
+    The field-free lower bound stays valid (diamagnetic inequality, :mod:`shellmodes.fem.magnetic`).
+    CHOLMOD through cholespy is real-only, and the blocked iteration and LOBPCG work on real blocks,
+    so every back-end and iteration a case names is replaced here, and the reason says so.
+    """
+    n = problem.nfree
+    method = resolve_method(n, "lanczos", modes.count)
+    reason = ("vector potential: complex Hermitian K; SuperLU in symmetric mode on K - sigma M (positive "
+              "definite, no pivoting) and complex Lanczos" if method != "dense"
+              else f"vector potential: complex Hermitian K, {n} unknowns: a dense solve is cheaper")
+    asked = [f"{k} {v!r}" for k, v in (("method", modes.method), ("backend", modes.backend)) if v != "auto"]
+    if asked:
+        reason += f" (case asks for {', '.join(asked)}: real-only, not used)"
+    return SolverPlan("shift-invert-hermitian", method, "dense" if method == "dense" else "splu-hermitian",
+                      lower, scale, n, reason)
+
+
 def _backend_name(n: int, method: str, backend: str) -> str:
     from shellmodes.eigen.backends import get_backend
 
@@ -340,7 +373,7 @@ def solve_plan(plan: SolverPlan, problem: Problem, modes: Modes, count: int | No
     machine under load: 1 thread was 4-6x faster than 2).
     """
     runner = {"separable": _separable, "lobpcg-spherical": _lobpcg_spherical, "mpi": _mpi,
-              "slices": _sliced}.get(plan.path, _assembled)
+              "slices": _sliced, "shift-invert-hermitian": _hermitian}.get(plan.path, _assembled)
     with warnings.catch_warnings(record=True) as caught, threadpool_limits(limits=1):
         warnings.simplefilter("always")
         solved = runner(plan, problem, modes, count, below)
@@ -364,6 +397,20 @@ def _sliced(plan, problem, modes, count, below) -> Solved:
                          multiplet_tolerance=modes.multiplet_tolerance, residual_limit=modes.residual_limit,
                          slice_modes=modes.slice_modes, workers=modes.workers, scheduler=modes.scheduler)
     return Solved(pairs, problem.expand(pairs.vectors), [])
+
+
+def _hermitian(plan, problem, modes, count, below) -> Solved:
+    """Complex modes (Rayleigh-Ritz in the found subspace), split by spin where the case asks."""
+    from shellmodes.eigen.hermitian import rayleigh_ritz, spin_split
+
+    pairs = lowest_modes(problem.K, problem.M, count=count, below=below, lower_bound=plan.lower_bound,
+                         scale=plan.scale, backend=plan.backend, multiplet_tolerance=modes.multiplet_tolerance,
+                         residual_limit=modes.residual_limit, method=plan.method)
+    pairs = rayleigh_ritz(pairs, problem.K, problem.M)
+    labels = {}
+    if problem.terms.spin_shift is not None:
+        pairs, labels = spin_split(pairs, problem.terms.spin_shift, count, modes.multiplet_tolerance, plan.scale)
+    return Solved(pairs, problem.expand(pairs.vectors), [], labels)
 
 
 def _mpi(plan, problem, modes, count, below) -> Solved:

@@ -240,10 +240,16 @@ def _mode_key(case) -> str:
 
 def _estimate(case, sizes, parts, size_key: str) -> MemoryEstimate:
     """Package the parts; blame the modes when the eigen-iteration dominates, else the resolution."""
+    from shellmodes.case.fields import needs_complex
+
     dofs, nnz, modes, window = sizes
     mesh, assembly, factor, eigen, kept = parts
     named = {"program": _PROGRAM, "mesh and basis": mesh, "matrices": assembly, "factor": factor,
              "eigen-iteration": eigen, "modes written": 2 * kept}
+    if needs_complex(case):  # complex Hermitian: twice the bytes, plus the field-free reference solve for labels
+        named = {**{k: 2 * v for k, v in named.items()}, "program": _PROGRAM, "mesh and basis": mesh,
+                 "field-free reference": eigen}
+        eigen, kept = 2 * eigen, 2 * kept
     key = _mode_key(case) if eigen + 2 * kept > mesh + assembly + factor else size_key
     return MemoryEstimate(int(dofs), int(nnz), int(modes), named, key, window)
 

@@ -124,7 +124,7 @@ def _m_orthonormalise(U, M):
     G = gram(M, U)
     error = float(np.max(np.abs(G - np.eye(G.shape[0])))) if G.size else 0.0
     if error > 1e-10:
-        L = la.cholesky(0.5 * (G + G.T), lower=True)
+        L = la.cholesky(0.5 * (G + G.conj().T), lower=True)
         U = la.solve_triangular(L, U.T, lower=True).T
     return U, error
 
@@ -138,14 +138,22 @@ def _shift_invert(K, M, k, sigma, factorize, v0):
     A = (K - sigma * M).tocsc()
     solve = factorize(A)
     n = K.shape[0]
-    op = sla.LinearOperator((n, n), matvec=solve, matmat=solve, dtype=float)
+    op = sla.LinearOperator((n, n), matvec=solve, matmat=solve, dtype=A.dtype)
     ncv = min(n, max(2 * k + 1, k + 32))
+    if np.iscomplexobj(A):
+        # a real sparse M times a complex vector is upcast (M copied to complex) at every product: multiply the
+        # real and imaginary parts instead (measured: 3.9 s of 9 s for 100 modes on 10,242 nodes)
+        def mass(x, real=M):
+            return real @ x.real + 1j * (real @ x.imag)
+
+        M = sla.LinearOperator((n, n), matvec=mass, dtype=A.dtype)
     try:
         lam, U = sla.eigsh(K, k=k, M=M, sigma=sigma, which="LM", OPinv=op, v0=v0, ncv=ncv,
                            tol=1e-13, maxiter=max(1000, 20 * k))
     except sla.ArpackNoConvergence as exc:
         raise SolverError(f"the Lanczos iteration did not converge for {k} modes "
                           f"({len(exc.eigenvalues)} converged); reduce the count or refine the mesh") from None
+    lam = np.real(lam)  # complex Hermitian pairs: ARPACK's eigenvalues carry round-off imaginary parts
     order = np.argsort(lam)
     return lam[order], U[:, order]
 
@@ -162,7 +170,9 @@ def lowest_modes(K: sp.spmatrix, M: sp.spmatrix, count: int | None = None, below
     ----------
     K, M
         Symmetric sparse stiffness (positive semi-definite up to a potential) and
-        positive definite mass.
+        positive definite mass.  K may be complex Hermitian (a vector potential): then
+        the Lanczos or dense path with a back-end that factors complex matrices
+        (``splu-hermitian``), as :func:`shellmodes.eigen.planner.plan_solver` chooses.
     count, below
         Give one: the number of lowest modes, or an upper bound on lam.
     lower_bound
@@ -220,7 +230,7 @@ def lowest_modes(K: sp.spmatrix, M: sp.spmatrix, count: int | None = None, below
     solve = None  # the block path factorizes once and keeps the factor across extensions
     extra: dict = {}
     rng = np.random.default_rng(20261202)
-    v0 = rng.standard_normal(n)
+    v0 = rng.standard_normal(n).astype(K.dtype)  # complex for complex Hermitian pairs (magnetic fields)
     t0 = time.perf_counter()
     k = first_size(n, count)
     while True:

@@ -39,7 +39,7 @@ from shellmodes.case.model import (
     subdivision_level,
 )
 from shellmodes.case.schema import Case
-from shellmodes.errors import CaseError, GeometryError, MeshError
+from shellmodes.errors import CaseError, GeometryError, MeshError, ProblemError
 from shellmodes.fem.assemble import restricted
 from shellmodes.fem.forms import expand
 from shellmodes.fem.shellmesh import check_wall_order
@@ -174,8 +174,12 @@ class Discretisation(ABC):
         return SelectedDofs(self.free_dofs(fixed), self.ndofs)
 
     @abstractmethod
-    def assemble(self, media: Media, potential=None) -> Operators:
-        """K and M on every dof for the given media and compiled potential (lambda units)."""
+    def assemble(self, media: Media, potential=None, terms=None) -> Operators:
+        """K and M on every dof for the given media, compiled potential and field terms (lambda units).
+
+        ``terms`` (:class:`~shellmodes.case.fields.FieldTerms` or None): the thin-layer potential and
+        vector potentials (:mod:`shellmodes.fem.fields`); K is complex Hermitian with a vector potential.
+        """
 
     @abstractmethod
     def mass_matrix(self) -> sp.csr_matrix:
@@ -237,12 +241,19 @@ class SurfaceDiscretisation(Discretisation):
             free = np.setdiff1d(free, boundary)
         return free
 
-    def assemble(self, media: Media, potential=None) -> Operators:
+    def assemble(self, media: Media, potential=None, terms=None) -> Operators:
         from shellmodes.fem.forms import assemble_surface
 
         problem = assemble_surface(self.raw, potential)
-        return Operators(problem.K, problem.M, problem.lower_bound, problem.timings["assembly"],
-                         {"area": problem.area})
+        K, lower, extra, seconds = problem.K, problem.lower_bound, {"area": problem.area}, problem.timings["assembly"]
+        if terms is not None:
+            from shellmodes.fem.fields import surface_field_operators
+
+            t0 = time.perf_counter()
+            K, lower, more = surface_field_operators(self.raw, self.shape, terms, K, lower)
+            extra.update(more)
+            seconds += time.perf_counter() - t0
+        return Operators(K, problem.M, lower, seconds, extra)
 
     def mass_matrix(self) -> sp.csr_matrix:
         import skfem
@@ -326,14 +337,21 @@ class _Volume(Discretisation):
     def __init__(self, raw):
         self.raw = raw
 
-    def assemble(self, media: Media, potential=None) -> Operators:
+    def assemble(self, media: Media, potential=None, terms=None) -> Operators:
         t0 = time.perf_counter()
         function = point_potential(potential)
         K, M = self._assembled(media.inverse_mass, media.offsets, function)
         lower = media.lowest_offset
         if function is not None:
             lower = min(lower, float(np.min(function(*self.nodes.T))))
-        return Operators(sp.csr_matrix(K), sp.csr_matrix(M), lower, time.perf_counter() - t0)
+        extra = {}
+        if terms is not None and terms.complex:
+            K, extra = self._field_terms(terms, media, sp.csr_matrix(K))
+        return Operators(sp.csr_matrix(K), sp.csr_matrix(M), lower, time.perf_counter() - t0, extra)
+
+    def _field_terms(self, terms, media: Media, K):
+        """(K, extra) with a vector potential added; kinds without one refuse (checked before: case/fields)."""
+        raise ProblemError(f"shell cells {self.kind!r} take no magnetic field in this version", "fields.magnetic")
 
     @abstractmethod
     def _assembled(self, inverse_mass: dict, offsets: dict, function):
@@ -383,6 +401,11 @@ class TetrahedralDiscretisation(_Volume):
         from shellmodes.fem.assemble import assemble_volume
 
         return assemble_volume(self.raw, inverse_mass, offsets, function)
+
+    def _field_terms(self, terms, media: Media, K):
+        from shellmodes.fem.fields import volume_field_operators
+
+        return volume_field_operators(self.raw, terms, media.inverse_mass, K)
 
     def mass_matrix(self) -> sp.csr_matrix:
         from shellmodes.fem.assemble import assemble_volume

@@ -53,7 +53,7 @@ def expand(U: np.ndarray, free: np.ndarray, ndofs: int) -> np.ndarray:
     """Vectors on all ``ndofs`` dofs (zero elsewhere) from vectors on the ``free`` dofs."""
     if U.shape[0] == ndofs:
         return U
-    full = np.zeros((ndofs,) + U.shape[1:])
+    full = np.zeros((ndofs,) + U.shape[1:], dtype=U.dtype)  # complex modes (magnetic fields) stay complex
     full[free] = U
     return full
 

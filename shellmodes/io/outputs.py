@@ -182,7 +182,7 @@ def spectrum_json(spectrum) -> dict:
         "multiplets": [m.as_dict() for m in spectrum.multiplets],
         **{k: spectrum.info.get(k) for k in ("units", "mesh", "solver", "versions", "case", "timings",
                                               "warnings")},
-        **{k: spectrum.info[k] for k in ("perturbation", "statistics") if k in spectrum.info},
+        **{k: spectrum.info[k] for k in ("perturbation", "statistics", "thin_layer", "fields") if k in spectrum.info},
     }
 
 
@@ -208,6 +208,22 @@ def _write_csv(spectrum, folder: Path):
     (folder / "spectrum.csv").write_text(buf.getvalue())
 
 
+def _currents(spectrum):
+    """(N, 3, n) probability currents of complex surface modes (magnetic fields), or None.
+
+    Computed only here, when modes.vtu is written: one mass factor of the fastest back-end for every
+    mode and component (:func:`shellmodes.fem.magnetic.nodal_currents`).
+    """
+    problem = spectrum.problem
+    U = spectrum.vectors
+    if not np.iscomplexobj(U) or problem is None or problem.disc.kind != "surface" or not U.shape[1]:
+        return None
+    from shellmodes.eigen.backends import get_backend
+    from shellmodes.fem.magnetic import nodal_currents
+
+    return nodal_currents(problem.terms, problem.disc.raw, U, factorize=get_backend("auto")[1]).transpose(1, 2, 0)
+
+
 @register("modes.vtu")
 def _write_vtu(spectrum, folder: Path):
     """Every mode as point arrays with stable names; per-mode records as field data and in arrays.csv.
@@ -217,7 +233,7 @@ def _write_vtu(spectrum, folder: Path):
     export = spectrum.export
     if not export:
         return
-    point_data = mode_point_data(spectrum.vectors, export.get("currents"))
+    point_data = mode_point_data(spectrum.vectors, export.get("currents", _currents(spectrum)))
     point_data.update(export.get("point_data", {}))
     write_vtu(folder / "modes.vtu", export["points"], export["cells"], point_data=point_data,
               cell_data=export.get("cell_data", {}), field_data=mode_field_data(spectrum))
@@ -253,6 +269,13 @@ def _write_pictures(spectrum, folder: Path):
     data = spectrum_json(spectrum)
     spectrum_picture(data, folder / "levels.png", title=(spectrum.info.get("case") or {}).get("title") or None)
     chosen = [m.members[0] for m in spectrum.multiplets[: output.get("picture_multiplets", 4)]]
+    if np.iscomplexobj(spectrum.vectors):  # density and current arrows (issue 15)
+        from shellmodes.io.pictures import render_currents
+
+        render_currents(folder / "modes.vtu", chosen, str(folder / "mode-{index:04d}.png"),
+                        lambda i: mode_array_names(i, True), energies=dict(enumerate(spectrum.energies)),
+                        unit=spectrum.info["units"]["energy"])
+        return
     render_modes(folder / "modes.vtu", chosen, str(folder / "mode-{index:04d}.png"),
                  unit=spectrum.info["units"]["energy"])
 

@@ -471,16 +471,21 @@ def render_modes(vtu_path, indices, path_pattern, *, unit: str | None = None,
     return written
 
 
-def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename):
+def _shoot(pv, surface, title, cmap, limit, volume, window_size, filename, scalars="u", arrows=None,
+           bar="psi (nodal value)"):
+    """One picture: ``scalars`` in colour (symmetric limits +-``limit``, or the data's range for None),
+    and optional ``arrows`` (glyphs of a vector field)."""
     plotter = pv.Plotter(off_screen=True, window_size=list(window_size))
     try:
         plotter.set_background("#fbfaf7")
-        plotter.add_mesh(surface, scalars="u", cmap=cmap, clim=(-limit, limit), smooth_shading=True,
-                         ambient=0.4, diffuse=0.7, specular=0.05, show_scalar_bar=False)
+        plotter.add_mesh(surface, scalars=scalars, cmap=cmap, clim=None if limit is None else (-limit, limit),
+                         smooth_shading=True, ambient=0.4, diffuse=0.7, specular=0.05, show_scalar_bar=False)
+        if arrows is not None:
+            plotter.add_mesh(arrows, color="#f4f1ea")
         # the mode and its energy at the top left, the bar titled with the field it shows: nothing overlaps,
         # and the fonts stay readable with the picture shown at ~480 px wide in the report
         plotter.add_text(title, position="upper_left", font_size=15, color="#1d2a3a")
-        plotter.add_scalar_bar(title="psi (nodal value)", n_labels=3, fmt="%.2g", color="#1d2a3a", vertical=False,
+        plotter.add_scalar_bar(title=bar, n_labels=3, fmt="%.2g", color="#1d2a3a", vertical=False,
                                position_x=0.15, position_y=0.03, width=0.7, height=0.1, title_font_size=26,
                                label_font_size=24)
         if volume:
@@ -552,3 +557,40 @@ def statistics_picture(stats: dict, path, *, title: str | None = None) -> Path:
     if title:
         fig.suptitle(title, fontsize=10)
     return _save_figure(plt, fig, path)
+
+
+def render_currents(vtu_path, indices, path_pattern, names, *, energies=None, unit: str | None = None,
+                    window_size=(900, 800)) -> list[Path]:
+    """Render complex modes of a surface ``modes.vtu``: the density |psi|^2 in colour and the probability
+    current as arrows on the surface (a persistent current on a ring shows as a loop of arrows).
+
+    ``names(index)`` gives the mode's array names (:func:`shellmodes.io.outputs.mode_array_names`);
+    ``energies`` (index -> energy) titles each picture.
+    """
+    pv = _pyvista()
+    _matplotlib()
+    with pv.vtk_verbosity("off"):
+        grid = pv.read(Path(vtu_path))
+        base = pv.UnstructuredGrid(grid.cells, grid.celltypes, np.asarray(grid.points))
+        size = float(np.linalg.norm(np.ptp(np.asarray(grid.points), axis=0)))
+        written = []
+        for i in indices:
+            density = np.asarray(grid.point_data[names(i)["density"]], dtype=float)
+            current = np.asarray(grid.point_data.get(names(i)["current"], np.zeros((len(density), 3))), dtype=float)
+            view = base.copy()
+            view.point_data["density"] = density
+            view = view.extract_surface(nonlinear_subdivision=3, algorithm="dataset_surface")
+            points = pv.PolyData(np.asarray(grid.points))
+            points.point_data["j"] = current
+            step = max(1, len(density) // 600)  # about 600 arrows
+            sample = points.extract_points(np.arange(0, len(density), step), adjacent_cells=False)
+            top = float(np.max(np.linalg.norm(current, axis=1))) if len(current) else 0.0
+            arrows = sample.glyph(orient="j", scale="j", factor=0.08 * size / top) if top > 0 else None
+            out = Path(str(path_pattern).format(index=i))
+            suffix = f" {unit}" if unit and unit != "1" else ""
+            energy = "" if energies is None else f"   E = {energies[i]:.6g}{suffix}"
+            title = f"mode {i}{energy}"
+            written.append(_write_atomic_png(out, lambda tmp, v=view, a=arrows, t=title: _shoot(
+                pv, v, t, "viridis", None, False, window_size, tmp, scalars="density", arrows=a,
+                bar="density (abs psi)^2, arrows: current")))
+    return written

@@ -11,6 +11,10 @@ discretisation names its own (:attr:`shellmodes.fem.discretisation.Discretisatio
     Closed sphere-like surfaces: the parent l of a multiplet is the nearest l
     of lam R_eq^2 with R_eq^2 = area / 4 pi; per-mode and per-multiplet
     angular content by least squares on the radial map (:mod:`shellmodes.spectrum.angular`).
+``field``
+    Complex modes in a magnetic field or flux (any discretisation): <L_z>, the
+    parent field-free multiplet by overlap, paramagnetic and diamagnetic parts
+    (:mod:`shellmodes.spectrum.fields`).
 ``volume``
     Shells and balls: (n, l) exact on the separable path, by overlap with the
     mean-radius spherical shell's modes on the LOBPCG path for deformed prisms,
@@ -57,8 +61,18 @@ def register_labeller(name: str):
 
 
 def label_modes(problem, plan, solved, scale, tolerance: float) -> Labels:
-    """Labels of solved modes by the labeller the discretisation names (``scale``: the case's EnergyScale)."""
-    return LABELLERS[problem.disc.labeller](problem, plan, solved, scale, tolerance)
+    """Labels of solved modes by the labeller the discretisation names (``scale``: the case's EnergyScale);
+    complex modes in a magnetic field by the ``field`` labeller (:mod:`shellmodes.spectrum.fields`)."""
+    name = "field" if problem.complex else problem.disc.labeller
+    return LABELLERS[name](problem, plan, solved, scale, tolerance)
+
+
+@register_labeller("field")
+def _field(problem, plan, solved, scale, tolerance) -> Labels:
+    from shellmodes.spectrum.fields import field_labels
+
+    multiplets, columns, rule, info = field_labels(problem, plan, solved, scale, tolerance)
+    return Labels(multiplets, columns, rule=rule, info=info)
 
 
 #: a subspace's dominant degree names the parent l when its weight is at least this (unambiguous)

@@ -207,6 +207,7 @@ class Spectrum:
                 ratio = "-" if r["ratio"] is None else f"{r['ratio']:.4f}"
                 lines.append(f"{r['l']:>4} {r['fe_splitting']:>14.6g} {r['first_order_splitting']:>14.6g} "
                              f"{ratio:>8} {r['max_difference']:>16.3g}")
+        lines += self.info.get("summary_notes", [])  # e.g. the fields and the thin-layer potential's range
         return "\n".join(lines)
 
     def __repr__(self):

@@ -368,3 +368,72 @@ def _finite_well_auto():
              "layers": [2, 2], "radial_degree": 8, "decay": 1e-8,
              "media": [{"name": "well"}, {"name": "barrier", "offset": 15.0}]}
     return _levels_check(shell, 1, 4, lambda l: ref.finite_spherical_well(l, 15.0, 1.0, 1.0, 1.0), 2)
+
+
+# --------------------------------------------------------------------------- fields and the thin-layer potential
+_UNITS = {"length": "nm", "energy": "meV"}
+
+
+@check("rigid rotor in a field: J = 0 Stark shift", "-(mu F)^2/(6B), second order (Townes and Schawlow, "
+       "Microwave Spectroscopy, ch. 10, formula recalled from memory); mu F / B = 0.05", 1e-2)
+def _rotor_stark():
+    from shellmodes.case.fields import DIPOLE_UNITS, ELECTRIC_UNITS
+    from shellmodes.case.units import INERTIA_UNITS, rotational_constant_cm
+
+    B = rotational_constant_cm(10.0 * INERTIA_UNITS["amu angstrom2"])
+    field = 0.05 * B * constants.h * constants.c / constants.centi / DIPOLE_UNITS["debye"] / ELECTRIC_UNITS["kV/cm"]
+
+    def level(strength):
+        return run_case(case_from_dict({"surface": {"shape": "sphere"}, "resolution": {"degree": 3, "subdivisions": 3},
+                                        "particle": {"moment_of_inertia": 10.0}, "units": {"energy": "cm-1"},
+                                        "modes": {"count": 1}, "fields": {"electric": {"strength": strength,
+                                                                          "unit": "kV/cm"}, "dipole_moment": 1.0}},
+                                       "<check>")).energies[0]
+
+    shift = level(field) - level(0.0)
+    exact = -((0.05 * B) ** 2) / (6 * B)
+    return float(shift), float(exact), abs(shift - exact) / abs(exact)
+
+
+@check("electron on a 10 nm sphere in 2 T: l = 1 Zeeman splitting", "mu_B B per step of m (orbital Zeeman "
+       "effect, Landau and Lifshitz QM sect. 112, section recalled from memory; scipy.constants Bohr magneton)", 1e-3)
+def _sphere_zeeman():
+    s = run_case(case_from_dict({"surface": {"shape": "sphere", "radius": 10.0}, "units": _UNITS,
+                                 "resolution": {"degree": 3, "subdivisions": 2}, "modes": {"count": 4},
+                                 "fields": {"magnetic": {"strength": 2.0}}}, "<check>"))
+    p = np.sort(s.energies[1:4])
+    exact = constants.physical_constants["Bohr magneton"][0] * 2.0 / (constants.milli * constants.e)
+    got = float((p[2] - p[0]) / 2)
+    return got, exact, abs(got - exact) / exact
+
+
+@check("torus ring with a flux line: 8 levels", "1-D Fourier solve of the profile equation with (m/rho - a_phi)^2 "
+       "(shellmodes.profile_reference); periodic in the flux (Byers and Yang 1961)", 1e-4)
+def _torus_flux():
+    from shellmodes.case.fields import flux_lambda
+    from shellmodes.studies.profile_reference import torus_profile_levels
+
+    case = case_from_dict({"surface": {"shape": "torus", "major_radius": 2.0, "minor_radius": 1.0}, "units": _UNITS,
+                           "resolution": {"degree": 3, "subdivisions": 2}, "modes": {"count": 8},
+                           "fields": {"flux_line": {"flux": 0.3}}}, "<check>")
+    c = flux_lambda(case)
+    exact = np.sort(np.concatenate([torus_profile_levels(2.0, 1.0, m, 3, vector_potential=lambda rho: c / rho)
+                                    for m in range(-5, 6)]))[:8]
+    got = run_case(case).eigenvalues[:8]
+    return float(got[-1]), float(exact[-1]), float(np.max(np.abs(got - exact) / np.abs(exact)))
+
+
+@check("spheroid with the thin-layer potential: 9 levels", "1-D Legendre-Galerkin solve of the profile equation "
+       "with -(k1 - k2)^2/4 (shellmodes.profile_reference; da Costa, Phys. Rev. A 23, 1982 (1981))", 1e-5)
+def _spheroid_thin_layer():
+    from shellmodes.studies.profile_reference import spheroid_profile_levels
+
+    s = run_case(case_from_dict({"surface": {"shape": "spheroid", "equatorial_radius": 1.5, "polar_radius": 1.0},
+                                 "resolution": {"degree": 4, "subdivisions": 2}, "modes": {"count": 9},
+                                 "fields": {"curvature_potential": True}}, "<check>"))
+    levels = []
+    for m in range(4):
+        levels += list(spheroid_profile_levels(1.5, 1.0, m, 3, thin_layer=True)) * (1 if m == 0 else 2)
+    exact = np.sort(levels)[:9]
+    got = s.eigenvalues[:9]
+    return float(got[0]), float(exact[0]), float(np.max(np.abs(got - exact)) / np.max(np.abs(exact)))

@@ -48,7 +48,7 @@ import numpy as np
 from shellmodes import errors
 from shellmodes.case.schema import Case, case_from_dict
 from shellmodes.errors import CaseError, ShellmodesError
-from shellmodes.io.outputs import EXPORTERS, MODE_ARRAY, atomic_directory
+from shellmodes.io.outputs import EXPORTERS, MODE_ARRAY, atomic_directory, mode_array_names
 from shellmodes.limits import PORT_RANGE, SCHEDULER_ADDRESS
 
 __all__ = ["SweepStep", "SweepResult", "SweepStopped", "plan_steps", "run_sweep", "load_step"]
@@ -312,7 +312,8 @@ def load_step(folder):
     """Read a saved step: (modes table, multiplet member lists, (N, n) vectors, record).
 
     The vectors come from the point fields of ``modes.vtu``, named
-    ``psi_NNNN`` (:func:`shellmodes.io.outputs.mode_array_names`).
+    ``psi_NNNN``, and for complex modes ``psi_NNNN_re`` and ``psi_NNNN_im``
+    (:func:`shellmodes.io.outputs.mode_array_names`).
     """
     spectrum, groups, vectors, record, _ = _read_step(folder)
     return spectrum, groups, vectors, record
@@ -335,7 +336,11 @@ def _read_step(folder):
     for name, values in mesh.point_data.items():
         match = MODE_ARRAY.match(name)
         if match:
-            fields[int(match.group(1))] = np.asarray(values, dtype=float).reshape(len(mesh.points))
+            index = int(match.group(1))
+            fields[index] = np.asarray(values, dtype=float).reshape(len(mesh.points))
+            if match.group(2):  # a complex mode (magnetic fields): the real part plus psi_NNNN_im
+                imag = np.asarray(mesh.point_data[mode_array_names(index, True)["im"]], dtype=float)
+                fields[index] = fields[index] + 1j * imag.reshape(len(mesh.points))
     modes = spectrum["modes"]
     if sorted(fields) != list(range(len(modes))):
         raise ShellmodesError(f"{folder}: modes.vtu holds modes {sorted(fields)[:5]}..., spectrum.json "

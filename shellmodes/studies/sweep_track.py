@@ -124,7 +124,7 @@ class LevelTracker:
     def add(self, step: StepModes) -> list:
         """Assign the modes of the next step to tracks; returns that step's triples."""
         s = len(self.assignments)
-        U = np.asarray(step.vectors, dtype=float)
+        U = _modes(step.vectors)
         n = U.shape[1]
         group_of = np.zeros(n, dtype=int)
         for h, g in enumerate(step.groups):
@@ -158,26 +158,28 @@ class LevelTracker:
             if len(ks) < 2:
                 continue
             C = UtMT[:, ks]
-            A = C.T @ (lam[:, None] * C) + top * (np.eye(len(ks)) - C.T @ C)
-            _, V = eigh(0.5 * (A + A.T))
+            A = C.conj().T @ (lam[:, None] * C) + top * (np.eye(len(ks)) - C.conj().T @ C)
+            _, V = eigh(0.5 * (A + A.conj().T))
+            X = X.astype(np.result_type(X, V))
             X[np.ix_(ks, ks)] = V
         return X
 
     def _follow(self, step: StepModes, s: int):
-        U, M = np.asarray(step.vectors, dtype=float), step.M
+        U, M = _modes(step.vectors), step.M
         lam = np.asarray(step.eigenvalues, dtype=float)
         # every later basis of step a's states is T X for a small X, so one product with M serves:
         # M (T X) = (M T) X, and U^T M (T X) = (U^T M T) X
         T = self._states
         MT = np.asarray(M @ T)
-        G = T.T @ MT
-        d, V = eigh(0.5 * (G + G.T))
-        X = (V * (1.0 / np.sqrt(np.maximum(d, 1e-300)))) @ V.T  # Loewdin: T X is M-orthonormal
-        UtMT = (U.T @ MT) @ X
+        # Hermitian forms throughout: complex modes (magnetic fields) overlap in the complex M inner product
+        G = T.conj().T @ MT
+        d, V = eigh(0.5 * (G + G.conj().T))
+        X = (V * (1.0 / np.sqrt(np.maximum(d, 1e-300)))) @ V.conj().T  # Loewdin: T X is M-orthonormal
+        UtMT = (U.conj().T @ MT) @ X
         Z = self._zeroth_order(UtMT, lam, self._cohorts)
         O = UtMT @ Z  # (n_b, n_a) = U^T M T_a with T_a = T X Z
         groups = [np.asarray(g, dtype=int) for g in step.groups]
-        w = np.array([np.sum(O[g] ** 2, axis=0) for g in groups])  # (groups, n_a)
+        w = np.array([np.sum(np.abs(O[g]) ** 2, axis=0) for g in groups])  # (groups, n_a)
         slot_group = np.concatenate([np.full(len(g), h) for h, g in enumerate(groups)])
         rows, cols = linear_sum_assignment(-w[slot_group].T)  # states x slots
         sent = {h: [] for h in range(len(groups))}
@@ -193,12 +195,12 @@ class LevelTracker:
                 W, _, Vt = svd(O[np.ix_(g, ks)], full_matrices=False)
                 R = W @ Vt  # (|h|, |ks|), orthonormal columns: the polar factor
             if len(ks) < len(g):  # eigenvectors nobody arrived in: complete the basis
-                P = np.eye(len(g)) - R @ R.T
+                P = np.eye(len(g)) - R @ R.conj().T
                 Wc, _, _ = svd(P)
                 R = np.hstack([R, Wc[:, :len(g) - len(ks)]])
             owners = list(ks) + [None] * (len(g) - len(ks))
             # each state takes the eigenvector it weighs most on (ties inside a level are harmless)
-            who, mode = linear_sum_assignment(-(R**2).T)
+            who, mode = linear_sum_assignment(-(np.abs(R) ** 2).T)
             for c, r in zip(who, mode):
                 j = int(g[r])
                 if owners[c] is None:
@@ -215,3 +217,9 @@ class LevelTracker:
         names = {}
         new_cohorts = [names.setdefault(c, ("cohort", s, len(names))) for c in new_cohorts]
         return out, np.column_stack(new_states), new_ids, new_cohorts
+
+
+def _modes(vectors) -> np.ndarray:
+    """Mode vectors as floats, or complex where they are (modes in a magnetic field)."""
+    U = np.asarray(vectors)
+    return U if np.iscomplexobj(U) else U.astype(float)

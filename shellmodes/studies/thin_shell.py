@@ -8,9 +8,14 @@ E_surface(i) - E_surface(0), so users see when the surface model is good
 enough; the band bottom itself is printed against hbar^2 pi^2/(2 m d^2).
 Measuring from the band bottom also cancels most of the finite-element error
 of the stiff radial factor, which grows like (pi/d)^2 times the relative
-error.  Walls are the surface offset by
--d/2 and +d/2 along the radius (exact constant thickness for spheres and
-star shapes; approximately constant for ellipsoids).
+error.  Walls are the parallel surfaces at normal distance -d/2 and +d/2 (wall
+key ``offset``, :mod:`shellmodes.shapes.parallel_wall`): constant thickness, so
+the band bottom minus pi^2/d^2 tends to the surface's lowest level *with* the
+thin-layer potential V_g = -(H^2 - K) (da Costa, Phys. Rev. A 23, 1982 (1981));
+the row ``E(0) - transverse`` (the band bottom minus hbar^2 pi^2/(2 m d^2)) shows it beside the
+surface's lowest level.
+A surface case with ``fields.curvature_potential`` keeps V_g on the surface
+only; the shells get their walls instead.
 """
 
 from __future__ import annotations
@@ -71,6 +76,9 @@ class ThinShellComparison:
                                                              for d in self.thickness))
         lines.append(f"{'hbar^2 pi^2/(2 m d^2)':>21} " + " ".join(f"{np.pi**2 / d**2 * scale:>14.6g}"
                                                                   for d in self.thickness))
+        lines.append(f"{'E(0) - transverse':>21} " + " ".join(
+            f"{(self.shell[d][0] - np.pi**2 / d**2) * scale:>14.6g}" for d in self.thickness)
+            + f"   (surface lowest: {self.surface[0] * scale:.6g})")
         lines.append(f"{'max |shell - surface|':>21} " + " ".join(
             f"{self.deviation(d) * scale:>14.3g}" for d in self.thickness))
         if self.exact is not None:
@@ -108,18 +116,16 @@ def _offset_wall(surface: dict, delta: float, key: str, source: str) -> dict:
         radius = surface["radius"] + delta
         wall = {"shape": "sphere", "radius": radius}
     elif shape == "deformed_sphere":
-        R = surface["radius"]
-        radius = R + delta
-        # r = R (1 + sum a Y) + delta = (R + delta)(1 + sum a R/(R + delta) Y): constant thickness
-        wall = {"shape": "deformed_sphere", "radius": radius,
-                "deformation": [{**t, "amplitude": t["amplitude"] * R / radius} for t in surface["deformation"]]}
+        radius = surface["radius"] + delta
+        wall = {"shape": "deformed_sphere", "radius": surface["radius"], "deformation": surface["deformation"],
+                "offset": delta}
     elif shape == "ellipsoid":
         radius = min(surface["axes"]) + delta
-        wall = {"shape": "ellipsoid", "axes": [a + delta for a in surface["axes"]]}
+        wall = {"shape": "ellipsoid", "axes": surface["axes"], "offset": delta}
     elif shape == "spheroid":
         radius = min(surface["equatorial_radius"], surface["polar_radius"]) + delta
-        wall = {"shape": "spheroid", "equatorial_radius": surface["equatorial_radius"] + delta,
-                "polar_radius": surface["polar_radius"] + delta}
+        wall = {"shape": "spheroid", "equatorial_radius": surface["equatorial_radius"],
+                "polar_radius": surface["polar_radius"], "offset": delta}
     else:
         raise CaseError(f"value {shape!r}: the thin-shell comparison needs a closed shape about the origin; "
                         "allowed: sphere, deformed_sphere, ellipsoid, spheroid", source, "surface.shape")
@@ -189,6 +195,8 @@ def thin_shell_comparison(case: Case, thickness: Iterable[float], layers: int | 
     data = case.model_dump(mode="json", exclude_none=True)
     surf = data.pop("surface")
     data.pop("sweep", None)
+    if "fields" in data:  # the thin-layer potential belongs to the surface; a shell has its walls instead
+        data["fields"].pop("curvature_potential", None)
 
     def shell_case(d, count):
         shell_data = {**data,
