@@ -46,6 +46,8 @@ __all__ = [
     "torus_gaussian_curvature_integral",
     "ball_dirichlet",
     "ball_neumann",
+    "mean_cos2",
+    "spheroidal_ball_first_order",
     "shell_dirichlet",
     "shell_neumann",
     "shell_mixed",
@@ -429,6 +431,59 @@ def ball_dirichlet(l: int, count: int, radius: float = 1.0) -> np.ndarray:
     True
     """
     return _shell_roots(_degree(l), _count(count), 0.0, float(_positive("radius", radius)), None, "dirichlet")
+
+
+def mean_cos2(l: int, m: int) -> float:
+    """<cos^2 theta> of |Y_lm|^2 over the sphere (the same for cos(m phi) and sin(m phi) harmonics).
+
+    By Gauss-Legendre quadrature of ``P_l^m(x)^2 x^2`` against ``P_l^m(x)^2``
+    (scipy.special.lpmv; exact: polynomials of degree <= 2l + 2).
+
+    Examples
+    --------
+    >>> round(mean_cos2(0, 0), 12), round(mean_cos2(1, 0), 12), round(mean_cos2(1, 1), 12)
+    (0.333333333333, 0.6, 0.2)
+    """
+    from scipy.special import lpmv
+
+    l, m = _degree(l), abs(int(m))
+    if m > l:
+        raise ValueError(f"need |m| <= l, got l={l}, m={m}")
+    x, w = roots_legendre(l + 3)
+    p2 = lpmv(m, l, x) ** 2
+    return float(np.sum(w * p2 * x**2) / np.sum(w * p2))
+
+
+def spheroidal_ball_first_order(l: int, m: int, count: int, equatorial_radius: float,
+                                polar_radius: float) -> np.ndarray:
+    """Hard-walled spheroidal ball: the levels of class (l, |m|) to first order in delta = c / a - 1.
+
+    The wall ``r(theta) = a (1 + delta cos^2 theta) + O(delta^2)`` moves the
+    sphere's wall by ``delta r = a delta cos^2 theta``; Hadamard's formula for
+    Dirichlet eigenvalues, ``d lambda = -integral (du/dn)^2 delta r dS``
+    (recalled from memory: J. Hadamard, 1908; e.g. A. Henrot, Extremum
+    Problems for Eigenvalues of Elliptic Operators, 2006, ch. 5), with
+    ``u = N j_l(k r) Y_lm`` and the normalisation
+    ``integral_0^a j_l(k r)^2 r^2 dr = a^3 j_l'(k a)^2 / 2`` at a zero
+    (DLMF 10.22.37 with DLMF 10.47.3), gives
+
+        lambda = k^2 (1 - 2 delta <cos^2 theta>_lm) + O(delta^2),
+
+    k the zeros of j_l (:func:`ball_dirichlet`).  The axial perturbation is
+    diagonal in m, so each |m| class (a +-m pair for m > 0) shifts on its own:
+    on a prolate ball (delta > 0) m = 0 lies lowest in every l, on an oblate
+    one highest.
+
+    Examples
+    --------
+    >>> k = ball_dirichlet(1, 1)[0]
+    >>> bool(np.isclose(spheroidal_ball_first_order(1, 0, 1, 1.0, 1.01)[0], k**2 * (1 - 0.02 * 0.6)))
+    True
+    """
+    a = float(_positive("equatorial_radius", equatorial_radius))
+    delta = float(_positive("polar_radius", polar_radius)) / a - 1.0
+    k = ball_dirichlet(l, count, a)
+    return k**2 * (1.0 - 2.0 * delta * mean_cos2(l, m))
 
 
 def ball_neumann(l: int, count: int, radius: float = 1.0) -> np.ndarray:
