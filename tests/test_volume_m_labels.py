@@ -162,3 +162,26 @@ def test_tetrahedral_spheroidal_ball_has_abs_m_classes():
     got = [v for m in spectrum.multiplets for v in m.abs_m][:9]
     assert got == [0, 0, 1, 1, 0, 1, 1, 2, 2]
 
+
+
+def surface(shape, count, potential=None):
+    data = {"surface": shape, "resolution": {"degree": 2, "subdivisions": 2}, "modes": {"count": count}}
+    if potential is not None:
+        data["potential"] = potential
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return run_case(case_from_dict(data, "<test>"))
+
+
+def test_surfaces_symmetric_about_z_by_their_parameters_get_abs_m():
+    # a deformed sphere with only m = 0 terms and an ellipsoid with equal x and y axes are surfaces of
+    # revolution: the l = 1 triplet splits into m = 0 and a +-1 pair (L_z commutes with the operator)
+    for shape in ({"shape": "deformed_sphere", "radius": 1.0, "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}]},
+                  {"shape": "ellipsoid", "axes": [1.0, 1.0, 1.2]}):
+        spectrum = surface(shape, 4)
+        assert sorted(v for m in spectrum.multiplets[1:] for v in m.abs_m) == [0, 1, 1], shape
+    tilted = surface({"shape": "deformed_sphere", "radius": 1.0, "deformation": [{"l": 2, "m": 2, "amplitude": 0.1}]},
+                     4)
+    assert all(m.abs_m is None for m in tilted.multiplets)
+    field = surface({"shape": "sphere", "radius": 1.0}, 4, {"expression": "2 * y"})
+    assert all(m.abs_m is None for m in field.multiplets)  # a potential along y breaks the symmetry about z
