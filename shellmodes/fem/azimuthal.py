@@ -35,6 +35,8 @@ __all__ = ["basis_azimuthal_matrix", "prism_azimuthal_matrix", "prism_azimuthal_
 AXIAL_SHAPES = ("sphere", "spheroid", "torus", "cap")
 #: rotation angles about z at which a function is compared with itself (not multiples of 2 pi / n for small n)
 _ANGLES = (0.7, 2.1, 4.0)
+#: element entries collected before they are summed into Q (as in the prism assembly)
+_FLUSH_ENTRIES = 30_000_000
 
 
 def shape_axisymmetric(shape) -> bool:
@@ -109,14 +111,19 @@ def prism_azimuthal_matrix(disc, chunk: int = 64) -> sp.csr_matrix:
     ntri = disc.surface_dofs.shape[1]
     per = max(1, chunk // len(disc.radial_elements))
     Q = sp.csr_matrix((disc.ndofs, disc.ndofs))
+    blocks, dofs, entries = [], [], 0
     for start in range(0, ntri, per):
         tri = np.arange(start, min(ntri, start + per))
         x, J, det = prism_geometry(disc, ref, tri)
         t = np.stack([-x[..., 1], x[..., 0], np.zeros(x.shape[:2])], axis=-1)
         a = np.linalg.solve(J, t[..., None])[..., 0]  # (E, Q, 3): J^-1 t
-        D = np.einsum("bqj,eqj->ebq", G, a)  # d phi_b / d phi at every point
-        blocks = (D * (weights[None, :] * det)[:, None, :]) @ D.transpose(0, 2, 1)
-        Q = Q + _sparse(blocks, prism_dofs(disc, tri), disc.ndofs)
+        D = sum(G[None, :, :, j] * a[:, None, :, j] for j in range(3))  # (E, Nbasis, Q): d phi_b / d phi
+        blocks.append((D * (weights[None, :] * det)[:, None, :]) @ D.transpose(0, 2, 1))
+        dofs.append(prism_dofs(disc, tri))
+        entries += blocks[-1].size
+        if entries > _FLUSH_ENTRIES or start + per >= ntri:  # one COO -> CSR per batch, not per chunk
+            Q = Q + _sparse(np.concatenate(blocks), np.concatenate(dofs), disc.ndofs)
+            blocks, dofs, entries = [], [], 0
     return Q.tocsr()
 
 
