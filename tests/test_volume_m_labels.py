@@ -106,6 +106,15 @@ def test_triaxial_walls_and_phi_dependent_potentials_give_no_abs_m():
     assert along_z.multiplets[0].abs_m == (0,)  # a field along z keeps L_z: the ground state is m = 0
     assert not walls_axisymmetric([None, lambda d: 1.0 + 0.1 * d[:, 0]])
     assert walls_axisymmetric([None, lambda d: 1.0 + 0.1 * d[:, 2] ** 2])
+    from shellmodes.case.model import wall_function
+    from shellmodes.case.schema import Wall
+
+    def star(m):
+        terms = ({"l": 2, "m": m, "amplitude": 0.1},)
+        return wall_function(Wall(shape="deformed_sphere", radius=1.0, deformation=terms))
+
+    assert walls_axisymmetric([None, star(0)]) and not walls_axisymmetric([None, star(2)])
+    assert walls_axisymmetric([wall_function(Wall(shape="ellipsoid", axes=(1.0, 1.0, 1.5))), star(0)])
 
 
 def spheroid_classes(inner: float, outer: float, polar_radius: float, l_max: int, n_max: int):
