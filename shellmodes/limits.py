@@ -1,8 +1,10 @@
 """Every default and limit of shellmodes that is not a schema field default, stated once.
 
-A light module (no imports): the case schema, the pipeline, the planner and the
+A light module (only the standard library's re): the case schema, the pipeline, the planner and the
 command line all read their numbers from here, so a limit changes in one place.
 """
+
+import re
 
 #: most halvings of a surface's reference mesh (the icosahedron at 9 has 5.2 million triangles)
 MAX_SUBDIVISIONS = 9
@@ -38,3 +40,16 @@ BLOCK_THRESHOLD = 50_000
 BLOCK_COUNT = 80
 #: levels estimated for automatic layers (shell.decay) when a case gives modes.below instead of a count
 AUTO_LAYER_LEVELS = 200
+#: from this many requested modes on ``modes.method = "auto"`` slices the spectrum where a factorization
+#: is planned (measured: benchmarks/README.md, "Spectrum slicing": one Lanczos space grows as the square
+#: of the count, the slices linearly; 300 modes on 10,242 unknowns 7.4 s CPU in one shift, 4.2 s in slices)
+SLICE_FROM = 200
+#: modes per slice aimed at by default (each slice: its own shift, factorization and Lanczos window)
+SLICE_MODES = 150
+#: local Dask worker processes for slices start only from this much work on (unknowns x modes; a rule of
+#: thumb: below it starting a local cluster, a few seconds, exceeds the solve)
+SLICE_PARALLEL_FROM = 5e6
+#: what a Dask scheduler address must look like (sweep.scheduler, modes.scheduler)
+SCHEDULER_ADDRESS = re.compile(r"tcp://(\[[0-9a-fA-F:]+\]|[A-Za-z0-9.-]+):(\d{1,5})")
+#: ... and its port range
+PORT_RANGE = (1, 65535)

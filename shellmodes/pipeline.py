@@ -172,4 +172,8 @@ def _spectrum(case: Case, problem: Problem, plan: SolverPlan, solved: Solved, la
                         nodes=disc.nodes, multiplets=labels.multiplets, info=info, export=disc.export().as_dict(),
                         angular=labels.angular, mode_columns=labels.columns, problem=problem, plan=plan)
     spectrum.info.update(labels.info)
+    if case.output.statistics:
+        from shellmodes.spectrum.levelstats import surface_statistics
+
+        spectrum.info["statistics"] = surface_statistics(problem, solved)
     return spectrum

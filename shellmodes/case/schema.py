@@ -21,7 +21,16 @@ from shellmodes.case.aliases import key_as_written, upgrade, warn_renamed
 from shellmodes.case.expression import ExpressionError, compile_expression
 from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
 from shellmodes.errors import CaseError
-from shellmodes.limits import DEFAULT_MODE_COUNT, MAX_MODE_COUNT, MAX_RADIAL_DEGREE, MAX_SUBDIVISIONS
+from shellmodes.limits import (
+    DEFAULT_MODE_COUNT,
+    MAX_MODE_COUNT,
+    MAX_RADIAL_DEGREE,
+    MAX_SUBDIVISIONS,
+    PORT_RANGE,
+    SCHEDULER_ADDRESS,
+    SLICE_FROM,
+    SLICE_MODES,
+)
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -358,14 +367,29 @@ class Modes(_Table):
                                           "(at most 0.05: larger ones merge distinct levels)")
     backend: Literal["auto", "splu", "cholmod", "cholmod-system", "pardiso", "mumps"] = Field(
         "auto", description="factorization for shift-invert (auto: the fastest installed)")
-    method: Literal["auto", "lanczos", "block", "lobpcg", "separable", "mpi"] = Field(
+    method: Literal["auto", "lanczos", "block", "lobpcg", "separable", "slices", "mpi"] = Field(
         "auto", description="eigen-iteration: ARPACK Lanczos, blocked shift-invert for large problems, "
                             "LOBPCG with algebraic multigrid (no factorization) for 3-D problems too big to factor, "
                             "separation into surface and radial problems (prisms between concentric spheres, "
-                            "the default there), or 'mpi': SLEPc Krylov-Schur shift-invert distributed over the "
+                            "the default there), spectrum slicing with inertia counts for many modes ('slices', "
+                            f"the default from {SLICE_FROM} requested modes on where a factorization is planned), "
+                            "or 'mpi': SLEPc Krylov-Schur shift-invert distributed over the "
                             "MPI ranks of the run (needs scripts/setup-mpi.sh; 'auto' chooses it under mpiexec "
                             "or run --ranks with more than one rank, except for separable shells)")
+    slice_modes: int = Field(SLICE_MODES, ge=10, le=MAX_MODE_COUNT,
+                             description="method slices: modes per slice aimed at")
+    workers: int = Field(2, ge=1, le=256, description="method slices: local worker processes (1: in this process)")
+    scheduler: str | None = Field(None, description="method slices: address tcp://host:port of a running Dask "
+                                  "distributed scheduler to run the slices on (instead of local workers)")
     residual_limit: Positive = Field(1e-6, description="largest acceptable relative residual")
+
+    @field_validator("scheduler")
+    @classmethod
+    def _address(cls, value):
+        match = None if value is None else SCHEDULER_ADDRESS.fullmatch(value.strip())
+        if value is not None and (match is None or not PORT_RANGE[0] <= int(match.group(2)) <= PORT_RANGE[1]):
+            raise ValueError("not a scheduler address; give tcp://host:port (port 1-65535)")
+        return value
 
     @model_validator(mode="before")
     @classmethod
@@ -427,6 +451,9 @@ class Output(_Table):
                                               "(cut views for shells; needs the plot extra and vtu = true)")
     picture_multiplets: int = Field(4, ge=1, le=100, description="how many multiplets to render, one mode of each "
                                     "(old name: picture_modes)")
+    statistics: bool = Field(False, description="level statistics of the spectrum (surfaces): counting function "
+                             "against Weyl's law, heat-trace coefficients, nearest-neighbour spacings per symmetry "
+                             "class; numbers in spectrum.json, picture statistics.png (needs the plot extra)")
 
     @model_validator(mode="after")
     def _pictures_need_vtu(self):
@@ -493,6 +520,9 @@ class Case(_Table):
                                                  or self.potential is not None):
             raise ValueError("modes.method 'separable' needs shell.cells = 'prisms', concentric spherical walls "
                              "and no [potential]")
+        if self.output.statistics and self.surface is None:
+            raise ValueError("output.statistics compares with Weyl's law for surfaces: use a [surface], "
+                             "or statistics = false")
         rotor = self.particle.moment_of_inertia is not None
         if self.units.length == "1" and self.units.energy != "1" and not rotor:
             raise ValueError("units.energy needs a physical units.length (m, um, nm, angstrom, bohr) "

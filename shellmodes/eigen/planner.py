@@ -21,6 +21,14 @@ Paths
 ``lobpcg-amg``
     3-D problems whose Cholesky factor would not fit (or when asked):
     LOBPCG with algebraic multigrid.
+``slices``
+    Many modes (from :data:`~shellmodes.limits.SLICE_FROM` where a
+    factorization is planned, or when asked): the spectrum cut into slices,
+    each with its own shift, LDL^T factorization and Lanczos window, every
+    slice's modes checked against inertia counts (:mod:`shellmodes.eigen.slicing`).
+    return Solved(pairs, problem.expand(pairs.vectors), [])
+
+
 ``mpi``
     The assembled problem on the MPI ranks of the run (``modes.method =
     "mpi"``, or ``"auto"`` in a leader session of more than one rank when the
@@ -50,7 +58,7 @@ from shellmodes.eigen.solve import Eigenpairs, lowest_modes, resolve_method
 from shellmodes.errors import DoubtfulResultWarning, GeometryError, ProblemError
 from shellmodes.fem.discretisation import Discretisation, Operators
 from shellmodes.harmonics import parent_degree
-from shellmodes.limits import DENSE_LIMIT, PRISM_ITERATIVE_FROM, WINDOW_START_COUNT
+from shellmodes.limits import DENSE_LIMIT, PRISM_ITERATIVE_FROM, SLICE_FROM, WINDOW_START_COUNT
 
 __all__ = ["Problem", "SolverPlan", "Solved", "plan_solver", "solve_plan"]
 
@@ -201,6 +209,8 @@ def plan_solver(problem: Problem, modes: Modes) -> SolverPlan:
         return SolverPlan("lobpcg-spherical", "lobpcg", "spherical-reference", lower, scale, n,
                           f"deformed prisms, {n} unknowns: LOBPCG preconditioned by the exact inverse of the "
                           "mean-radius spherical shell (fast diagonalisation), started from its modes")
+    if disc.kind == "surface" and _wants_slices(n, modes):
+        return _slices_plan(modes, lower, scale, n, None)
     if disc.kind == "surface":
         resolved = resolve_method(n, method, modes.count)
         return SolverPlan("shift-invert" if method != "lobpcg" else "lobpcg-amg", resolved,
@@ -257,6 +267,8 @@ def _plan_volume(problem: Problem, modes: Modes, lower: float, scale: float) -> 
         gib = estimate.bytes / 2**30
         reason = (f"estimated Cholesky factor {gib:.2f} GiB fits in memory: shift-invert" if path == "shift-invert"
                   else f"estimated Cholesky factor {gib:.2f} GiB exceeds half the free memory: LOBPCG with AMG")
+    if method == "slices" or (path == "shift-invert" and _wants_slices(n, modes)):
+        return _slices_plan(modes, lower, scale, n, estimate, reason)
     if method == "lobpcg" or (path == "lobpcg-amg" and method == "auto"):
         resolved = resolve_method(n, "lobpcg", modes.count)
     else:
@@ -266,6 +278,22 @@ def _plan_volume(problem: Problem, modes: Modes, lower: float, scale: float) -> 
     return SolverPlan("lobpcg-amg" if resolved == "lobpcg" else path, resolved,
                       _backend_name(n, resolved, modes.backend), lower, scale, n, reason,
                       None if estimate is None else int(estimate.bytes))
+
+
+def _wants_slices(n: int, modes: Modes) -> bool:
+    """Slices when asked, or by default for :data:`~shellmodes.limits.SLICE_FROM` modes and more (not dense)."""
+    return modes.method == "slices" or (modes.method == "auto" and (modes.count or 0) >= SLICE_FROM
+                                        and n > DENSE_LIMIT)
+
+
+def _slices_plan(modes: Modes, lower: float, scale: float, n: int, estimate, why: str | None = None) -> SolverPlan:
+    where = f"{modes.workers} local worker(s)" if not modes.scheduler else f"the Dask scheduler {modes.scheduler}"
+    asked = ("case asks for method 'slices'" if modes.method == "slices"
+             else f"{modes.count} modes (slices from {SLICE_FROM} on)")
+    reason = (f"{asked}: spectrum slicing, about {modes.slice_modes} modes per slice, each with its own shift, "
+              f"LDL^T factorization and Lanczos window, every slice checked by inertia counts, on {where}")
+    return SolverPlan("slices", "slices", "superlu-ldl", lower, scale, n,
+                      reason + (f"; {why}" if why else ""), None if estimate is None else int(estimate.bytes))
 
 
 def _backend_name(n: int, method: str, backend: str) -> str:
@@ -311,7 +339,8 @@ def solve_plan(plan: SolverPlan, problem: Problem, modes: Modes, count: int | No
     OpenBLAS threads spin when the cores are shared (measured on a 2-core
     machine under load: 1 thread was 4-6x faster than 2).
     """
-    runner = {"separable": _separable, "lobpcg-spherical": _lobpcg_spherical, "mpi": _mpi}.get(plan.path, _assembled)
+    runner = {"separable": _separable, "lobpcg-spherical": _lobpcg_spherical, "mpi": _mpi,
+              "slices": _sliced}.get(plan.path, _assembled)
     with warnings.catch_warnings(record=True) as caught, threadpool_limits(limits=1):
         warnings.simplefilter("always")
         solved = runner(plan, problem, modes, count, below)
@@ -325,6 +354,15 @@ def _assembled(plan, problem, modes, count, below, **options) -> Solved:
     pairs = lowest_modes(problem.K, problem.M, count=count, below=below, lower_bound=plan.lower_bound,
                          scale=plan.scale, backend=modes.backend, multiplet_tolerance=modes.multiplet_tolerance,
                          residual_limit=modes.residual_limit, method=plan.method, **options)
+    return Solved(pairs, problem.expand(pairs.vectors), [])
+
+
+def _sliced(plan, problem, modes, count, below) -> Solved:
+    from shellmodes.eigen.slicing import sliced_modes
+
+    pairs = sliced_modes(problem.K, problem.M, count, below, lower_bound=plan.lower_bound, scale=plan.scale,
+                         multiplet_tolerance=modes.multiplet_tolerance, residual_limit=modes.residual_limit,
+                         slice_modes=modes.slice_modes, workers=modes.workers, scheduler=modes.scheduler)
     return Solved(pairs, problem.expand(pairs.vectors), [])
 
 

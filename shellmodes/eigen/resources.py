@@ -203,6 +203,30 @@ def _eigen_bytes(n: float, modes: float, method: str, nnz: float) -> tuple[float
     return 8.0 * n * ncv + 8.0 * ncv * (ncv + 8) + kept, kept
 
 
+def _slices_bytes(case, n: float, modes: float, factor: float) -> tuple[float, float]:
+    """Working set of spectrum slicing: each running slice holds its LU factor (both triangles, about twice
+    a Cholesky factor) and its Lanczos basis; the collected vectors are held once more while joined."""
+    from shellmodes.limits import DENSE_LIMIT
+
+    k = min(n, modes + max(6, math.ceil(0.15 * modes)))
+    kept = 8.0 * n * k
+    if n <= DENSE_LIMIT:
+        return 4 * 8.0 * n * n, kept
+    per_slice = 1.1 * case.modes.slice_modes + 8
+    ncv = min(n, max(2 * per_slice + 1, per_slice + 32))
+    running = 1 if case.modes.scheduler else min(case.modes.workers, math.ceil(modes / case.modes.slice_modes))
+    return running * (8.0 * n * ncv + 8.0 * ncv * (ncv + 8) + 2 * factor) + kept, kept
+
+
+def _slices(case, n: float) -> bool:
+    """Whether the planner will slice the spectrum (asked, or by default from SLICE_FROM modes on)."""
+    from shellmodes.limits import DENSE_LIMIT, SLICE_FROM
+
+    modes = case.modes
+    return modes.method == "slices" or (modes.method == "auto" and (modes.count or 0) >= SLICE_FROM
+                                        and n > DENSE_LIMIT)
+
+
 # ------------------------------------------------------------------------------------------------ cases
 
 def _size_key(case) -> str:
@@ -252,7 +276,10 @@ def _surface_estimate(case) -> MemoryEstimate:
         window = 1.2 * _weyl(case, area, 2, energy_scale(case, shape)[0]) + 10
         modes = min(dofs, window)
     method = case.modes.method if case.modes.method in ("lanczos", "block") else "auto"
-    eigen, kept = _eigen_bytes(dofs, modes, method, nnz)
+    if _slices(case, dofs):
+        eigen, kept = _slices_bytes(case, dofs, modes, factor)
+    else:
+        eigen, kept = _eigen_bytes(dofs, modes, method, nnz)
     return _estimate(case, (dofs, nnz, modes, window), (mesh, assembly, factor, eigen, kept), _size_key(case))
 
 
@@ -339,7 +366,11 @@ def _shell_estimate(case) -> MemoryEstimate | None:
         ratio = max([m / case.particle.effective_mass for m in masses] + [1.0])
         window = 1.2 * _weyl(case, _shell_volume(case), 3, energy_scale(case)[0], ratio) + 10
         modes = min(dofs, window)
-    eigen, kept = _eigen_bytes(dofs, modes, method, nnz)
+    if method != "separable" and (case.modes.method == "slices" or (method == "auto" and _slices(case, dofs))):
+        method = "slices"
+        eigen, kept = _slices_bytes(case, dofs, modes, factor)
+    else:
+        eigen, kept = _eigen_bytes(dofs, modes, method, nnz)
     if method == "separable":
         eigen = kept
     if method == "auto" and shell.cells == "tetrahedra":

@@ -31,7 +31,7 @@ from shellmodes.errors import DoubtfulResultWarning, SolverError
 from shellmodes.limits import BLOCK_COUNT, BLOCK_THRESHOLD, DENSE_LIMIT, WINDOW_START_COUNT
 
 __all__ = ["Eigenpairs", "lowest_modes", "group_multiplets", "relative_residuals", "resolve_method", "first_size",
-           "multiplet_end", "checked_pairs"]
+           "multiplet_end", "checked_pairs", "check_found"]
 
 log = logging.getLogger(__name__)
 
@@ -106,6 +106,18 @@ def group_multiplets(lam: np.ndarray, tolerance: float, scale: float) -> list[np
     gaps = np.diff(lam) > tolerance * np.maximum(np.abs(lam[1:]), scale)
     cuts = np.flatnonzero(gaps) + 1
     return np.split(np.arange(len(lam)), cuts)
+
+
+def check_found(count, residuals, residual_limit: float) -> None:
+    """Log a count extended to a whole multiplet; warn when a residual exceeds the limit."""
+    keep = len(residuals)
+    if count is not None and keep > count:
+        log.info("extended %d requested modes to %d to complete the last multiplet", count, keep)
+    worst = float(np.max(residuals)) if keep else 0.0
+    if worst > residual_limit:
+        warnings.warn(f"largest relative residual {worst:.2e} exceeds the limit {residual_limit:.1e} "
+                      f"(mode {int(np.argmax(residuals))}); do not trust these modes without checking",
+                      DoubtfulResultWarning, stacklevel=3)
 
 
 def _m_orthonormalise(U, M):
@@ -284,13 +296,7 @@ def checked_pairs(K, M, lam, U, sigma: float, count: int | None, residual_limit:
     U, orth = _m_orthonormalise(U, M)
     residuals = relative_residuals(K, M, lam, U, floor=abs(sigma) if sigma else 1.0)
     log.info("solved %d modes with %s (%s) in %.2f s", keep, backend, method, elapsed)
-    if count is not None and keep > count:
-        log.info("extended %d requested modes to %d to complete the last multiplet", count, keep)
-    worst = float(np.max(residuals)) if keep else 0.0
-    if worst > residual_limit:
-        warnings.warn(f"largest relative residual {worst:.2e} exceeds the limit {residual_limit:.1e} "
-                      f"(mode {int(np.argmax(residuals))}); do not trust these modes without checking",
-                      DoubtfulResultWarning, stacklevel=3)
+    check_found(count, residuals, residual_limit)
     return Eigenpairs(lam=lam, vectors=U, residuals=residuals, orthogonality=orth, shift=sigma, backend=backend,
                       requested=count, timings={"eigensolve": elapsed, **(timings or {})}, method=method,
                       details=details or {})

@@ -182,7 +182,7 @@ def spectrum_json(spectrum) -> dict:
         "multiplets": [m.as_dict() for m in spectrum.multiplets],
         **{k: spectrum.info.get(k) for k in ("units", "mesh", "solver", "versions", "case", "timings",
                                               "warnings")},
-        **({"perturbation": spectrum.info["perturbation"]} if "perturbation" in spectrum.info else {}),
+        **{k: spectrum.info[k] for k in ("perturbation", "statistics") if k in spectrum.info},
     }
 
 
@@ -255,6 +255,15 @@ def _write_pictures(spectrum, folder: Path):
     chosen = [m.members[0] for m in spectrum.multiplets[: output.get("picture_multiplets", 4)]]
     render_modes(folder / "modes.vtu", chosen, str(folder / "mode-{index:04d}.png"),
                  unit=spectrum.info["units"]["energy"])
+
+
+def _write_statistics(spectrum, folder: Path):
+    """statistics.png when the run computed level statistics (``output.statistics``)."""
+    if "statistics" in spectrum.info:
+        from shellmodes.io.pictures import statistics_picture
+
+        statistics_picture(spectrum.info["statistics"], folder / "statistics.png",
+                           title=(spectrum.info.get("case") or {}).get("title") or None)
 
 
 @register("run.log")
@@ -341,6 +350,10 @@ def check_run_output(case, out, report: bool = False) -> None:
         from shellmodes.io.pictures import require_plot_extra
 
         require_plot_extra("--report" if report else "output.pictures", case.source)
+    if case.output.statistics:
+        from shellmodes.io.pictures import require_plot_extra
+
+        require_plot_extra("output.statistics", case.source, modules=("matplotlib",))
 
 
 class atomic_directory:
@@ -424,7 +437,7 @@ def _link_or_copy(source, destination):
 
 #: names a run writes into its folder (with ``shellmodes report``): an earlier run's copy is dropped
 RUN_FILES = (r"spectrum\.json", r"spectrum\.csv", r"modes\.vtu", r"arrays\.csv", r"run\.log",
-             r"report\.html", r"levels\.png",
+             r"report\.html", r"levels\.png", r"statistics\.png",
              r"mode-\d+\.png", r"report-.*\.png")
 
 
@@ -460,4 +473,5 @@ def write_outputs(spectrum: Spectrum, folder: str | Path, files: Iterable[str] |
         for name in names:
             EXPORTERS[name](spectrum, tmp)
         _write_pictures(spectrum, tmp)  # only when the case's [output] asks for pictures
+        _write_statistics(spectrum, tmp)  # only when the case's [output] asks for statistics
     return Path(folder)

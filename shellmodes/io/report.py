@@ -169,7 +169,17 @@ _APPLIES = {
     ("particle", "inertia_unit"): lambda t: t.get("moment_of_inertia") is not None,
     ("output", "picture_multiplets"): lambda t: bool(t.get("pictures")),
     ("output", "picture_modes"): lambda t: bool(t.get("pictures")),  # the old name, in older run folders
+    **{("modes", key): lambda t: _sliced(t) for key in ("slice_modes", "workers", "scheduler")},
 }
+
+
+def _sliced(modes: dict) -> bool:
+    """Whether a [modes] table asks for spectrum slicing (as the planner decides for surfaces)."""
+    from shellmodes.limits import SLICE_FROM
+
+    count = modes.get("count")
+    return modes.get("method") == "slices" or (modes.get("method", "auto") == "auto" and isinstance(count, int)
+                                                and count >= SLICE_FROM)
 
 
 def applicable_case(case: dict) -> dict:
@@ -532,6 +542,42 @@ def _checks_section(results) -> str:
             f'own error needs a convergence study.</p><div class="scroll">{table}</div>')
 
 
+def _slices_section(solver: dict) -> str:
+    """Per-slice table of a sliced run: interval, shift, inertia count, modes found, residual, time."""
+    rows = []
+    for r in solver.get("slices") or []:
+        rows.append([_e(r.get("index")), f"[{_num(r.get('lower'), 8)}, {_num(r.get('upper'), 8)})",
+                     _num(r.get("shift"), 6), _e(r.get("expected")), _e(r.get("found")),
+                     _sci(r.get("max_residual")), f"{float(r.get('seconds', 0.0)):.2f} s", _e(r.get("worker", ""))])
+    ok = all(r.get("found") == r.get("expected") for r in solver.get("slices") or [])
+    note = ("every slice holds exactly the modes its inertia counts say (none missed, none twice)" if ok
+            else "a slice's modes differ from its inertia count: modes are missing or repeated")
+    return (_table(["slice", "interval (eigenvalue)", "shift", "inertia count", "found", "max residual", "time",
+                    "worker"], rows, text_columns=(1, 7)) + f'<p class="quiet">{_e(note)}.</p>')
+
+
+def _statistics_section(stats: dict, png: bytes | None) -> str:
+    """Weyl comparison, heat-trace coefficients and spacing distances of ``output.statistics``."""
+    heat, weyl = stats["heat_trace"], stats["weyl"]
+    rows = [["A / 4 pi (area)", _num(heat["a"], 6), _num(heat["expected_a"], 6)],
+            ["-/+ L / 8 sqrt(pi) (rim)", _num(heat["b"], 6), _num(heat["expected_b"], 6)],
+            ["chi / 6 (Euler characteristic)", _num(heat["c"], 6), _num(heat["expected_c"], 6)]]
+    parts = [f"<figure>{_img(png, 'level statistics')}<figcaption>Top: the computed counting function "
+             "against Weyl's law with its corrections, and its fluctuation about it; bottom: unfolded "
+             "nearest-neighbour spacings against Poisson and the Wigner surmise.</figcaption></figure>"
+             if png is not None else "",
+             "<h3>Heat-trace coefficients</h3>",
+             _table(["term", "fitted", "expected"], rows, text_columns=(0,)),
+             f'<p class="quiet">{_e(weyl.get("source", ""))}. Mean of N(lambda) minus Weyl\'s N over the '
+             f'computed levels: {_num(weyl.get("mean_deviation"), 4)}.</p>',
+             "<h3>Spacings</h3>",
+             _table(["class", "modes", "spacings", "KS distance to Poisson", "KS distance to Wigner"],
+                    [[_e(name), _e(v.get("modes")), _e(v.get("count")), _num(v.get("ks_poisson"), 3),
+                      _num(v.get("ks_wigner"), 3)] for name, v in stats["spacings"].items()], text_columns=(0,)),
+             f'<p class="quiet">{_e(stats["classes"].get("note", ""))}.</p>']
+    return "".join(parts)
+
+
 def _chosen_modes(data: dict, count: int) -> list[int]:
     """The first mode of each of the first ``count`` multiplets with a nonzero eigenvalue.
 
@@ -551,7 +597,8 @@ def _chosen_modes(data: dict, count: int) -> list[int]:
 
 
 def report_html(data: dict, *, folder: Path | None = None, levels_png: bytes | None = None,
-                mode_pngs=(), convergence: Path | None = None, checks=None, notes=()) -> str:
+                mode_pngs=(), convergence: Path | None = None, checks=None, notes=(),
+                statistics_png: bytes | None = None) -> str:
     """Assemble the report page from a parsed ``spectrum.json`` and ready-made PNG bytes.
 
     ``mode_pngs`` is a sequence of ``(mode index, multiplet record, png bytes)``;
@@ -579,6 +626,10 @@ def report_html(data: dict, *, folder: Path | None = None, levels_png: bytes | N
         body.append(f"<h2>Levels</h2><figure>{_img(levels_png, 'level diagram')}<figcaption>Computed levels "
                     f"{ladder}; each bar is one mode.</figcaption></figure>")
     body.append("<h2>Multiplets</h2>" + _multiplet_table(data))
+    if (data.get("solver") or {}).get("slices"):
+        body.append("<h2>Slices</h2>" + _slices_section(data["solver"]))
+    if isinstance(data.get("statistics"), dict):
+        body.append("<h2>Level statistics</h2>" + _statistics_section(data["statistics"], statistics_png))
     if mode_pngs:
         figures = []
         for index, mult, png in mode_pngs:
@@ -662,7 +713,7 @@ def write_report(folder, checks=False, *, modes: int = DEFAULT_RENDERS, keep_ima
     shellmodes.io.pictures.PlotExtraMissing
         matplotlib or pyvista is not installed.
     """
-    from shellmodes.io.pictures import render_modes, spectrum_picture
+    from shellmodes.io.pictures import render_modes, spectrum_picture, statistics_picture
 
     folder = Path(folder)
     data = load_run(folder)
@@ -691,8 +742,17 @@ def write_report(folder, checks=False, *, modes: int = DEFAULT_RENDERS, keep_ima
         elif chosen:
             paths = render_modes(vtu, chosen, str(where / "report-mode{index:04d}.png"), unit=unit)
             pictures = [(i, mode_to_mult.get(i, {"index": "?"}), p.read_bytes()) for i, p in zip(chosen, paths)]
+        statistics_png = None
+        if data.get("statistics") is not None:
+            try:
+                _statistics_section(data["statistics"], None)  # reads every field the page shows
+                statistics_png = statistics_picture(data["statistics"], where / "report-statistics.png").read_bytes()
+            except (KeyError, TypeError, ValueError, AttributeError, IndexError):
+                notes.append("the level statistics in spectrum.json are malformed and are not shown; run the case "
+                             "again to rewrite them")
+                data = {k: v for k, v in data.items() if k != "statistics"}
         page = report_html(data, folder=folder, levels_png=levels.path.read_bytes(), mode_pngs=pictures,
-                           convergence=convergence, checks=results, notes=notes)
+                           convergence=convergence, checks=results, notes=notes, statistics_png=statistics_png)
     try:
         return _write_text_atomic(folder / "report.html", page)
     except OSError as exc:

@@ -272,15 +272,9 @@ def harmonic_projector(nodes, M, l_max: int, center=(0.0, 0.0, 0.0), radial_degr
                              m=labels[:, 1], k=radial_index, l_max=l_max, condition=condition)
 
 
-def _split(projector, coefficients, resolved, aggregate=False):
-    """Share ``resolved`` among degrees in proportion to the coefficients' sphere norms.
-
-    Per vector (``resolved`` of shape (n_vectors,)) or, with ``aggregate``, for
-    the span of all columns at once (Frobenius norms of the blocks).
-    """
+def _split(projector, coefficients, resolved):
+    """Share ``resolved`` (n_vectors,) among degrees in proportion to each vector's sphere norms."""
     blocks = projector.sphere_norms(coefficients)
-    if aggregate:
-        blocks = blocks.sum(axis=1)
     total = blocks.sum(axis=0)
     return blocks * (resolved / np.where(total > 0, total, 1.0))
 
@@ -409,20 +403,28 @@ def multiplet_content(nodes: np.ndarray, modes: np.ndarray, M: sp.spmatrix, grou
             raise ValueError(f"group {g} refers to modes outside 0..{modes.shape[1] - 1}")
     if projector is None:
         projector = harmonic_projector(nodes, M, l_max, center, radial_degree)
-    rows = []
     # one pass over the mesh for every group: with gram = L L^T, Q = V L^-T and the
-    # coefficients of Q are those of V times L^-T
+    # coefficients of Q are those of V times L^-T; every group's whitened columns side by side,
+    # so that the projections and sphere norms are two matrix products for all groups at once
     MV = np.asarray(M @ modes)
     CV = projector.gram_pinv @ (projector.B.T @ MV)
+    whitening = []
     for g in groups:
         gram = modes[:, g].T @ MV[:, g]
         gram = 0.5 * (gram + gram.T)
         s_values = np.linalg.eigvalsh(gram)
         if s_values[0] <= 1e-10 * s_values[-1]:
             raise ValueError(f"modes {g} are linearly dependent in the M inner product")
-        C = scipy.linalg.solve_triangular(np.linalg.cholesky(gram), CV[:, g].T, lower=True).T
-        resolved = min(float(projector.projected_norms(C).sum()) / len(g), 1.0)
-        weights = _split(projector, C, resolved, aggregate=True)
+        whitening.append(scipy.linalg.solve_triangular(np.linalg.cholesky(gram), np.eye(len(g)), lower=True).T)
+    C = (sp.block_diag(whitening, format="csr").T @ CV[:, np.concatenate(groups)].T).T
+    starts = np.cumsum([0] + [len(g) for g in groups])[:-1]
+    projected = np.add.reduceat(projector.projected_norms(C), starts)
+    blocks = np.add.reduceat(projector.sphere_norms(C), starts, axis=1)
+    rows = []
+    for k, g in enumerate(groups):
+        resolved = min(float(projected[k]) / len(g), 1.0)
+        total_blocks = blocks[:, k].sum()
+        weights = blocks[:, k] * (resolved / total_blocks if total_blocks > 0 else resolved)
         dominant = int(np.argmax(weights))
         total = float(weights.sum())
         degrees = np.arange(len(weights))

@@ -49,6 +49,7 @@ from shellmodes import errors
 from shellmodes.case.schema import Case, case_from_dict
 from shellmodes.errors import CaseError, ShellmodesError
 from shellmodes.io.outputs import EXPORTERS, MODE_ARRAY, atomic_directory
+from shellmodes.limits import PORT_RANGE, SCHEDULER_ADDRESS
 
 __all__ = ["SweepStep", "SweepResult", "SweepStopped", "plan_steps", "run_sweep", "load_step"]
 
@@ -433,14 +434,12 @@ def _die_with_parent(parent: int) -> None:
         os._exit(1)
 
 
-#: what a scheduler address must look like
-SCHEDULER_ADDRESS = re.compile(r"tcp://(\[[0-9a-fA-F:]+\]|[A-Za-z0-9.-]+):(\d{1,5})")
 
 
 def check_scheduler_address(address: str, source: str | None = None) -> None:
     """Refuse an address that is not ``tcp://host:port`` (before anything is written)."""
     match = SCHEDULER_ADDRESS.fullmatch(str(address).strip())
-    if match is None or not 0 < int(match.group(2)) < 65536:
+    if match is None or not PORT_RANGE[0] <= int(match.group(2)) <= PORT_RANGE[1]:
         raise CaseError(f"value {address!r}: a scheduler address is tcp://host:port (port 1-65535); "
                         "tls and other protocols are not supported", source, "sweep.scheduler")
 
