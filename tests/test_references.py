@@ -449,3 +449,30 @@ def test_rotational_constant():
     assert ref.rotational_constant_cm(4.6e-48) == pytest.approx(60.8, rel=0.02)
     with pytest.raises(ValueError):
         ref.rotational_constant_cm(-1.0)
+
+
+def test_mean_cos2_against_the_closed_form():
+    # <l m| cos^2 theta |l m> = (2 l^2 + 2 l - 2 m^2 - 1) / ((2l - 1)(2l + 3)): recalled from memory (the
+    # recurrence x P_l^m = ((l - m + 1) P_{l+1}^m + (l + m) P_{l-1}^m) / (2l + 1), DLMF 14.10.3, applied twice)
+    for l in range(7):
+        for m in range(l + 1):
+            closed = (2 * l * l + 2 * l - 2 * m * m - 1) / ((2 * l - 1) * (2 * l + 3))
+            assert abs(ref.mean_cos2(l, m) - closed) < 1e-13
+
+
+@pytest.mark.parametrize("inner", [0.0, 1.0])
+def test_spheroidal_first_order_averages_to_a_uniform_dilation(inner):
+    # sum over m of |Y_lm|^2 is (2l+1)/(4 pi) (Unsold; addition theorem DLMF 14.30.9), so the multiplet's mean
+    # first-order shift under delta r = b delta cos^2 theta is that of a uniform dilation by delta <cos^2> = delta/3:
+    # compare with the exact roots of the sphere of radius b (1 + delta/3); the difference is O(delta^2)
+    b, delta = 2.0, 1e-4
+    def roots(l, radius):
+        return ref.ball_dirichlet(l, 2, radius) if inner == 0.0 else ref.shell_dirichlet(l, 2, inner, radius)
+
+    for l in range(4):
+        exact, grown = roots(l, b) ** 2, roots(l, b * (1 + delta / 3)) ** 2
+        shifts = [(1 if m == 0 else 2) * (ref.spheroidal_first_order(l, m, 2, b, b * (1 + delta), inner) - exact)
+                  for m in range(l + 1)]
+        mean = np.sum(shifts, axis=0) / (2 * l + 1)
+        # the O(delta^2) term, O(delta) = 1e-4 relative to the shift: measured 5e-5 (ball), 1e-4 (shell)
+        assert np.allclose(mean, grown - exact, rtol=1e-3), (l, mean, grown - exact)

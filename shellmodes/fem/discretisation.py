@@ -202,6 +202,13 @@ class Discretisation(ABC):
         """What the problem on this mesh adds to the mesh record (walls, media)."""
         return {}
 
+    def azimuthal_matrix(self) -> sp.csr_matrix | None:
+        """Q = integral (du/dphi)(dv/dphi) on every dof where the geometry is symmetric about z, else None.
+
+        See :mod:`shellmodes.fem.azimuthal`; the labeller reads each multiplet's |m| from it.
+        """
+        return None
+
     def describe(self) -> str:
         """One line for run.log."""
         return f"{self.kind}: degree {self.degree}, {self.nelements} elements, {self.ndofs} dofs, h = {self.h:.4g}"
@@ -294,6 +301,11 @@ class SurfaceDiscretisation(Discretisation):
     def problem_info(self, problem) -> dict:
         return {"rim": self.rim}
 
+    def azimuthal_matrix(self) -> sp.csr_matrix | None:
+        from shellmodes.fem.azimuthal import basis_azimuthal_matrix, shape_axisymmetric
+
+        return basis_azimuthal_matrix(self.raw.basis) if shape_axisymmetric(self.shape) else None
+
     def describe(self) -> str:
         return f"mesh: degree {self.degree}, {self.nelements} elements, {self.ndofs} dofs, h = {self.h:.4g}"
 
@@ -334,8 +346,10 @@ def discretise(case: Case, shape: Shape | None = None) -> CurvedSurface:
 class _Volume(Discretisation):
     labeller = "volume"
 
-    def __init__(self, raw):
+    def __init__(self, raw, axisymmetric: bool = False):
         self.raw = raw
+        #: every wall and interface is symmetric about z (mesh files: never claimed)
+        self.axisymmetric = bool(axisymmetric)
 
     def assemble(self, media: Media, potential=None, terms=None) -> Operators:
         t0 = time.perf_counter()
@@ -420,6 +434,11 @@ class TetrahedralDiscretisation(_Volume):
     def describe(self) -> str:
         return f"mesh: degree {self.degree}, {self.nelements} tetrahedra, {self.ndofs} dofs, h = {self.h:.4g}"
 
+    def azimuthal_matrix(self) -> sp.csr_matrix | None:
+        from shellmodes.fem.azimuthal import basis_azimuthal_matrix
+
+        return basis_azimuthal_matrix(self.raw.basis) if self.axisymmetric else None
+
 
 class PrismDiscretisation(_Volume):
     """Layered curved prisms (:class:`~shellmodes.fem.prisms.PrismShell`): surface degree x radial degree."""
@@ -463,6 +482,14 @@ class PrismDiscretisation(_Volume):
         from shellmodes.fem.prisms import kronecker_factors
 
         return kronecker_factors(self.raw, media.inverse_mass, media.offsets, radial)
+
+    def azimuthal_matrix(self) -> sp.csr_matrix | None:
+        """Q from the walls' own symmetry (exact Kronecker factors for concentric spheres)."""
+        from shellmodes.fem.azimuthal import prism_azimuthal_kronecker, prism_azimuthal_matrix, walls_axisymmetric
+
+        if self.separates():
+            return prism_azimuthal_kronecker(self.raw)
+        return prism_azimuthal_matrix(self.raw) if walls_axisymmetric(self.raw.walls) else None
 
     def mass_matrix(self) -> sp.csr_matrix:
         from shellmodes.fem.prisms import assemble_prisms, kronecker_factors
@@ -522,6 +549,7 @@ def _surface(case: Case) -> SurfaceDiscretisation:
 
 @register_builder("tetrahedra")
 def _tetrahedra(case: Case) -> TetrahedralDiscretisation:
+    from shellmodes.fem.azimuthal import walls_axisymmetric
     from shellmodes.fem.shellmesh import shell_mesh
     from shellmodes.fem.tetrahedra import discretise as discretise_volume
     from shellmodes.meshfiles.volume import read_volume_mesh
@@ -537,8 +565,10 @@ def _tetrahedra(case: Case) -> TetrahedralDiscretisation:
         except MeshError as exc:
             raise CaseError(exc.reason, exc.source or case.source, "shell.file") from None
     with _shell_errors(case):
-        mesh = shell_mesh(shell_walls(case), level=shell_level(case), layers_per_region=_layers(case))
-        return TetrahedralDiscretisation(discretise_volume(mesh, res.degree, quadrature_order=res.quadrature_order))
+        walls = shell_walls(case)
+        mesh = shell_mesh(walls, level=shell_level(case), layers_per_region=_layers(case))
+        return TetrahedralDiscretisation(discretise_volume(mesh, res.degree, quadrature_order=res.quadrature_order),
+                                         axisymmetric=walls_axisymmetric(walls))
 
 
 @register_builder("prisms")

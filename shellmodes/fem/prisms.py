@@ -363,6 +363,66 @@ def _walls_at(disc: PrismShell, ref: _Reference, tri: np.ndarray):
     return np.einsum("wgt,gq->wtq", nodal, ref.gphi), np.einsum("wgt,gjq->wtqj", nodal, ref.dgphi)
 
 
+def _tensor_basis(ref: _Reference) -> tuple[np.ndarray, np.ndarray]:
+    """Reference tensor basis values (Nb (q+1), Qs Qr) and gradients (Nb (q+1), Qs Qr, 3) in (xi1, xi2, eta).
+
+    Basis index ``a * (q + 1) + b``, point index ``qs_index * Qr + qr_index``.
+    """
+    nb, nr1 = ref.phi.shape[0], ref.psi.shape[0]
+    qs, qr = len(ref.ws), len(ref.wr)
+    Phi = np.einsum("aq,br->abqr", ref.phi, ref.psi).reshape(nb * nr1, qs * qr)
+    G = np.concatenate([np.einsum("ajq,br->abqrj", ref.dphi, ref.psi),
+                        np.einsum("aq,br->abqr", ref.phi, ref.dpsi)[..., None]], axis=-1).reshape(nb * nr1, qs * qr, 3)
+    return Phi, G
+
+
+def prism_dofs(disc: PrismShell, tri: np.ndarray) -> np.ndarray:
+    """(T L, Nb (q+1)) global dofs of the prisms on triangles ``tri`` (prism ``t * L + layer``)."""
+    nb, nr1 = disc.surface_dofs.shape[0], disc.radial_elements.shape[1]
+    return (disc.surface_dofs[:, tri].T[:, None, :, None] * disc.n_radial
+            + disc.radial_elements[None, :, None, :]).reshape(len(tri) * len(disc.radial_elements), nb * nr1)
+
+
+def prism_geometry(disc: PrismShell, ref: _Reference, tri: np.ndarray):
+    """Points x (E, Q, 3), Jacobians J = dx/d(xi1, xi2, eta) (E, Q, 3, 3) and oriented det J (E, Q).
+
+    E runs over the prisms on triangles ``tri`` (``t * L + layer``), Q over the
+    tensor rule (``qs_index * Qr + qr_index``).
+
+    Raises
+    ------
+    GeometryError
+        A prism whose Jacobian is not positive at a quadrature point.
+    """
+    qs, qr = len(ref.ws), len(ref.wr)
+    nlayer = len(disc.radial_elements)
+    medium = disc.layer_region
+    tau_ends = disc.tau[disc.radial_elements[:, [0, -1]]] - medium[:, None]  # (L, 2) local fractions
+    s, ds = _directions_at(disc, ref, tri)
+    R, dR = _walls_at(disc, ref, tri)
+    lo, hi = R[medium], R[medium + 1]  # (L, T, Qs)
+    dlo, dhi = dR[medium], dR[medium + 1]
+    frac = tau_ends[:, 0, None] + np.outer(tau_ends[:, 1] - tau_ends[:, 0], ref.eta)  # (L, Qr)
+    width = tau_ends[:, 1] - tau_ends[:, 0]  # (L,)
+    rho = lo[..., None] + (hi - lo)[..., None] * frac[:, None, None, :]  # (L, T, Qs, Qr)
+    drho = dlo[..., None, :] + (dhi - dlo)[..., None, :] * frac[:, None, None, :, None]  # (L,T,Qs,Qr,2)
+    deta = (hi - lo)[..., None] * width[:, None, None, None]  # (L, T, Qs, 1) -> d rho / d eta
+    c12 = (drho[..., None, :] * s[None, :, :, None, :, None]
+           + rho[..., None, None] * ds[None, :, :, None, :, :])  # (L, T, Qs, Qr, 3, 2)
+    c3 = np.broadcast_to(deta[..., None] * s[None, :, :, None, :], rho.shape + (3,))
+    J = np.concatenate([c12, c3[..., None]], axis=-1)  # (L, T, Qs, Qr, 3, 3) columns d x / d (xi1, xi2, eta)
+    J = J.transpose(1, 0, 2, 3, 4, 5).reshape(len(tri) * nlayer, qs * qr, 3, 3)
+    # scikit-fem sorts triangle vertices, so a triangle's chart may be inward: det J then has
+    # that triangle's orientation sign at every point, and a sign change means the prism folds
+    det = np.linalg.det(J) * np.repeat(_orientation(disc, tri), nlayer)[:, None]
+    if np.any(det <= 0):
+        e = int(np.argmin(np.min(det, axis=1)))
+        raise GeometryError(f"prism {tri[0] * nlayer + e} has a non-positive Jacobian "
+                            f"({np.min(det):.3g}); the walls fold or cross")
+    x = (rho[..., None] * s[None, :, :, None, :]).transpose(1, 0, 2, 3, 4).reshape(len(J), qs * qr, 3)
+    return x, J, det
+
+
 def assemble_prisms(disc: PrismShell, inverse_mass: dict, offsets: dict | None = None,
                     potential: Callable | None = None, chunk: int = 64) -> tuple[sp.csr_matrix, sp.csr_matrix]:
     """Stiffness K and mass M (lambda units) of the layered effective-mass problem on prisms.
@@ -380,14 +440,10 @@ def assemble_prisms(disc: PrismShell, inverse_mass: dict, offsets: dict | None =
     ref = _reference(disc)
     nb, nr1 = ref.phi.shape[0], ref.psi.shape[0]
     qs, qr = len(ref.ws), len(ref.wr)
-    # reference tensor basis (A = a * (q+1) + b, Q = qs_index * Qr + qr_index)
-    Phi = np.einsum("aq,br->abqr", ref.phi, ref.psi).reshape(nb * nr1, qs * qr)
-    G = np.concatenate([np.einsum("ajq,br->abqrj", ref.dphi, ref.psi),
-                        np.einsum("aq,br->abqr", ref.phi, ref.dpsi)[..., None]], axis=-1).reshape(nb * nr1, qs * qr, 3)
+    Phi, G = _tensor_basis(ref)
     Gflat = G.reshape(nb * nr1, -1)
     nlayer = len(disc.radial_elements)
     medium = disc.layer_region
-    tau_ends = disc.tau[disc.radial_elements[:, [0, -1]]] - medium[:, None]  # (L, 2) local fractions
     K = sp.csr_matrix((disc.ndofs, disc.ndofs))
     M = sp.csr_matrix((disc.ndofs, disc.ndofs))
     ntri = disc.surface_dofs.shape[1]
@@ -397,28 +453,7 @@ def assemble_prisms(disc: PrismShell, inverse_mass: dict, offsets: dict | None =
     flush_entries = 30_000_000  # element entries collected before they are summed into K and M
     for start in range(0, ntri, per):
         tri = np.arange(start, min(ntri, start + per))
-        s, ds = _directions_at(disc, ref, tri)
-        R, dR = _walls_at(disc, ref, tri)
-        # every (triangle, layer) pair: e = t * L + l
-        lo, hi = R[medium], R[medium + 1]  # (L, T, Qs)
-        dlo, dhi = dR[medium], dR[medium + 1]
-        frac = tau_ends[:, 0, None] + np.outer(tau_ends[:, 1] - tau_ends[:, 0], ref.eta)  # (L, Qr)
-        width = tau_ends[:, 1] - tau_ends[:, 0]  # (L,)
-        rho = lo[..., None] + (hi - lo)[..., None] * frac[:, None, None, :]  # (L, T, Qs, Qr)
-        drho = dlo[..., None, :] + (dhi - dlo)[..., None, :] * frac[:, None, None, :, None]  # (L,T,Qs,Qr,2)
-        deta = (hi - lo)[..., None] * width[:, None, None, None]  # (L, T, Qs, 1) -> d rho / d eta
-        c12 = (drho[..., None, :] * s[None, :, :, None, :, None]
-               + rho[..., None, None] * ds[None, :, :, None, :, :])  # (L, T, Qs, Qr, 3, 2)
-        c3 = np.broadcast_to(deta[..., None] * s[None, :, :, None, :], rho.shape + (3,))
-        J = np.concatenate([c12, c3[..., None]], axis=-1)  # (L, T, Qs, Qr, 3, 3) columns d x / d (xi1, xi2, eta)
-        J = J.transpose(1, 0, 2, 3, 4, 5).reshape(len(tri) * nlayer, qs * qr, 3, 3)
-        # scikit-fem sorts triangle vertices, so a triangle's chart may be inward: det J then has
-        # that triangle's orientation sign at every point, and a sign change means the prism folds
-        det = np.linalg.det(J) * np.repeat(_orientation(disc, tri), nlayer)[:, None]
-        if np.any(det <= 0):
-            e = int(np.argmin(np.min(det, axis=1)))
-            raise GeometryError(f"prism {start * nlayer + e} has a non-positive Jacobian "
-                                f"({np.min(det):.3g}); the walls fold or cross")
+        x, J, det = prism_geometry(disc, ref, tri)
         Jinv = np.linalg.inv(J)
         w = np.outer(ref.ws, ref.wr).ravel()[None, :] * det  # (E, Q)
         coeff = np.array([inverse_mass.get(int(r), 1.0) for r in medium])
@@ -432,12 +467,10 @@ def assemble_prisms(disc: PrismShell, inverse_mass: dict, offsets: dict | None =
         Me = (Phi[None, :, :] * w[:, None, :]) @ Phi.T
         value = np.tile(np.array([offsets.get(int(r), 0.0) for r in medium]), len(tri))[:, None]
         if potential is not None:
-            x = (rho[..., None] * s[None, :, :, None, :]).transpose(1, 0, 2, 3, 4).reshape(len(w), qs * qr, 3)
             value = value + np.asarray(potential(x[..., 0], x[..., 1], x[..., 2]), dtype=float)
         if potential is not None or np.any(value):
             Ke = Ke + (Phi[None, :, :] * (w * value)[:, None, :]) @ Phi.T
-        dofs = (disc.surface_dofs[:, tri].T[:, None, :, None] * disc.n_radial
-                + disc.radial_elements[None, :, None, :]).reshape(len(w), nb * nr1)
+        dofs = prism_dofs(disc, tri)
         rows = np.repeat(dofs, nb * nr1, axis=1).ravel()
         cols = np.tile(dofs, (1, nb * nr1)).ravel()
         pending.append((rows.astype(index), cols.astype(index), Ke.ravel(), Me.ravel()))

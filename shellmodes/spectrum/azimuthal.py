@@ -1,5 +1,7 @@
-"""|m| of each multiplet of a surface of revolution about z, from its phi-dependence.
+"""|m| of each multiplet of a surface of revolution, shell or ball symmetric about z, from its phi-dependence.
 
+The matrix Q comes from the discretisation (:meth:`~shellmodes.fem.discretisation.Discretisation.azimuthal_matrix`,
+built in :mod:`shellmodes.fem.azimuthal`: scikit-fem bases, prisms, Kronecker factors).
 On a shape symmetric about the z axis the rotation generator L_z = -i d/dphi
 commutes with the Laplace-Beltrami operator, so every eigenspace is invariant
 under d^2/dphi^2 and splits into |m| classes.  With the tangent field
@@ -21,34 +23,26 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["AXIAL_SHAPES", "is_axisymmetric", "azimuthal_matrix", "multiplet_abs_m", "continuation_parents",
-           "M_TOLERANCE"]
+from shellmodes.fem.azimuthal import AXIAL_SHAPES, rotation_invariant
+from shellmodes.fem.azimuthal import basis_azimuthal_matrix as azimuthal_matrix
+from shellmodes.fem.azimuthal import shape_axisymmetric as is_axisymmetric
+
+__all__ = ["AXIAL_SHAPES", "is_axisymmetric", "azimuthal_matrix", "potential_axisymmetric", "multiplet_abs_m",
+           "continuation_parents", "M_TOLERANCE"]
 
 #: sqrt(G eigenvalue) further than this from an integer: |m| unresolved
 M_TOLERANCE = 0.2
-#: shapes symmetric about the z axis whatever their parameters
-AXIAL_SHAPES = ("sphere", "spheroid", "torus", "cap")
 
 
-def is_axisymmetric(shape) -> bool:
-    """True for a surface of revolution about z (a star shape only with m = 0 deformations)."""
-    if shape.name in AXIAL_SHAPES:
+def potential_axisymmetric(potential, nodes: np.ndarray) -> bool:
+    """Whether a compiled potential (None: no potential) is unchanged by rotations about z at ``nodes``."""
+    if potential is None:
         return True
-    return shape.name == "star" and all(m == 0 for _, m, _ in shape.deformation)
+    from shellmodes.case.model import point_potential
 
-
-def azimuthal_matrix(basis):
-    """Q = integral (t . grad u)(t . grad v), t = e_z x X, on a scikit-fem basis (surface or volume)."""
-    import skfem
-
-    @skfem.BilinearForm
-    def form(u, v, w):
-        x = w.x
-        du = -x[1] * u.grad[0] + x[0] * u.grad[1]
-        dv = -x[1] * v.grad[0] + x[0] * v.grad[1]
-        return du * dv
-
-    return skfem.asm(form, basis).tocsr()
+    function = point_potential(potential)
+    sample = nodes[:: max(1, len(nodes) // 2000)]  # a spread subset: the potential is a closed form
+    return rotation_invariant(lambda p: function(p[:, 0], p[:, 1], p[:, 2]), sample)
 
 
 def multiplet_abs_m(Q, vectors: np.ndarray, groups) -> list[np.ndarray]:

@@ -95,7 +95,7 @@ def _surface(problem, plan, solved, scale, tolerance) -> Labels:
     columns, rule = {}, None
     multiplets, columns = _abs_m(problem, vectors, multiplets)
     if columns:
-        rule = "|m|: eigenvalues of -d2/dphi2 on each multiplet's subspace"
+        rule = M_RULE
         if sphere_like:
             from shellmodes.spectrum.azimuthal import continuation_parents
 
@@ -134,19 +134,29 @@ def _parent(multiplet, l_max: int):
 
 
 def _abs_m(problem, vectors, multiplets):
-    """Multiplets with their |m| content and the per-mode ``abs_m`` column, on surfaces of revolution."""
-    from shellmodes.spectrum.azimuthal import azimuthal_matrix, is_axisymmetric, multiplet_abs_m
+    """Multiplets with their |m| content and the per-mode ``abs_m`` column, where the problem is symmetric about z.
 
-    basis = getattr(problem.disc.raw, "basis", None)
-    if basis is None or vectors.shape[1] == 0 or not is_axisymmetric(problem.disc.shape):
+    The geometry's symmetry comes from the discretisation (its azimuthal matrix, None where it
+    is not symmetric); a potential that depends on phi breaks the symmetry and gives no |m|.
+    """
+    from shellmodes.spectrum.azimuthal import multiplet_abs_m, potential_axisymmetric
+
+    if vectors.shape[1] == 0 or not potential_axisymmetric(problem.potential, problem.disc.nodes):
         return multiplets, {}
-    values = multiplet_abs_m(azimuthal_matrix(basis), vectors, [m.members for m in multiplets])
+    Q = problem.disc.azimuthal_matrix()
+    if Q is None:
+        return multiplets, {}
+    values = multiplet_abs_m(Q, vectors, [m.members for m in multiplets])
     column = np.full(vectors.shape[1], -1, dtype=int)
     out = []
     for m, ms in zip(multiplets, values, strict=True):
         column[list(m.members)] = ms  # the subspace's sorted |m| over its members (basis-invariant as a set)
         out.append(replace(m, abs_m=tuple(int(v) for v in ms)))
     return out, {"abs_m": [int(v) for v in column]}
+
+
+#: the rule text for |m| labels (tables and spectrum.json)
+M_RULE = "|m|: eigenvalues of -d2/dphi2 on each multiplet's subspace"
 
 
 @register_labeller("volume")
@@ -164,6 +174,16 @@ def _volume(problem, plan, solved, scale, tolerance) -> Labels:
 
 
 def _volume_labels(problem, plan, solved, scale, tolerance) -> Labels:
+    """(n, l) labels, with |m| per multiplet where every wall is symmetric about z."""
+    labels = _volume_nl(problem, plan, solved, scale, tolerance)
+    multiplets, columns = _abs_m(problem, solved.vectors, labels.multiplets)
+    if not columns:
+        return labels
+    rule = M_RULE if labels.rule is None else f"{labels.rule}; {M_RULE}"
+    return replace(labels, multiplets=multiplets, columns={**labels.columns, **columns}, rule=rule)
+
+
+def _volume_nl(problem, plan, solved, scale, tolerance) -> Labels:
     lam = solved.pairs.lam
     energies = scale.energies(lam)
     given = solved.labels

@@ -59,7 +59,8 @@ class Multiplet:
     #: which rule gave ``l``: "dominant-weight" (the subspace's dominant degree, weight >= 1/2),
     #: "nearest-l" (nearest l(l+1) to lambda R_eq^2), "separable", "overlap", "angular-fit"; None: no l
     label_rule: str | None = None
-    #: surfaces of revolution about z: the sorted |m| of the subspace (-1 unresolved), see spectrum/azimuthal
+    #: shapes symmetric about z (surfaces, shells, balls): the sorted |m| of the subspace (-1 unresolved),
+    #: see spectrum/azimuthal
     abs_m: tuple[int, ...] | None = None
 
     def as_dict(self) -> dict:

@@ -46,6 +46,8 @@ __all__ = [
     "torus_gaussian_curvature_integral",
     "ball_dirichlet",
     "ball_neumann",
+    "mean_cos2",
+    "spheroidal_first_order",
     "shell_dirichlet",
     "shell_neumann",
     "shell_mixed",
@@ -429,6 +431,81 @@ def ball_dirichlet(l: int, count: int, radius: float = 1.0) -> np.ndarray:
     True
     """
     return _shell_roots(_degree(l), _count(count), 0.0, float(_positive("radius", radius)), None, "dirichlet")
+
+
+def mean_cos2(l: int, m: int) -> float:
+    """<cos^2 theta> of |Y_lm|^2 over the sphere (the same for cos(m phi) and sin(m phi) harmonics).
+
+    By Gauss-Legendre quadrature of ``P_l^m(x)^2 x^2`` against ``P_l^m(x)^2``
+    (scipy.special.lpmv; exact: polynomials of degree <= 2l + 2).
+
+    Examples
+    --------
+    >>> round(mean_cos2(0, 0), 12), round(mean_cos2(1, 0), 12), round(mean_cos2(1, 1), 12)
+    (0.333333333333, 0.6, 0.2)
+    """
+    from scipy.special import lpmv
+
+    l, m = _degree(l), abs(int(m))
+    if m > l:
+        raise ValueError(f"need |m| <= l, got l={l}, m={m}")
+    x, w = roots_legendre(l + 3)
+    p2 = lpmv(m, l, x) ** 2
+    return float(np.sum(w * p2 * x**2) / np.sum(w * p2))
+
+
+def _hard_radial(l: int, k: float, inner: float, r, derivative: bool = False):
+    """The radial function (or its derivative in k r) vanishing at r = inner (> 0), regular at 0 for a ball."""
+    if inner == 0.0:
+        return spherical_jn(l, k * r, derivative)
+    return (spherical_jn(l, k * r, derivative) * spherical_yn(l, k * inner)
+            - spherical_yn(l, k * r, derivative) * spherical_jn(l, k * inner))
+
+
+def spheroidal_first_order(l: int, m: int, count: int, equatorial_radius: float, polar_radius: float,
+                           inner_radius: float = 0.0) -> np.ndarray:
+    """Hard walls: a spheroidal outer wall over a ball or a spherical inner wall, the levels of class (l, |m|)
+    to first order in delta = c / a - 1 (a, c the outer wall's equatorial and polar radii).
+
+    The wall ``r(theta) = a (1 + delta cos^2 theta) + O(delta^2)`` moves the
+    sphere's wall by ``delta r = a delta cos^2 theta``; Hadamard's formula for
+    Dirichlet eigenvalues, ``d lambda = -integral (du/dn)^2 delta r dS``
+    (recalled from memory: J. Hadamard, 1908; e.g. A. Henrot, Extremum
+    Problems for Eigenvalues of Elliptic Operators, 2006, ch. 5), with the
+    sphere's modes ``u = R(r) Y_lm``, integral R^2 r^2 dr = 1 over the radii, gives
+
+        lambda = k^2 - 2 delta <cos^2 theta>_lm a^3 R'(a)^2 / 2 + O(delta^2),
+
+    k the zeros of j_l (ball, :func:`ball_dirichlet`) or of the shell's cross
+    product (:func:`shell_dirichlet`); R'(a) and the normalisation from
+    scipy.special's spherical Bessel functions and Gauss-Legendre quadrature
+    (for the ball, ``a^3 R'(a)^2 = 2 k^2`` by DLMF 10.22.37 with DLMF 10.47.3,
+    so ``lambda = k^2 (1 - 2 delta <cos^2 theta>_lm)``).  The axial
+    perturbation is diagonal in m, so each |m| class (a +-m pair for m > 0)
+    shifts on its own: on a prolate wall (delta > 0) m = 0 lies lowest in
+    every l, on an oblate one highest.
+
+    Examples
+    --------
+    >>> k = ball_dirichlet(1, 1)[0]
+    >>> bool(np.isclose(spheroidal_first_order(1, 0, 1, 1.0, 1.01)[0], k**2 * (1 - 0.02 * 0.6)))
+    True
+    """
+    outer = float(_positive("equatorial_radius", equatorial_radius))
+    delta = float(_positive("polar_radius", polar_radius)) / outer - 1.0
+    inner = float(inner_radius)
+    if not 0.0 <= inner < outer:
+        raise ValueError(f"inner_radius must lie in [0, {outer}), got {inner}")
+    l = _degree(l)
+    ks = ball_dirichlet(l, count, outer) if inner == 0.0 else shell_dirichlet(l, count, inner, outer)
+    x, w = roots_legendre(200)  # the radial functions are smooth: 200 points integrate them to rounding
+    r = inner + (outer - inner) * 0.5 * (x + 1.0)
+    out = []
+    for k in ks:
+        norm = 0.5 * (outer - inner) * np.sum(w * _hard_radial(l, k, inner, r) ** 2 * r**2)
+        slope = k * _hard_radial(l, k, inner, outer, derivative=True)
+        out.append(k**2 - 2.0 * delta * mean_cos2(l, m) * outer**3 * slope**2 / (2.0 * norm))
+    return np.array(out)
 
 
 def ball_neumann(l: int, count: int, radius: float = 1.0) -> np.ndarray:
