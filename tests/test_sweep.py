@@ -442,3 +442,16 @@ def test_a_shell_sweep_tracks_the_exact_band_and_stops_before_crossing_walls(tmp
         run_sweep(case_from_dict(bad), tmp_path / "bad")
     assert "step 1" in str(info.value) and "crosses" in str(info.value)
     assert sorted(p.name for p in (tmp_path / "bad" / "steps").iterdir()) == ["step-0000"]
+
+
+def test_an_evenly_spaced_range_has_no_float_noise():
+    """-0.1..0.1 in 21 steps: -0.09, not -0.09000000000000001 (common practice: a range's values are
+    meant as written, so they are rounded to 12 significant digits of the largest value)."""
+    from shellmodes.case.schema import SweepParameter
+
+    raw = [-0.1 + 0.2 * i / 20 for i in range(21)]
+    assert raw[1] != -0.09 and raw[4] != -0.06  # the noise this test is about
+    values = SweepParameter(key="surface.radius", start=-0.1, stop=0.1, steps=21).resolved()
+    assert values[1] == -0.09 and values[4] == -0.06 and values[10] == 0.0
+    assert values[0] == -0.1 and values[-1] == 0.1
+    assert max(abs(a - b) for a, b in zip(values, raw)) < 1e-15

@@ -21,7 +21,7 @@ from shellmodes.case.aliases import key_as_written, upgrade, warn_renamed
 from shellmodes.case.expression import ExpressionError, compile_expression
 from shellmodes.case.fields import Fields
 from shellmodes.case.tables import Table
-from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS
+from shellmodes.case.units import ENERGY_UNITS, INERTIA_UNITS, LENGTH_UNITS, MASS_UNITS, without_noise
 from shellmodes.errors import CaseError
 from shellmodes.limits import (
     DEFAULT_MODE_COUNT,
@@ -427,7 +427,8 @@ class SweepParameter(_Table):
             return tuple(self.values)
         if self.steps == 1:
             return (float(self.start),)
-        return tuple(float(self.start + (self.stop - self.start) * i / (self.steps - 1)) for i in range(self.steps))
+        raw = [self.start + (self.stop - self.start) * i / (self.steps - 1) for i in range(self.steps)]
+        return tuple(without_noise(v, raw) for v in raw)  # 0.0, not 1.4e-17, at the middle of -0.1..0.1
 
 
 class Sweep(_Table):

@@ -94,3 +94,15 @@ def kinetic_scale_joule(mass_kg: float, length_m: float) -> float:
 def rotational_constant_cm(inertia_kg_m2: float) -> float:
     """Rotational constant B = h / (8 pi^2 c I) in cm^-1 (Herzberg, Spectra of Diatomic Molecules)."""
     return C.h / (8.0 * np.pi**2 * C.c * inertia_kg_m2) * C.centi
+
+
+def without_noise(value: float, series=None) -> float:
+    """A value of a series without float noise: 12 significant digits of the series' largest value.
+
+    0.30000000000000004 -> 0.3, and 1.3877787807814457e-17 in a series reaching 0.1 -> 0.0.
+    """
+    scale = max((abs(float(v)) for v in (series if series is not None else [value])), default=0.0)
+    if scale == 0.0 or not np.isfinite(scale):
+        return float(value)
+    digits = 11 - int(np.floor(np.log10(scale)))
+    return float(f"{round(float(value), digits):.12g}") + 0.0  # + 0.0: no -0.0

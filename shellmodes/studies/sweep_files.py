@@ -34,6 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
+from shellmodes.case.units import without_noise as _clean
 from shellmodes.io.outputs import atomic_directory
 
 __all__ = ["write_sweep_files", "LEVEL_COLOURS", "colour_of", "SWEEP_FIELDS", "TrackStates", "track_array_name",
@@ -123,18 +124,6 @@ def _timesteps(result) -> tuple[list[float], str]:
     if len(values) == 1 or np.all(d > 0) or np.all(d < 0):
         return values, result.keys[0]
     return [float(s.index) for s in result.steps], "step"
-
-
-def _clean(value: float, series=None) -> float:
-    """A swept value without float noise: 12 significant digits of the largest value of its ``series``.
-
-    0.30000000000000004 -> 0.3, and 1.3877787807814457e-17 in a series reaching 0.1 -> 0.0.
-    """
-    scale = max((abs(float(v)) for v in (series if series is not None else [value])), default=0.0)
-    if scale == 0.0 or not np.isfinite(scale):
-        return float(value)
-    digits = 11 - int(np.floor(np.log10(scale)))
-    return float(f"{round(float(value), digits):.12g}") + 0.0  # + 0.0: no -0.0
 
 
 def _csv_text(result) -> str:
