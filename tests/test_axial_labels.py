@@ -158,3 +158,14 @@ def test_cap_m_classes_match_the_ferrers_roots():
         assert mult.l is None  # a cap is not sphere-like: no parent l, no continuation
         checked += 1
     assert checked >= 7
+
+
+@pytest.mark.parametrize("m", [0, 1, 2])
+def test_the_two_independent_profile_solvers_agree(m):
+    """studies/profile_levels (Galerkin on a generic profile of revolution) and studies/profile_reference
+    (shape-specific bases, with the optional thin-layer potential) are written independently: with the
+    potential off they must give the same class-m levels (spectral accuracy, so to 1e-10)."""
+    from shellmodes.studies.profile_reference import spheroid_profile_levels, torus_profile_levels
+
+    assert np.allclose(spheroid_levels(1.0, 2.0, m, 5), spheroid_profile_levels(1.0, 2.0, m, 5), rtol=1e-10)
+    assert np.allclose(torus_levels(2.0, 0.7, m, 5), torus_profile_levels(2.0, 0.7, m, 5), rtol=1e-10)
