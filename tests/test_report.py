@@ -413,7 +413,8 @@ def test_level_labels_name_n_and_l():
 
 
 def test_sweep_axis_names_are_readable():
-    from shellmodes.studies.sweep_files import _clean, axis_name
+    from shellmodes.case.units import without_noise as _clean
+    from shellmodes.studies.sweep_files import axis_name
 
     case = {"surface": {"shape": "star", "deformation": [{"l": 2, "m": 0, "amplitude": 0.1}]},
             "units": {"length": "nm"}}

@@ -50,7 +50,8 @@ def _read(path: Path) -> dict:
 
 def sweep_html(folder: Path, data: dict) -> str:
     """The page of a sweep folder."""
-    from shellmodes.studies.sweep_files import _clean, axis_name
+    from shellmodes.case.units import without_noise
+    from shellmodes.studies.sweep_files import axis_name
 
     steps, tracks, rows = data.get("steps") or [], data.get("tracks") or [], data.get("rows") or []
     unit = (data.get("units") or {}).get("energy") or "1"
@@ -67,7 +68,7 @@ def sweep_html(folder: Path, data: dict) -> str:
     facts = [("steps", _num(len(steps))), ("tracked levels", _num(len(tracks))),
              ("complete", "yes" if data.get("complete") else _e(f"no: {data.get('stopped')}"))]
     for (name, key), p in zip(named, data.get("parameters") or []):
-        values = ", ".join(f"{_clean(v, p['values']):.6g}" for v in p["values"])
+        values = ", ".join(f"{without_noise(v, p['values']):.6g}" for v in p["values"])
         facts.append((_e(name), _e(f"{key}: {values}")))
     body = [f'<header class="run"><h1>{_e(title)}</h1><p>sweep over {_e(", ".join(n for n, _ in named))} · '
             f"energies in {_e(unit)}</p><p>sweep folder {_e(folder)}</p></header>",
@@ -87,7 +88,8 @@ def sweep_html(folder: Path, data: dict) -> str:
         ["track", "parent l", "first step", "last step", f"energy there [{unit}]", f"energy at last step [{unit}]"],
         track_rows) + "</div>")
     series = {k: [(s.get("values") or {}).get(k, 0.0) for s in steps] for k in keys}
-    step_rows = [[_num(s.get("step")), *[_num(_clean((s.get("values") or {}).get(k), series[k]), 8) for k in keys],
+    step_rows = [[_num(s.get("step")),
+                  *[_num(without_noise((s.get("values") or {}).get(k), series[k]), 8) for k in keys],
                   _e(s.get("folder", ""))] for s in steps]
     body.append("<h2>Steps</h2>" + '<div class="scroll">' + _table(["step", *keys, "folder"], step_rows,
                                                                      text_columns=(len(keys) + 1,)) + "</div>")

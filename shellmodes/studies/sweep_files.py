@@ -34,7 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
-from shellmodes.case.units import without_noise as _clean
+from shellmodes.case.units import without_noise
 from shellmodes.io.outputs import atomic_directory
 
 __all__ = ["write_sweep_files", "LEVEL_COLOURS", "colour_of", "SWEEP_FIELDS", "TrackStates", "track_array_name",
@@ -119,7 +119,7 @@ def _timesteps(result) -> tuple[list[float], str]:
     if not result.steps:
         return [], "step"
     raw = [s.values[0][1] for s in result.steps]
-    values = [_clean(v, raw) for v in raw]
+    values = [without_noise(v, raw) for v in raw]
     d = np.diff(values)
     if len(values) == 1 or np.all(d > 0) or np.all(d < 0):
         return values, result.keys[0]
@@ -205,7 +205,7 @@ def _write_series(result, folder: Path) -> set:
                 np.full(len(mesh.points), np.nan)
         rows = by_step.get(step.index, {})
         field_data = {"step": np.array([step.index]),
-                      **{key: np.array([_clean(v, series[key])]) for key, v in step.values},
+                      **{key: np.array([without_noise(v, series[key])]) for key, v in step.values},
                       "track_energy": np.array([rows[t]["energy"] if t in rows else np.nan for t in tracks]),
                       "track_mode": np.array([rows[t]["mode"] if t in rows else -1 for t in tracks]),
                       "track_parent_l": np.array([-1 if t["parent_l"] is None else t["parent_l"]
@@ -291,9 +291,10 @@ def _plot_levels(result, case, path: Path) -> None:
         second = others[0]
         top = ax.secondary_xaxis("top")
         shown = result.steps if len(result.steps) <= 6 else result.steps[:: max(1, len(result.steps) // 5)]
+        second_series = [dict(t.values)[second] for t in result.steps]
         top.set_xticks([x_of[s.index] for s in shown],
-                       labels=[f"{_clean(dict(s.values)[second], [dict(t.values)[second] for t in result.steps]):.4g}"
-                               for s in shown], fontsize=8)
+                       labels=[f"{without_noise(dict(s.values)[second], second_series):.4g}" for s in shown],
+                       fontsize=8)
         top.set_xlabel(axis_name(second, record) + (f"  (also swept: {', '.join(others[1:])})" if others[1:] else ""),
                        fontsize=9)
     if per_parent:
