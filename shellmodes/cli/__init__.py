@@ -88,6 +88,12 @@ def _print_warning(text: str) -> None:
 def _logging(verbose: bool) -> None:
     """Our own INFO lines with ``-v``; other libraries' loggers stay at WARNING (no third-party floods)."""
     logging.basicConfig(level=logging.WARNING, format="%(message)s")
+    # libraries that set their own loggers below WARNING when imported (dask's distributed says INFO)
+    # are put back, whatever was imported before this command ran
+    for name, logger in list(logging.root.manager.loggerDict.items()):
+        if (isinstance(logger, logging.Logger) and name.split(".")[0] != "shellmodes"
+                and logger.level != logging.NOTSET and logger.level < logging.WARNING):
+            logger.setLevel(logging.WARNING)
     logging.getLogger("shellmodes").setLevel(logging.INFO if verbose else logging.WARNING)
 
 
